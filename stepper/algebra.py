@@ -55,6 +55,15 @@ class UnsupportedByField(Exception):
     """An expression uses something the rational-function field cannot hold."""
 
 
+def as_expression(value) -> sympy.Expr:
+    """A sympy expression from a sympy object or a Python number; text is refused."""
+    if isinstance(value, sympy.Basic):
+        return value
+    if isinstance(value, int):
+        return sympy.Integer(value)
+    raise TypeError(f"expected a sympy expression, got {type(value).__name__}")
+
+
 # --------------------------------------------------------------------------
 # Generators of the field
 # --------------------------------------------------------------------------
@@ -279,7 +288,7 @@ class FieldArithmetic:
         scan = _Scan(coordinates)
         prepared = []
         for expr in expressions:
-            expr = _rewrite_for_field(sympy.sympify(expr))
+            expr = _rewrite_for_field(as_expression(expr))
             scan.visit(expr)
             prepared.append(expr)
         self.coordinates = tuple(coordinates)
@@ -320,7 +329,7 @@ class FieldArithmetic:
 
     def from_expr(self, expr: sympy.Expr) -> RationalFunction:
         """Convert a sympy expression built only from the field's generators."""
-        return self._convert(_rewrite_for_field(sympy.sympify(expr)))
+        return self._convert(_rewrite_for_field(as_expression(expr)))
 
     def _convert(self, expr: sympy.Expr) -> RationalFunction:
         if expr in self._gen_of:
@@ -631,7 +640,7 @@ class ExpressionArithmetic:
         return Expression(self, sympy.cancel(sympy.together(expr)))
 
     def from_expr(self, expr: sympy.Expr) -> Expression:
-        return self.make(sympy.sympify(expr))
+        return self.make(as_expression(expr))
 
     def constant(self, value) -> Expression:
         return Expression(self, sympy.Rational(value))

@@ -144,7 +144,7 @@ class _Chain:
     def size(self, elements: Iterable) -> int:
         total = 0
         for e in elements:
-            total += len(e.num) + len(e.den) if hasattr(e, "num") else sympy.count_ops(e)
+            total += len(e.num) + len(e.den) if hasattr(e, "num") else sympy.count_ops(getattr(e, "expr", e))
         return total
 
     def record(self, **fields) -> Step:

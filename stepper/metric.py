@@ -57,11 +57,14 @@ class Metric:
         function applied to coordinates is a free function.
         """
         coordinates = tuple(coordinates)
-        matrix = sympy.ImmutableMatrix(matrix)
+        rows = [list(row) for row in (matrix.tolist() if hasattr(matrix, "tolist") else matrix)]
+        if any(isinstance(entry, str) for row in rows for entry in row):
+            raise InputError("matrix entries must be sympy expressions, not text (use stepper.load_metric for text)")
+        matrix = sympy.ImmutableMatrix(rows)
         _validate(coordinates, matrix)
-        free = set().union(*(sympy.sympify(e).free_symbols for e in matrix))
+        free = set().union(*(e.free_symbols for e in matrix))
         parameters = tuple(sorted(free - set(coordinates), key=lambda s: s.name))
-        functions = tuple(sorted(set().union(*(sympy.sympify(e).atoms(AppliedUndef) for e in matrix)),
+        functions = tuple(sorted(set().union(*(e.atoms(AppliedUndef) for e in matrix)),
                                  key=sympy.default_sort_key))
         assumptions = tuple((s.name, _assumption_word(s)) for s in parameters + coordinates)
         return cls(coordinates, matrix, title, parameters, functions, tuple(abbreviations), None, notes,

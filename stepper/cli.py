@@ -1,0 +1,120 @@
+"""Command line: ``stepper derive FILE [-o DIR]``.
+
+Bad input prints one line, ``stepper: error: ...``, and exits with status 2;
+nothing is written unless the whole derivation succeeded.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import time
+from pathlib import Path
+from typing import Sequence
+
+from . import __version__
+from .chain import Derivation, derive
+from .errors import InputError
+from .metricfile import load_metric
+from .trace import trace_json, write_atomically
+
+
+class _ArgumentParser(argparse.ArgumentParser):
+    def error(self, message: str) -> None:  # one line, status 2
+        self.exit(2, f"stepper: error: {message} (see 'stepper --help')\n")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = _ArgumentParser(
+        prog="stepper",
+        description="Curvature of a metric with every intermediate step recorded, so that "
+                    "someone else can check the derivation line by line.")
+    parser.add_argument("--version", action="version", version=f"stepper {__version__}")
+    commands = parser.add_subparsers(dest="command", metavar="COMMAND")
+    run = commands.add_parser("derive", help="run the curvature chain on a metric file and write trace.json",
+                              description="Run the whole curvature chain on a TOML metric file and write "
+                                          "DIR/trace.json (default DIR: out/<file name without .toml>).")
+    run.add_argument("file", metavar="FILE", help="metric file (TOML)")
+    run.add_argument("-o", "--output", metavar="DIR", help="folder for the outputs (default: out/<file stem>)")
+    run.add_argument("--quiet", action="store_true", help="print nothing but errors")
+    run.add_argument("--skip-invariants", action="store_true",
+                     help="skip the Kretschmann scalar and the Weyl tensor")
+    return parser
+
+
+class _Progress:
+    """Shows which stage is running: a live line on a terminal, otherwise a
+    line per stage once a run has lasted more than two seconds."""
+
+    def __init__(self, quiet: bool) -> None:
+        self.quiet = quiet
+        self.start = time.perf_counter()
+        self.live = sys.stderr.isatty()
+        self.last = ""
+
+    def __call__(self, label: str, done: int, total: int) -> None:
+        if self.quiet or label == self.last:
+            return
+        self.last = label
+        elapsed = time.perf_counter() - self.start
+        if self.live:
+            sys.stderr.write(f"\r\033[K[{elapsed:6.1f}s] {label}")
+            if label == "done":
+                sys.stderr.write("\r\033[K")
+            sys.stderr.flush()
+        elif elapsed > 2 and label != "done":
+            sys.stderr.write(f"[{elapsed:6.1f}s] {label}\n")
+
+
+def summary(derivation: Derivation, target: Path) -> str:
+    """A short human summary: scalar curvature, verdicts with evidence, time."""
+    m = derivation.metric
+    lines = [f"{m.title} ({m.dimension} dimensions: {', '.join(m.names)})",
+             f"  scalar curvature R = {derivation.results['scalar']}"]
+    if "kretschmann" in derivation.results:
+        lines.append(f"  Kretschmann scalar = {derivation.results['kretschmann']}")
+    labels = {"ricci_flat": "Ricci-flat", "einstein_space": "Einstein manifold",
+              "constant_curvature": "constant curvature", "conformally_flat": "conformally flat",
+              "bianchi": "contracted Bianchi identity"}
+    for key, verdict in derivation.results.get("verdicts", {}).items():
+        word = {True: "yes", False: "no", None: "undecided"}[verdict["holds"]]
+        evidence = verdict["evidence"]
+        if len(evidence) > 110:
+            evidence = evidence[:107] + "..."
+        lines.append(f"  {labels.get(key, key)}: {word} ({evidence})")
+    lines.append(f"  {len(derivation.steps)} steps recorded in {derivation.seconds:.2f} s; trace written to {target}")
+    return "\n".join(lines)
+
+
+def run_derive(args: argparse.Namespace) -> int:
+    metric = load_metric(args.file)
+    out_dir = Path(args.output) if args.output else Path("out") / Path(args.file).stem
+    if out_dir.exists() and not out_dir.is_dir():
+        raise InputError(f"output folder {out_dir} exists and is not a folder")
+    derivation = derive(metric, progress=_Progress(args.quiet), curvature_invariants=not args.skip_invariants)
+    target = out_dir / "trace.json"
+    write_atomically(target, trace_json(derivation))
+    if not args.quiet:
+        print(summary(derivation, target))
+    return 0
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if args.command is None:
+        parser.print_help()
+        return 2
+    try:
+        return run_derive(args)
+    except InputError as err:
+        sys.stderr.write(f"\nstepper: error: {err.message}\n" if sys.stderr.isatty() else
+                         f"stepper: error: {err.message}\n")
+        return 2
+    except KeyboardInterrupt:
+        sys.stderr.write("stepper: interrupted; nothing was written\n")
+        return 130
+
+
+if __name__ == "__main__":
+    sys.exit(main())

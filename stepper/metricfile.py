@@ -1,0 +1,239 @@
+"""Read a metric from a TOML file, safely.
+
+Keys (all text is parsed by :mod:`stepper.parse`, never evaluated)::
+
+    title = "..."                       # optional, defaults to the file name
+    notes = "..."                       # optional free text shown in reports
+    coordinates = ["t", "r", ...]
+    line_element = "..."                # either this ...
+    components = [["...", ...], ...]    # ... or the full symmetric matrix
+    [symbols]        name = "positive" | "negative" | "nonnegative" | "nonpositive" | "nonzero" | "real"
+    [functions]      name = ["t", "r"]  # a free function and the coordinates it depends on
+    [abbreviations]  name = "expression" # may use earlier abbreviations
+"""
+
+from __future__ import annotations
+
+import re
+import tomllib
+from pathlib import Path
+from typing import Any
+
+import sympy
+
+from .errors import InputError
+from .metric import Metric, _validate
+from .parse import Vocabulary, check_identifier, parse_expression
+
+ASSUMPTIONS = {
+    "positive": {"positive": True},
+    "negative": {"negative": True},
+    "nonnegative": {"nonnegative": True},
+    "nonpositive": {"nonpositive": True},
+    "nonzero": {"nonzero": True},
+    "real": {},
+}
+
+KNOWN_KEYS = ("title", "notes", "coordinates", "line_element", "components", "symbols", "functions",
+              "abbreviations")
+
+
+def load_metric(path: str | Path) -> Metric:
+    """Read and check a metric file; every problem is an :class:`InputError`."""
+    path = Path(path)
+    try:
+        raw = path.read_bytes()
+    except FileNotFoundError:
+        raise InputError(f"cannot read {path}: no such file") from None
+    except IsADirectoryError:
+        raise InputError(f"cannot read {path}: it is a folder") from None
+    except OSError as err:
+        raise InputError(f"cannot read {path}: {err.strerror}") from None
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError:
+        raise InputError(f"{path} is not UTF-8 text") from None
+    if not text.strip():
+        raise InputError(f"{path} is empty")
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as err:
+        raise InputError(f"{path} is not valid TOML: {err}") from None
+    return metric_from_data(data, default_title=path.stem)
+
+
+def _text(data: dict, key: str, default: str | None = None) -> str | None:
+    value = data.get(key, default)
+    if value is not None and not isinstance(value, str):
+        raise InputError(f"'{key}' must be text")
+    return value
+
+
+def _table(data: dict, key: str) -> dict:
+    value = data.get(key, {})
+    if not isinstance(value, dict):
+        raise InputError(f"'{key}' must be a table, e.g. [{key}]")
+    return value
+
+
+def metric_from_data(data: dict[str, Any], default_title: str = "Untitled metric") -> Metric:
+    """Build a metric from already-decoded TOML data."""
+    unknown = [k for k in data if k not in KNOWN_KEYS]
+    if unknown:
+        raise InputError(f"unknown key '{unknown[0]}' (known keys: {', '.join(KNOWN_KEYS)})")
+    title = _text(data, "title", default_title)
+    notes = _text(data, "notes", "")
+
+    names = data.get("coordinates")
+    if names is None:
+        raise InputError("missing 'coordinates', e.g. coordinates = [\"t\", \"r\"]")
+    if not isinstance(names, list) or not all(isinstance(n, str) for n in names):
+        raise InputError("'coordinates' must be a list of names")
+    seen: set[str] = set()
+    for name in names:
+        check_identifier(name, "coordinates")
+        if name in seen:
+            raise InputError(f"coordinate '{name}' is declared twice")
+        seen.add(name)
+    if len(names) < 2:
+        raise InputError("a metric needs at least 2 coordinates")
+
+    declared = _table(data, "symbols")
+    for name, word in declared.items():
+        check_identifier(name, "symbols")
+        if not isinstance(word, str) or word not in ASSUMPTIONS:
+            raise InputError(f"symbol '{name}': unknown assumption {word!r} (use one of {', '.join(ASSUMPTIONS)})")
+    coordinates = tuple(sympy.Symbol(n, real=True, **ASSUMPTIONS[declared.get(n, "real")]) for n in names)
+    parameters = tuple(sympy.Symbol(n, real=True, **ASSUMPTIONS[w]) for n, w in declared.items() if n not in names)
+    symbols = {s.name: s for s in coordinates + parameters}
+
+    functions: dict[str, sympy.Expr] = {}
+    for name, args in _table(data, "functions").items():
+        check_identifier(name, "functions")
+        if name in symbols:
+            raise InputError(f"'{name}' is declared both as a symbol and as a function")
+        if not isinstance(args, list) or not args or not all(isinstance(a, str) for a in args):
+            raise InputError(f"function '{name}' needs a non-empty list of coordinate names, e.g. {name} = [\"t\"]")
+        for a in args:
+            if a not in names:
+                raise InputError(f"function '{name}' depends on '{a}', which is not a coordinate")
+        if len(set(args)) != len(args):
+            raise InputError(f"function '{name}' lists an argument twice")
+        functions[name] = sympy.Function(name)(*(symbols[a] for a in args))
+
+    differentials = {f"d{c.name}": sympy.Symbol(f"d{c.name}") for c in coordinates}
+    clash = [n for n in list(symbols) + list(functions) if n in differentials]
+    if clash:
+        raise InputError(f"the name '{clash[0]}' clashes with the differential of coordinate '{clash[0][1:]}'")
+
+    abbreviations: dict[str, sympy.Expr] = {}
+    for name, text in _table(data, "abbreviations").items():
+        check_identifier(name, "abbreviations")
+        if name in symbols or name in functions:
+            raise InputError(f"abbreviation '{name}' reuses a declared name")
+        if not isinstance(text, str):
+            raise InputError(f"abbreviation '{name}' must be text")
+        vocabulary = Vocabulary(symbols, functions, dict(abbreviations))
+        abbreviations[name] = parse_expression(text, vocabulary, f"abbreviations.{name}")
+
+    vocabulary = Vocabulary(symbols, functions, abbreviations)
+    has_line, has_matrix = "line_element" in data, "components" in data
+    if has_line == has_matrix:
+        raise InputError("give exactly one of 'line_element' and 'components'")
+    if has_line:
+        line = _text(data, "line_element")
+        matrix = matrix_from_line_element(line, coordinates, vocabulary, differentials)
+    else:
+        line = None
+        matrix = matrix_from_components(data["components"], coordinates, vocabulary)
+    _validate(coordinates, matrix)
+    used = set().union(*(e.free_symbols for e in matrix))
+    return Metric(
+        coordinates=coordinates,
+        matrix=matrix,
+        title=title,
+        parameters=tuple(p for p in parameters if p in used or any(p in a.free_symbols for a in abbreviations.values())),
+        functions=tuple(functions.values()),
+        abbreviations=tuple(abbreviations.items()),
+        line_element=line,
+        notes=notes,
+        assumptions=tuple((n, declared.get(n, "real")) for n in list(names) + [p.name for p in parameters]),
+    )
+
+
+_NAME = re.compile(r"[A-Za-z_][A-Za-z0-9_]*")
+
+
+def _check_differentials(text: str, coordinates, vocabulary: Vocabulary, differentials: dict) -> None:
+    """Name a differential of an undeclared coordinate before the parser calls it unknown."""
+    known = set(vocabulary.symbols) | set(vocabulary.functions) | set(vocabulary.abbreviations) | set(differentials)
+    for match in _NAME.finditer(text):
+        word = match.group()
+        if word.startswith("d") and len(word) > 1 and word not in known and word[1:] not in known:
+            if not any(word == f"d{c.name}" for c in coordinates):
+                raise InputError(f"'{word}' at column {match.start() + 1} of line_element is the differential of "
+                                 f"'{word[1:]}', which is not a declared coordinate")
+
+
+def matrix_from_line_element(text: str, coordinates, vocabulary: Vocabulary, differentials: dict) -> sympy.ImmutableMatrix:
+    """g_ij from ds^2 = g_ij dx^i dx^j: g_ii is the coefficient of (dx^i)^2 and
+    g_ij = g_ji is half the coefficient of dx^i dx^j."""
+    _check_differentials(text, coordinates, vocabulary, differentials)
+    with_differentials = Vocabulary(vocabulary.symbols, vocabulary.functions, vocabulary.abbreviations, differentials)
+    expr = parse_expression(text, with_differentials, "line_element")
+    d = [differentials[f"d{c.name}"] for c in coordinates]
+    index = {s: i for i, s in enumerate(d)}
+    n = len(coordinates)
+    coefficient = [[sympy.Integer(0)] * n for _ in range(n)]
+    for term in sympy.Add.make_args(sympy.expand(expr)):
+        factors = []
+        rest = []
+        for factor in sympy.Mul.make_args(term):
+            base, exp = factor.as_base_exp()
+            if base in index and exp.is_Integer and exp > 0:
+                factors += [index[base]] * int(exp)
+            elif factor.free_symbols & set(d):
+                raise InputError(f"line_element: the term {term} is not quadratic in the differentials "
+                                 f"(a differential appears inside {factor})")
+            else:
+                rest.append(factor)
+        if len(factors) != 2:
+            raise InputError(f"line_element: the term {term} has {len(factors)} differentials; "
+                             "every term must have exactly 2")
+        i, j = sorted(factors)
+        coefficient[i][j] += sympy.Mul(*rest)
+    g = [[sympy.Integer(0)] * n for _ in range(n)]
+    for i in range(n):
+        for j in range(i, n):
+            value = coefficient[i][j] if i == j else coefficient[i][j] / 2
+            value = sympy.factor(sympy.together(value)) if value != 0 else value
+            g[i][j] = g[j][i] = value
+    return sympy.ImmutableMatrix(g)
+
+
+def matrix_from_components(rows, coordinates, vocabulary: Vocabulary) -> sympy.ImmutableMatrix:
+    """The full symmetric matrix, each entry an expression (or a number)."""
+    n = len(coordinates)
+    if not isinstance(rows, list) or not all(isinstance(r, list) for r in rows):
+        raise InputError("'components' must be a list of rows, e.g. [[\"-1\", \"0\"], [\"0\", \"1\"]]")
+    if len(rows) != n or any(len(r) != len(rows) for r in rows):
+        shape = f"{len(rows)} rows of lengths {', '.join(str(len(r)) for r in rows)}"
+        if any(len(r) != len(rows) for r in rows):
+            raise InputError(f"'components' is not a square matrix ({shape})")
+        raise InputError(f"'components' is {len(rows)} x {len(rows)} but there are {n} coordinates")
+    g = []
+    for i, row in enumerate(rows):
+        out = []
+        for j, entry in enumerate(row):
+            where = f"components[{i + 1}][{j + 1}]"
+            if isinstance(entry, bool) or not isinstance(entry, (str, int, float)):
+                raise InputError(f"{where} must be an expression in quotes or a number")
+            if isinstance(entry, float):
+                entry = repr(entry)
+            out.append(parse_expression(str(entry), vocabulary, where))
+        g.append(out)
+    for i in range(n):
+        for j in range(i + 1, n):
+            if sympy.cancel(g[i][j] - g[j][i]) != 0:
+                raise InputError(f"'components' is not symmetric: entry [{i + 1}][{j + 1}] differs from [{j + 1}][{i + 1}]")
+    return sympy.ImmutableMatrix(g)
