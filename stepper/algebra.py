@@ -492,11 +492,24 @@ class FieldArithmetic:
         parts = []
         for f, mult in factors:
             f = self._nicer_trig_form(f)
-            if sum(1 for c in f.values() if c < 0) * 2 > len(f):
+            if self._looks_negative(f):
                 f = -f
                 sign *= (-1) ** mult
             parts.append(self._as_expr(f) ** mult)
         return sympy.Mul(sympy.Integer(sign * int(content)), *parts)
+
+    def _looks_negative(self, poly: PolyElement) -> bool:
+        """More negative than positive coefficients or, on a tie, a negative
+        coefficient on the term of highest degree in the coordinates."""
+        negative = sum(1 for c in poly.values() if c < 0)
+        if negative * 2 != len(poly):
+            return negative * 2 > len(poly)
+        coordinate_gens = [self._gen_index[x] for x in self.coordinates if x in self._gen_index]
+
+        def weight(monom):
+            return (sum(monom[i] for i in coordinate_gens), tuple(monom[i] for i in coordinate_gens), monom)
+        leading = max(poly.keys(), key=weight)
+        return poly[leading] < 0
 
     def _nicer_trig_form(self, poly: PolyElement) -> PolyElement:
         """Rewrite sin^2 as 1 - cos^2 where that shortens the polynomial."""

@@ -291,8 +291,8 @@ class _Chain:
                     raw = self._christoffel_raw(a, b, c, terms)
                     step = self.record(
                         id=f"christoffel/{key}", kind="component",
-                        annotation=f"Christoffel symbol Gamma^{self.x[a].name}_{self.x[b].name}{self.x[c].name}"
-                                   + ("" if b == c else f" (= Gamma^{self.x[a].name}_{self.x[c].name}{self.x[b].name})"),
+                        annotation=f"Christoffel symbol Gamma^{self.x[a].name}_({self.x[b].name} {self.x[c].name})"
+                                   + ("" if b == c else f" (= Gamma^{self.x[a].name}_({self.x[c].name} {self.x[b].name}))"),
                         formula=FORMULAS["christoffel"], uses=("inverse_metric", "metric_derivatives"),
                         result=self.expr(value), params={"quantity": "christoffel", "indices": key},
                         substituted=self._christoffel_tex(a, b, c, terms),
@@ -409,8 +409,8 @@ class _Chain:
                                       key=lambda s: self._order(s.split("/")[1]))
                         step = self.record(
                             id=f"riemann/{key}", kind="component",
-                            annotation=f"Riemann component R^{self.x[a].name}_{self.x[b].name}{self.x[c].name}{self.x[d].name} "
-                                       f"(= -R^{self.x[a].name}_{self.x[b].name}{self.x[d].name}{self.x[c].name})",
+                            annotation=f"Riemann component R^{self.x[a].name}_({self.x[b].name} {self.x[c].name} {self.x[d].name}) "
+                                       f"(= -R^{self.x[a].name}_({self.x[b].name} {self.x[d].name} {self.x[c].name}))",
                             formula=FORMULAS["riemann"], uses=tuple(uses) or ("christoffel",), result=self.expr(value),
                             params={"quantity": "riemann", "indices": key},
                             substituted=self._riemann_tex(a, b, c, d),
@@ -484,7 +484,7 @@ class _Chain:
                                        if a != d and not self.is_zero(R[a, b, a, d]))
                 step = self.record(
                     id=f"ricci/{key}", kind="component",
-                    annotation=f"Ricci component R_{self.x[b].name}{self.x[d].name} by contracting the Riemann tensor",
+                    annotation=f"Ricci component R_({self.x[b].name} {self.x[d].name}) by contracting the Riemann tensor",
                     formula=FORMULAS["ricci"], uses=tuple(used) or ("riemann",), result=self.expr(ric[b][d]),
                     params={"quantity": "ricci", "indices": key},
                     substituted=f"R_{{{t[b]}{t[d]}}} = {tex_terms}",
@@ -576,7 +576,7 @@ class _Chain:
                 key = self.key(i, j)
                 uses = ["scalar", "metric"] + ([f"ricci/{key}"] if f"ricci/{key}" in self.tracer else [])
                 step = self.record(id=f"einstein/{key}", kind="component",
-                                   annotation=f"Einstein component G_{self.x[i].name}{self.x[j].name}",
+                                   annotation=f"Einstein component G_({self.x[i].name} {self.x[j].name})",
                                    formula=FORMULAS["einstein"], uses=tuple(uses), result=self.expr(self.G[i][j]),
                                    params={"quantity": "einstein", "indices": key},
                                    simplifications=self.simplification(
