@@ -55,6 +55,39 @@ class UnsupportedByField(Exception):
     """An expression uses something the rational-function field cannot hold."""
 
 
+def printer_stable(expr: sympy.Expr) -> sympy.Expr:
+    """The same expression in a form that sympy's string printer and sympify
+    map to itself.
+
+    sympify evaluates ``2*(a + b)`` by distributing the number over the sum,
+    so a product holding a rational coefficient and a sum would come back
+    different from the object that was printed.  Here the coefficient is
+    absorbed into the first sum in the numerator (or, failing that, divided
+    into the first sum in the denominator), which is what reading would do.
+    """
+    if expr.is_Atom:
+        return expr
+    args = [printer_stable(a) for a in expr.args]
+    if not isinstance(expr, sympy.Mul):
+        return expr.func(*args) if args != list(expr.args) else expr
+    rebuilt = sympy.Mul(*args)
+    if not isinstance(rebuilt, sympy.Mul):
+        return rebuilt
+    coefficient, rest = rebuilt.as_coeff_Mul()
+    if coefficient == 1:
+        return rebuilt
+    factors = list(sympy.Mul.make_args(rest))
+    for i, f in enumerate(factors):
+        if isinstance(f, sympy.Add):
+            factors[i] = sympy.expand(coefficient * f)
+            return sympy.Mul(*factors)
+    for i, f in enumerate(factors):
+        if isinstance(f, sympy.Pow) and f.exp == -1 and isinstance(f.base, sympy.Add):
+            factors[i] = 1 / sympy.expand(f.base / coefficient)
+            return sympy.Mul(*factors)
+    return rebuilt
+
+
 def as_expression(value) -> sympy.Expr:
     """A sympy expression from a sympy object or a Python number; text is refused."""
     if isinstance(value, sympy.Basic):
@@ -480,7 +513,7 @@ class FieldArithmetic:
             return sympy.Integer(0)
         num = self._poly_to_expr(element.num, factor=len(element.num) <= 60)
         den = self._poly_to_expr(element.den, factor=True)
-        return num / den
+        return printer_stable(num / den)
 
     def _poly_to_expr(self, poly: PolyElement, factor: bool) -> sympy.Expr:
         if poly.is_ground:
@@ -701,7 +734,7 @@ class ExpressionArithmetic:
         return ZeroTest(False, f"non-zero at a random point (|value| = {float(worst):.3g})")
 
     def to_expr(self, element: Expression) -> sympy.Expr:
-        return sympy.factor_terms(element.expr)
+        return printer_stable(sympy.factor_terms(element.expr))
 
 
 def _sample_value(symbol: sympy.Symbol, rng: random.Random) -> sympy.Rational:

@@ -24,7 +24,7 @@ from typing import Callable, Iterable, Sequence
 
 import sympy
 
-from .algebra import choose_arithmetic
+from .algebra import choose_arithmetic, printer_stable
 from .errors import InputError
 from .metric import LINE_ELEMENT_CONVENTION, Metric
 from .tracer import Simplification, Step, Tracer, Verdict
@@ -138,7 +138,7 @@ class _Chain:
         after = self.expr(result)
         if raw_parts is None:
             return ()
-        before = raw_parts() if size <= BEFORE_TERMS_LIMIT else None
+        before = printer_stable(raw_parts()) if size <= BEFORE_TERMS_LIMIT else None
         return (Simplification(self.A.description, before, after, size),)
 
     def size(self, elements: Iterable) -> int:

@@ -1,0 +1,146 @@
+"""The trace: structure, exact round trip through sympy, determinism."""
+
+from __future__ import annotations
+
+import functools
+import json
+from pathlib import Path
+
+import pytest
+import sympy as sp
+
+from stepper import derive, load_metric
+from stepper.trace import trace_data, trace_json, write_atomically
+
+EXAMPLES = Path(__file__).resolve().parent.parent / "examples"
+SMALL = ["round_sphere", "hyperbolic_plane", "compact_star_exterior", "expanding_dust_universe",
+         "inflating_universe", "five_dimensional_black_hole"]
+
+
+@functools.lru_cache(maxsize=None)
+def derived(name: str):
+    return derive(load_metric(EXAMPLES / f"{name}.toml"))
+
+
+def reader_namespace(metric: dict) -> dict:
+    """What sympify needs to read the trace back: the declared symbols with their
+    assumptions and the free functions (common practice for sympy round trips)."""
+    words = {"positive": {"positive": True}, "negative": {"negative": True}, "nonnegative": {"nonnegative": True},
+             "nonpositive": {"nonpositive": True}, "nonzero": {"nonzero": True}, "real": {}}
+    space = {name: sp.Symbol(name, real=True, **words[word]) for name, word in metric["assumptions"].items()}
+    space.update({name: sp.Function(name) for name in metric["functions"]})
+    return space
+
+
+def expressions_in(value, path=""):
+    if isinstance(value, dict):
+        for key, inner in value.items():
+            yield from expressions_in(inner, f"{path}/{key}")
+    elif isinstance(value, str):
+        yield path, value
+
+
+@pytest.mark.parametrize("name", SMALL)
+def test_results_round_trip_through_sympify(name):
+    d = derived(name)
+    data = json.loads(trace_json(d))
+    space = reader_namespace(data["metric"])
+    for quantity in ("inverse_metric", "christoffel", "riemann", "ricci", "einstein", "weyl"):
+        for key, text in data["results"].get(quantity, {}).items():
+            back = sp.sympify(text, locals=space)
+            assert back == d.results[quantity][key], (quantity, key)
+    for quantity in ("scalar", "kretschmann", "determinant"):
+        assert sp.sympify(data["results"][quantity], locals=space) == d.results[quantity]
+
+
+def test_step_results_and_simplifications_round_trip():
+    d = derived("compact_star_exterior")
+    data = json.loads(trace_json(d))
+    space = reader_namespace(data["metric"])
+    for step, record in zip(d.steps, data["steps"]):
+        if step.kind == "component":
+            assert sp.sympify(record["result"], locals=space) == step.result, step.id
+        for simp, simp_record in zip(step.simplifications, record["simplifications"]):
+            assert sp.sympify(simp_record["after"], locals=space) == simp.after
+            if simp.before is not None:
+                assert sp.sympify(simp_record["before"], locals=space) == simp.before
+
+
+@pytest.mark.parametrize("name", ["compact_star_exterior", "expanding_dust_universe"])
+def test_simplification_before_and_after_are_equal(name):
+    # Every recorded rewrite keeps the value: before - after simplifies to zero with plain sympy.
+    d = derived(name)
+    checked = 0
+    for step in d.steps:
+        for simp in step.simplifications:
+            if simp.before is None:
+                continue
+            assert sp.simplify(simp.before.doit() - simp.after) == 0, step.id
+            checked += 1
+    assert checked > 10
+
+
+@pytest.mark.parametrize("name", SMALL)
+def test_trace_structure(name):
+    d = derived(name)
+    data = trace_data(d)
+    ids = [s["id"] for s in data["steps"]]
+    assert len(ids) == len(set(ids))
+    seen = set()
+    for record in data["steps"]:
+        for used in record["uses"]:
+            assert used in seen, (record["id"], used)
+        seen.add(record["id"])
+        assert record["annotation"] and record["formula"]
+    coordinates = set(data["metric"]["coordinates"])
+    for quantity, arity in (("christoffel", 3), ("riemann", 4), ("ricci", 2), ("einstein", 2),
+                            ("inverse_metric", 2), ("weyl", 4)):
+        for key in data["results"].get(quantity, {}):
+            parts = key.split(",")
+            assert len(parts) == arity and set(parts) <= coordinates, (quantity, key)
+    for verdict in data["results"]["verdicts"].values():
+        assert verdict["holds"] in (True, False, None) and verdict["evidence"]
+
+
+def test_every_nonzero_christoffel_component_has_its_own_step_with_formula_and_substitution():
+    d = derived("compact_star_exterior")
+    for key in d.results["christoffel"]:
+        a, b, c = key.split(",")
+        order = d.metric.names
+        if order.index(b) > order.index(c):
+            b, c = c, b
+        step = d.step(f"christoffel/{a},{b},{c}")
+        assert step.kind == "component"
+        assert step.substituted.startswith(r"\Gamma^")
+        assert step.simplifications and step.simplifications[0].rewrite
+
+
+def test_same_input_gives_identical_bytes(tmp_path):
+    first = trace_json(derive(load_metric(EXAMPLES / "twisted_vacuum.toml")))
+    second = trace_json(derive(load_metric(EXAMPLES / "twisted_vacuum.toml")))
+    assert first == second
+
+
+def test_write_atomically_replaces_and_leaves_no_temporaries(tmp_path):
+    target = tmp_path / "trace.json"
+    write_atomically(target, "one\n")
+    write_atomically(target, "two\n")
+    assert target.read_text() == "two\n"
+    assert [p.name for p in tmp_path.iterdir()] == ["trace.json"]
+
+
+def test_interrupted_write_keeps_the_old_file(tmp_path):
+    target = tmp_path / "trace.json"
+    write_atomically(target, "good\n")
+
+    class Boom(str):
+        def __len__(self):
+            raise KeyboardInterrupt
+
+    class Exploding:
+        """Text whose writing fails halfway."""
+
+    with pytest.raises(TypeError):
+        write_atomically(target, Exploding())  # type: ignore[arg-type]
+    assert target.read_text() == "good\n"
+    assert [p.name for p in tmp_path.iterdir()] == ["trace.json"]
