@@ -311,6 +311,7 @@ class FieldArithmetic:
     """
 
     name = "field"
+    rewrite = "canonical rational form, with cos^2 = 1 - sin^2"
     description = (
         "canonical form of a rational function in the coordinates, parameters, "
         "sine/cosine pairs and derivatives of free functions, reduced with "
@@ -669,6 +670,7 @@ class ExpressionArithmetic:
     """Plain sympy expressions; zero tests by cancel/simplify, then numerically."""
 
     name = "expression"
+    rewrite = "sympy cancel()"
     description = "sympy's cancel() after every operation; zero tests by simplify(), then at random points"
 
     def __init__(self, coordinates: Sequence[sympy.Symbol], sample_symbols: Sequence[sympy.Symbol],

@@ -41,6 +41,21 @@ CONVENTIONS = {
              "+ R (g_ac g_bd - g_ad g_bc)/((n-1)(n-2))"),
 }
 
+#: The same conventions, for typeset reports.
+CONVENTIONS_LATEX = {
+    "Line element": (r"$ds^2 = g_{ij}\,dx^i dx^j$ summed over all $i$ and $j$: a cross term $2f\,dx^i dx^j$ "
+                     r"($i \ne j$) gives $g_{ij} = g_{ji} = f$; squares of sums are expanded."),
+    "Christoffel symbols": (r"$\Gamma^a_{bc} = \tfrac12 g^{ad}(\partial_b g_{dc} + \partial_c g_{db} - \partial_d g_{bc})$, "
+                            r"symmetric in $b, c$."),
+    "Riemann tensor": (r"$R^a{}_{bcd} = \partial_c \Gamma^a_{db} - \partial_d \Gamma^a_{cb} + \Gamma^a_{ce}\Gamma^e_{db} "
+                       r"- \Gamma^a_{de}\Gamma^e_{cb}$ (a round sphere has positive curvature), antisymmetric in $c, d$; "
+                       r"$R_{abcd} = g_{ae} R^e{}_{bcd}$."),
+    "Ricci tensor": r"$R_{bd} = R^a{}_{bad}$ (first index contracted with the third).",
+    "Scalar curvature and Einstein tensor": r"$R = g^{bd} R_{bd}$, $G_{ij} = R_{ij} - \tfrac12 R\, g_{ij}$.",
+    "Weyl tensor": (r"$C_{abcd} = R_{abcd} - \frac{g_{ac}R_{bd} - g_{ad}R_{bc} - g_{bc}R_{ad} + g_{bd}R_{ac}}{n-2} "
+                    r"+ \frac{R\,(g_{ac}g_{bd} - g_{ad}g_{bc})}{(n-1)(n-2)}$, for $n \ge 4$."),
+}
+
 FORMULAS = {
     "metric": r"ds^2 = g_{ij}\,dx^i\,dx^j",
     "metric_derivatives": r"\partial_k g_{ij}",
@@ -86,8 +101,10 @@ class Derivation:
         self.steps = steps
         self.results = results
         self.arithmetic = arithmetic
+        self.arithmetic_description = ""
         self.seconds = seconds
         self.conventions = dict(CONVENTIONS)
+        self.conventions_latex = dict(CONVENTIONS_LATEX)
 
     def step(self, step_id: str) -> Step:
         for s in self.steps:
@@ -113,7 +130,7 @@ class _Chain:
         self.tracer = Tracer()
         self.results: dict = {}
         self._expr_cache: dict = {}
-        self.tex = [sympy.latex(c) for c in self.x]
+        self.tex = ["{" + sympy.latex(c) + "}" for c in self.x]
 
     # helpers ------------------------------------------------------------
     def key(self, *indices: int) -> str:
@@ -139,7 +156,7 @@ class _Chain:
         if raw_parts is None:
             return ()
         before = printer_stable(raw_parts()) if size <= BEFORE_TERMS_LIMIT else None
-        return (Simplification(self.A.description, before, after, size),)
+        return (Simplification(self.A.rewrite, before, after, size),)
 
     def size(self, elements: Iterable) -> int:
         total = 0
@@ -164,8 +181,10 @@ class _Chain:
             self.progress(stage.__name__, number, len(stages))
             stage()
         self.progress("done", len(stages), len(stages))
-        return Derivation(self.metric, self.tracer.steps, self.results, self.A.name,
-                          time.perf_counter() - start)
+        derivation = Derivation(self.metric, self.tracer.steps, self.results, self.A.name,
+                                time.perf_counter() - start)
+        derivation.arithmetic_description = self.A.description
+        return derivation
 
     def metric_step(self) -> None:
         n = self.n
@@ -325,9 +344,10 @@ class _Chain:
         def build():
             E = self.expr
             half = sympy.Rational(1, 2)
-            return sympy.Add(*[half * E(self.ginv[a][d]) * (
-                sympy.Derivative(E(self.g[d][c]), self.x[b]) + sympy.Derivative(E(self.g[d][b]), self.x[c])
-                - sympy.Derivative(E(self.g[b][c]), self.x[d])) for d in terms])
+            def d(i, j, k):
+                return sympy.Derivative(E(self.g[i][j]), self.x[k]) if not self.is_zero(self.dg[k][i][j]) else 0
+            return sympy.Add(*[half * E(self.ginv[a][d_]) * (d(d_, c, b) + d(d_, b, c) - d(b, c, d_))
+                               for d_ in terms])
         return build
 
     def _christoffel_tex(self, a, b, c, terms) -> str:
@@ -437,9 +457,17 @@ class _Chain:
     def _riemann_raw(self, a, b, c, d):
         def build():
             E, G, x = self.expr, self.gamma, self.x
-            total = sympy.Derivative(E(G[a][d][b]), x[c]) - sympy.Derivative(E(G[a][c][b]), x[d])
+            nz = lambda i, j, k: not self.is_zero(G[i][j][k])
+            total = sympy.Integer(0)
+            if nz(a, d, b):
+                total += sympy.Derivative(E(G[a][d][b]), x[c])
+            if nz(a, c, b):
+                total -= sympy.Derivative(E(G[a][c][b]), x[d])
             for e in range(self.n):
-                total += E(G[a][c][e]) * E(G[e][d][b]) - E(G[a][d][e]) * E(G[e][c][b])
+                if nz(a, c, e) and nz(e, d, b):
+                    total += E(G[a][c][e]) * E(G[e][d][b])
+                if nz(a, d, e) and nz(e, c, b):
+                    total -= E(G[a][d][e]) * E(G[e][c][b])
             return total
         return build
 

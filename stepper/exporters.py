@@ -1,0 +1,163 @@
+"""Exporters: one small class per output format, each reading the trace only.
+
+* :class:`TraceExporter`    -> ``trace.json``
+* :class:`ReportExporter`   -> ``report.tex``   (template ``latex/report.tex.j2``)
+* :class:`AppendixExporter` -> ``appendix.tex`` (template ``latex/appendix.tex.j2``, no preamble)
+* :class:`PdfExporter`      -> ``report.pdf``   (the report compiled by pdflatex in a temporary folder)
+* :class:`NotebookExporter` -> ``derivation.ipynb``
+
+Templates are Jinja2 files looked up first in the folders the user gives,
+then in the project's ``templates/``; copy one there to restyle a report.
+Delimiters are ``<% %>`` for statements, ``<< >>`` for values and
+``<# #>`` for comments, so that LaTeX braces need no escaping.
+"""
+
+from __future__ import annotations
+
+import os
+import shutil
+import subprocess
+import tempfile
+from pathlib import Path
+from typing import Sequence
+
+import jinja2
+from pylatex import Document, Package
+
+from .chain import Derivation
+from .report import report_model
+from .trace import trace_json
+
+PROJECT_TEMPLATES = Path(__file__).resolve().parent.parent / "templates"
+
+#: pdflatex runs this many times so that links and bookmarks settle.
+TEX_RUNS = 2
+
+
+class TexMissing(Exception):
+    """No TeX engine on this machine."""
+
+
+class TexFailed(Exception):
+    """pdflatex stopped with an error; ``log`` holds its log file."""
+
+    def __init__(self, message: str, log: str):
+        super().__init__(message)
+        self.log = log
+
+
+def template_environment(extra_folders: Sequence[Path] = ()) -> jinja2.Environment:
+    folders = [str(Path(f)) for f in extra_folders] + [str(PROJECT_TEMPLATES)]
+    return jinja2.Environment(
+        loader=jinja2.FileSystemLoader(folders),
+        block_start_string="<%", block_end_string="%>",
+        variable_start_string="<<", variable_end_string=">>",
+        comment_start_string="<#", comment_end_string="#>",
+        trim_blocks=True, lstrip_blocks=True, keep_trailing_newline=True,
+        autoescape=False, undefined=jinja2.StrictUndefined,
+    )
+
+
+def latex_preamble() -> str:
+    """The packages a report needs, assembled with pylatex."""
+    document = Document(documentclass="article", lmodern=True, textcomp=True, page_numbers=False,
+                        geometry_options={"margin": "2.2cm"})
+    document.packages.append(Package("amsmath"))
+    document.packages.append(Package("amssymb"))
+    document.packages.append(Package("microtype"))
+    document.packages.append(Package("hyperref", options=["hidelinks", "bookmarks=false"]))
+    return document.dumps_packages()
+
+
+class Exporter:
+    """Base: a file name and how to turn a derivation into its contents."""
+
+    file_name = ""
+    binary = False
+
+    def __init__(self, templates: Sequence[Path] = ()):
+        self.templates = tuple(templates)
+
+    def export(self, derivation: Derivation):
+        raise NotImplementedError
+
+
+class TraceExporter(Exporter):
+    file_name = "trace.json"
+
+    def export(self, derivation: Derivation) -> str:
+        return trace_json(derivation)
+
+
+class _TemplateExporter(Exporter):
+    template_name = ""
+
+    def export(self, derivation: Derivation) -> str:
+        environment = template_environment(self.templates)
+        template = environment.get_template(self.template_name)
+        return template.render(preamble=latex_preamble(), **report_model(derivation))
+
+
+class ReportExporter(_TemplateExporter):
+    file_name = "report.tex"
+    template_name = "latex/report.tex.j2"
+
+
+class AppendixExporter(_TemplateExporter):
+    file_name = "appendix.tex"
+    template_name = "latex/appendix.tex.j2"
+
+
+def compile_latex(source: str, job: str = "report") -> tuple[bytes, str]:
+    """Run pdflatex on ``source`` in a temporary folder; return (pdf bytes, log).
+
+    TeX runs with shell escape disabled and with dates and the trailer id
+    fixed, so the same source gives the same bytes.
+    """
+    engine = shutil.which("pdflatex")
+    if engine is None:
+        raise TexMissing("no TeX engine (pdflatex) found; install one, e.g. "
+                         "'apt-get install texlive-latex-recommended texlive-fonts-recommended lmodern', "
+                         "then run the command again (report.tex is written meanwhile)")
+    environment = dict(os.environ, SOURCE_DATE_EPOCH=os.environ.get("SOURCE_DATE_EPOCH", "0"),
+                       FORCE_SOURCE_DATE="1", TEXINPUTS="", openout_any="p", shell_escape="f")
+    with tempfile.TemporaryDirectory(prefix="stepper-tex-") as folder:
+        tex_file = Path(folder) / f"{job}.tex"
+        tex_file.write_text(source, encoding="utf-8")
+        log = ""
+        for _ in range(TEX_RUNS):
+            run = subprocess.run(
+                [engine, "-no-shell-escape", "-interaction=nonstopmode", "-halt-on-error", f"{job}.tex"],
+                cwd=folder, env=environment, stdin=subprocess.DEVNULL, capture_output=True, timeout=600)
+            log_file = Path(folder) / f"{job}.log"
+            log = log_file.read_text(encoding="latin-1") if log_file.exists() else run.stdout.decode("latin-1")
+            if run.returncode != 0:
+                first = next((line for line in log.splitlines() if line.startswith("!")), "unknown TeX error")
+                raise TexFailed(f"pdflatex failed: {first}", log)
+        return (Path(folder) / f"{job}.pdf").read_bytes(), log
+
+
+class PdfExporter(ReportExporter):
+    file_name = "report.pdf"
+    binary = True
+
+    def export(self, derivation: Derivation) -> bytes:
+        pdf, self.log = compile_latex(super().export(derivation))
+        return pdf
+
+
+class NotebookExporter(Exporter):
+    file_name = "derivation.ipynb"
+
+    def export(self, derivation: Derivation) -> str:
+        from .notebook import notebook_text
+        return notebook_text(derivation, list(self.templates))
+
+
+EXPORTERS = {
+    "trace": TraceExporter,
+    "tex": ReportExporter,
+    "appendix": AppendixExporter,
+    "pdf": PdfExporter,
+    "notebook": NotebookExporter,
+}

@@ -1,0 +1,223 @@
+"""LaTeX for expressions and text in reports.
+
+:class:`ExpressionWriter` turns sympy expressions into LaTeX that TeX can
+break across lines: long results are written as inline math in a ragged
+paragraph, with sums in ``\\bigl( \\bigr)`` rather than ``\\left( \\right)``,
+so that TeX may break after any ``+`` or ``-`` at the outer level.  Declared
+abbreviations (polynomials such as Sigma = r^2 + a^2 cos^2 theta) replace
+the factors they equal.  Free functions are written without their arguments
+(declared once at the top of the report) and their derivatives with primes
+or partial-derivative subscripts.
+
+All settings come in through the constructor; nothing is global.
+"""
+
+from __future__ import annotations
+
+from typing import Iterable, Mapping, Sequence
+
+import sympy
+from pylatex.utils import escape_latex
+from sympy.core.function import AppliedUndef
+from sympy.printing.latex import LatexPrinter
+
+#: Results whose LaTeX is shorter than this go into a display equation as is.
+SHORT_LATEX = 90
+#: Denominators longer than this are written as a factor with exponent -1.
+SHORT_DENOMINATOR = 70
+
+
+def escape_text(text: str) -> str:
+    """Text from a metric file, safe to place in LaTeX: every special character
+    is escaped, so ``\\input{...}`` or ``\\write18`` print literally."""
+    return escape_latex(" ".join(str(text).split()))
+
+
+class _Printer(LatexPrinter):
+    """sympy's LaTeX printer with free functions written compactly."""
+
+    def _print_Function(self, expr, exp=None):
+        if isinstance(expr, AppliedUndef):
+            name = self._deal_with_super_sub(expr.func.__name__)
+            return f"{name}^{{{exp}}}" if exp else name
+        return super()._print_Function(expr, exp)
+
+    def _print_Derivative(self, expr):
+        base = expr.expr
+        if not isinstance(base, AppliedUndef):
+            return super()._print_Derivative(expr)
+        name = self._deal_with_super_sub(base.func.__name__)
+        if len(base.args) == 1:
+            order = sum(int(n) for _, n in expr.variable_count)
+            marks = "'" * order if order <= 3 else f"^{{({order})}}"
+            return f"{name}{marks}"
+        subscript = "".join(self._print(v) * int(n) for v, n in expr.variable_count)
+        return rf"\partial_{{{subscript}}} {name}"
+
+    def _print_Pow(self, expr):
+        if isinstance(expr.base, sympy.Derivative) and expr.exp.is_Integer and expr.exp > 0:
+            return rf"\left({self._print(expr.base)}\right)^{{{self._print(expr.exp)}}}"
+        return super()._print_Pow(expr)
+
+
+class ExpressionWriter:
+    """Writes expressions for a report, with the metric's abbreviations."""
+
+    def __init__(self, abbreviations: Sequence[tuple[str, sympy.Expr]] = (), coordinates: Sequence[sympy.Symbol] = ()):
+        self._printer = _Printer({"mul_symbol": None})
+        self._abbreviations = [(sympy.Symbol(name), _trig_normal(sympy.expand(value)))
+                               for name, value in abbreviations
+                               if sympy.expand(value).is_Add and _is_polynomial_like(value)]
+        self._coordinates = tuple(coordinates)
+
+    # public -------------------------------------------------------------
+    def inline(self, expr: sympy.Expr) -> str:
+        """Plain LaTeX of an expression (abbreviated, unbroken)."""
+        return self._printer.doprint(self.abbreviate(expr))
+
+    def equation(self, lhs: str, expr: sympy.Expr) -> tuple[str, bool]:
+        """LaTeX for ``lhs = expr`` and whether it needs the breakable form."""
+        short = self.inline(expr)
+        if len(short) + len(lhs) <= SHORT_LATEX:
+            return f"{lhs} = {short}", False
+        return f"{lhs} = {self.breakable(expr)}", True
+
+    def breakable(self, expr: sympy.Expr) -> str:
+        """LaTeX in which TeX may break lines after a top-level + or -."""
+        return self._breakable(self.abbreviate(expr))
+
+    def symbol(self, name: str) -> str:
+        return self._printer.doprint(sympy.Symbol(name))
+
+    # abbreviations ------------------------------------------------------
+    def abbreviate(self, expr: sympy.Expr) -> sympy.Expr:
+        """Replace each factor equal to a declared abbreviation (or its negative) by its name."""
+        if not self._abbreviations or expr.is_Atom:
+            return expr
+        if isinstance(expr, sympy.Add):
+            match = self._match(expr)
+            if match is not None:
+                return match
+            return sympy.Add(*[self.abbreviate(a) for a in expr.args])
+        if isinstance(expr, sympy.Derivative):
+            return sympy.Derivative(self.abbreviate(expr.expr), *expr.variable_count)
+        if isinstance(expr, (sympy.Mul, sympy.Pow)):
+            return expr.func(*[self.abbreviate(a) for a in expr.args])
+        return expr
+
+    def _match(self, polynomial: sympy.Expr):
+        normal = _trig_normal(sympy.expand(polynomial))
+        for name, value in self._abbreviations:
+            if sympy.expand(normal - value) == 0:
+                return name
+            if sympy.expand(normal + value) == 0:
+                return -name
+        return None
+
+    # breaking -----------------------------------------------------------
+    def _breakable(self, expr: sympy.Expr) -> str:
+        p = self._printer
+        if isinstance(expr, sympy.Add):
+            return self._sum(expr.as_ordered_terms())
+        if isinstance(expr, sympy.Derivative) and not isinstance(expr.expr, AppliedUndef):
+            variables = "".join(p.doprint(v) * int(n) for v, n in expr.variable_count)
+            return rf"\partial_{{{variables}}}\bigl(" + self._breakable(expr.expr) + r"\bigr)"
+        if not isinstance(expr, sympy.Mul):
+            return p.doprint(expr)
+        coefficient, rest = expr.as_coeff_Mul()
+        numerator, denominator = [], []
+        for factor in sympy.Mul.make_args(rest):
+            base, exponent = factor.as_base_exp()
+            if exponent.is_Rational and exponent < 0:
+                denominator.append(base ** (-exponent))
+            else:
+                numerator.append(factor)
+        sign = "-" if coefficient < 0 else ""
+        coefficient = abs(coefficient)
+        def breaks(f):
+            return isinstance(f.as_base_exp()[0], sympy.Add) or isinstance(f, sympy.Derivative)
+        simple = [f for f in numerator if not breaks(f)]
+        sums = [f for f in numerator if breaks(f)]
+        top = sympy.Mul(coefficient.p, *simple)
+        bottom = sympy.Mul(coefficient.q, *denominator)
+        top_tex = p.doprint(top)
+        parts = []
+        if bottom != 1:
+            bottom_tex = p.doprint(bottom)
+            if len(bottom_tex) <= SHORT_DENOMINATOR and len(top_tex) <= SHORT_DENOMINATOR:
+                parts.append(rf"\frac{{{top_tex}}}{{{bottom_tex}}}")
+            else:
+                if top != 1:
+                    parts.append(self._breakable(top))
+                parts.append(r"\bigl(" + self._breakable(bottom) + r"\bigr)^{-1}")
+        elif top != 1 or not sums:
+            parts.append(top_tex)
+        for factor in sums:
+            if isinstance(factor, sympy.Derivative):
+                parts.append(self._breakable(factor))
+                continue
+            base, exponent = factor.as_base_exp()
+            inner = r"\bigl(" + self._sum(base.as_ordered_terms()) + r"\bigr)"
+            parts.append(inner if exponent == 1 else inner + f"^{{{p.doprint(exponent)}}}")
+        return sign + r"\,".join(parts)
+
+    def _sum(self, terms: Iterable[sympy.Expr]) -> str:
+        out = []
+        for i, term in enumerate(terms):
+            text = (self._breakable(term) if isinstance(term, (sympy.Mul, sympy.Derivative))
+                    else self._printer.doprint(term))
+            if text.startswith("-"):
+                out.append(("- " if i else "-") + text[1:].lstrip())
+            else:
+                out.append(("+ " if i else "") + text)
+        return " ".join(out)
+
+
+def _is_polynomial_like(expr: sympy.Expr) -> bool:
+    return all(not (isinstance(f, sympy.Pow) and f.exp.is_negative) for f in sympy.preorder_traversal(expr)
+               if isinstance(f, sympy.Pow))
+
+
+def _trig_normal(expr: sympy.Expr) -> sympy.Expr:
+    """Write sin^2 x as 1 - cos^2 x so that equal polynomials compare equal."""
+    for s in expr.atoms(sympy.sin):
+        expr = expr.subs(s**2, 1 - sympy.cos(s.args[0]) ** 2)
+    return sympy.expand(expr)
+
+
+def component_symbol(quantity: str, names: Sequence[str], writer: ExpressionWriter) -> str:
+    """The LaTeX symbol of a component, e.g. Gamma^r_{tt} for ("christoffel", ["r", "t", "t"])."""
+    tex = ["{" + writer.symbol(n) + "}" for n in names]
+    if quantity == "christoffel":
+        return rf"\Gamma^{{{tex[0]}}}_{{{tex[1]}{tex[2]}}}"
+    if quantity == "riemann":
+        return rf"R^{{{tex[0]}}}{{}}_{{{tex[1]}{tex[2]}{tex[3]}}}"
+    if quantity == "riemann_lowered":
+        return rf"R_{{{''.join(tex)}}}"
+    if quantity == "weyl":
+        return rf"C_{{{''.join(tex)}}}"
+    if quantity == "ricci":
+        return rf"R_{{{''.join(tex)}}}"
+    if quantity == "ricci_by_trace_identity":
+        return rf"R^{{(2)}}_{{{''.join(tex)}}}"
+    if quantity == "einstein":
+        return rf"G_{{{''.join(tex)}}}"
+    if quantity == "metric":
+        return rf"g_{{{''.join(tex)}}}"
+    if quantity == "inverse_metric":
+        return rf"g^{{{''.join(tex)}}}"
+    raise KeyError(quantity)
+
+
+def mapping_lines(mapping: Mapping[str, sympy.Expr], quantity: str, writer: ExpressionWriter) -> list[tuple[str, bool]]:
+    """One equation per component of a result keyed by coordinate names."""
+    lines = []
+    for key, value in mapping.items():
+        if quantity == "metric_derivatives":
+            k, pair = key.split(":")
+            i, j = pair.split(",")
+            lhs = rf"\partial_{{{writer.symbol(k)}}} g_{{{{{writer.symbol(i)}}}{{{writer.symbol(j)}}}}}"
+        else:
+            lhs = component_symbol(quantity, key.split(","), writer)
+        lines.append(writer.equation(lhs, value))
+    return lines

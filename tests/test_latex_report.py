@@ -1,0 +1,163 @@
+"""The LaTeX report, the fragment for a paper and the PDF."""
+
+from __future__ import annotations
+
+import functools
+import re
+import shutil
+import subprocess
+from pathlib import Path
+
+import pytest
+import sympy as sp
+
+from stepper import Metric, derive, load_metric
+from stepper.exporters import (AppendixExporter, PdfExporter, ReportExporter, TexMissing, compile_latex,
+                               latex_preamble)
+from stepper.latex import ExpressionWriter, escape_text
+
+EXAMPLES = Path(__file__).resolve().parent.parent / "examples"
+ALL_EXAMPLES = sorted(p.stem for p in EXAMPLES.glob("*.toml"))
+HAVE_TEX = shutil.which("pdflatex") is not None
+needs_tex = pytest.mark.skipif(not HAVE_TEX, reason="pdflatex is not installed (.ci/run installs it)")
+
+
+@functools.lru_cache(maxsize=None)
+def derived(name: str):
+    return derive(load_metric(EXAMPLES / f"{name}.toml"))
+
+
+def overfull_widths(log: str) -> list[float]:
+    return [float(w) for w in re.findall(r"Overfull \\hbox \(([0-9.]+)pt too wide\)", log)]
+
+
+@needs_tex
+@pytest.mark.parametrize("name", ALL_EXAMPLES)
+def test_every_example_compiles_without_overfull_lines(name):
+    exporter = PdfExporter()
+    pdf = exporter.export(derived(name))
+    assert pdf.startswith(b"%PDF-")
+    too_wide = [w for w in overfull_widths(exporter.log) if w > 1.0]
+    assert too_wide == [], f"{name}: overfull boxes {too_wide}"
+
+
+def test_report_lists_every_step_with_an_anchor_and_links_to_the_steps_it_used():
+    d = derived("compact_star_exterior")
+    tex = ReportExporter().export(d)
+    for number, step in enumerate(d.steps, start=1):
+        assert rf"\hypertarget{{step{number}}}{{}}\textbf{{Step {number}}}" in tex
+    # The Riemann component R^t_rtr uses Christoffel steps; each appears as a link.
+    riemann_number = next(n for n, s in enumerate(d.steps, 1) if s.id == "riemann/t,r,t,r")
+    block = tex.split(rf"\textbf{{Step {riemann_number}}}")[1].split(r"\textbf{Step")[0]
+    for used in d.step("riemann/t,r,t,r").uses:
+        used_number = next(n for n, s in enumerate(d.steps, 1) if s.id == used)
+        assert rf"\hyperlink{{step{used_number}}}" in block
+
+
+def test_abbreviations_appear_in_the_rotating_black_hole_results():
+    tex = ReportExporter().export(derived("spinning_black_hole"))
+    assert r"\Sigma" in tex and r"\Delta" in tex
+    # Gamma^r_tt = M Delta (r^2 - a^2 cos^2) / Sigma^3 (Chandrasekhar, The Mathematical Theory of
+    # Black Holes, ch. 6, from memory): the denominator is written with the abbreviation.
+    assert r"\Sigma^{3}" in tex
+
+
+def test_same_input_gives_identical_tex_and_fragment():
+    d1 = derive(load_metric(EXAMPLES / "twisted_vacuum.toml"))
+    d2 = derive(load_metric(EXAMPLES / "twisted_vacuum.toml"))
+    assert ReportExporter().export(d1) == ReportExporter().export(d2)
+    assert AppendixExporter().export(d1) == AppendixExporter().export(d2)
+
+
+@needs_tex
+def test_pdf_is_identical_when_built_twice():
+    d = derived("round_sphere")
+    assert PdfExporter().export(d) == PdfExporter().export(d)
+
+
+@needs_tex
+def test_fragment_compiles_inside_a_minimal_article():
+    fragment = AppendixExporter().export(derived("expanding_dust_universe"))
+    assert r"\documentclass" not in fragment and r"\begin{document}" not in fragment
+    assert fragment.startswith("% stepper:")
+    document = ("\\documentclass{article}\n\\usepackage{amsmath}\n\\usepackage{hyperref}\n\\begin{document}\n"
+                "\\section{Our paper}\nText.\n\\appendix\n\\input{appendix.tex}\n\\end{document}\n")
+    pdf, log = compile_with_file(document, {"appendix.tex": fragment})
+    assert pdf.startswith(b"%PDF-")
+    assert "Undefined control sequence" not in log
+
+
+def compile_with_file(document: str, files: dict[str, str]):
+    import tempfile
+    with tempfile.TemporaryDirectory() as folder:
+        for name, text in files.items():
+            (Path(folder) / name).write_text(text)
+        (Path(folder) / "paper.tex").write_text(document)
+        for _ in range(2):
+            run = subprocess.run(["pdflatex", "-no-shell-escape", "-interaction=nonstopmode", "-halt-on-error",
+                                  "paper.tex"], cwd=folder, capture_output=True, timeout=300)
+            assert run.returncode == 0, (Path(folder) / "paper.log").read_text(encoding="latin-1")[-3000:]
+        return (Path(folder) / "paper.pdf").read_bytes(), (Path(folder) / "paper.log").read_text(encoding="latin-1")
+
+
+HOSTILE_TITLE = r"Probe \input{/etc/passwd} \write18{touch pwned} $x$ 100% #1 {oops} ~ ^ _ &"
+
+
+def hostile_metric():
+    t, x = sp.symbols("t x", real=True)
+    return Metric.from_matrix([t, x], sp.diag(-1, 1 + t**2), title=HOSTILE_TITLE,
+                              notes=r"\immediate\write18{touch pwned2} \catcode`\^=7")
+
+
+def test_text_from_the_metric_is_escaped():
+    tex = ReportExporter().export(derive(hostile_metric()))
+    assert r"\input{/etc/passwd}" not in tex
+    assert r"\write18{" not in tex
+    assert r"\textbackslash{}input\{/etc/passwd\}" in tex
+    assert escape_text(HOSTILE_TITLE) in tex
+
+
+@needs_tex
+def test_hostile_title_prints_literally_and_runs_nothing(tmp_path, monkeypatch):
+    monkeypatch.chdir(tmp_path)
+    exporter = PdfExporter()
+    pdf = exporter.export(derive(hostile_metric()))
+    assert pdf.startswith(b"%PDF-")
+    assert not (tmp_path / "pwned").exists() and not (tmp_path / "pwned2").exists()
+    assert "(/etc/passwd" not in exporter.log  # TeX logs "(file" for every file it opens
+    text = subprocess.run(["pdftotext", "-", "-"], input=pdf, capture_output=True).stdout.decode()
+    assert "input{/etc/passwd}" in text.replace("\n", " ")
+
+
+def test_missing_tex_engine_is_a_clear_error(monkeypatch):
+    monkeypatch.setattr(shutil, "which", lambda name: None)
+    with pytest.raises(TexMissing) as info:
+        compile_latex("\\documentclass{article}\\begin{document}x\\end{document}")
+    assert "apt-get install" in str(info.value) and "\n" not in str(info.value)
+
+
+def test_preamble_is_built_with_pylatex_and_lists_the_packages():
+    preamble = latex_preamble()
+    for package in ("amsmath", "hyperref", "geometry"):
+        assert f"{{{package}}}" in preamble
+
+
+def test_long_sums_are_written_breakably():
+    # TeX may break inline math after a top-level + or -; \left( ... \right) would forbid it.
+    r, a, th = sp.symbols("r a theta")
+    long_sum = sum(r**k * a**(6 - k) * sp.cos(th) ** k for k in range(7)) / (r**2 + a**2)
+    writer = ExpressionWriter()
+    tex, is_long = writer.equation("X", long_sum)
+    assert is_long
+    assert r"\left(" not in tex.replace(r"\left(\theta \right)", "")
+    assert r"\bigl(" in tex
+
+
+def test_abbreviation_matches_a_factor_and_its_negative():
+    r, a, th = sp.symbols("r alpha theta")
+    sigma = r**2 + a**2 * sp.cos(th) ** 2
+    writer = ExpressionWriter([("Sigma", sigma)])
+    assert writer.inline(1 / sigma**3) == r"\frac{1}{\Sigma^{3}}"
+    assert writer.abbreviate(-r**2 - a**2 * sp.cos(th) ** 2) == -sp.Symbol("Sigma")
+    # sin^2 = 1 - cos^2 is recognised (common practice).
+    assert writer.abbreviate(r**2 + a**2 - a**2 * sp.sin(th) ** 2) == sp.Symbol("Sigma")
