@@ -1,0 +1,171 @@
+"""Benchmark: stepper against a plain-sympy baseline, in one run on one machine.
+
+    python3 bench/run.py                  # everything (the baseline for Kerr takes many minutes)
+    python3 bench/run.py --quick          # small metrics only
+    python3 bench/run.py --baseline-limit 300 --repeats 3
+
+For each metric it times, in fresh processes:
+  * the baseline (bench/baseline.py: Christoffel, Ricci by contracting Riemann, simplify() on each component),
+  * `stepper derive --formats trace` (the whole chain with the trace),
+  * `stepper derive --formats trace,pdf,notebook` (with the PDF and the notebook),
+and prints a table: metric, dimension, baseline seconds, stepper seconds (trace; with PDF and notebook),
+the ratio baseline / stepper (trace), and stepper's peak memory with all outputs.  Stepper times are
+medians of --repeats runs; the baseline runs once, and a baseline stopped at --baseline-limit seconds
+is shown as '>limit' (its ratio is then a lower bound).  These machines are noisy: read ratios, not
+absolute times.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import statistics
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parent.parent
+EXAMPLES = ROOT / "examples"
+BENCH_METRICS = ROOT / "bench" / "metrics"
+
+NAMED = [
+    ("round 2-sphere", EXAMPLES / "round_sphere.toml"),
+    ("exterior Schwarzschild", EXAMPLES / "compact_star_exterior.toml"),
+    ("flat FLRW, free a(t)", EXAMPLES / "expanding_dust_universe.toml"),
+    ("Reissner-Nordstrom", BENCH_METRICS / "charged_black_hole.toml"),
+    ("Kerr", EXAMPLES / "spinning_black_hole.toml"),
+    ("Kerr-Newman", BENCH_METRICS / "charged_rotating_black_hole.toml"),
+    ("5-d Tangherlini", EXAMPLES / "five_dimensional_black_hole.toml"),
+]
+SLOW_BASELINES = {"Kerr", "Kerr-Newman"}
+
+
+def sphere_file(n: int, folder: Path) -> Path:
+    """The round n-sphere of radius a in hyperspherical angles x1..xn."""
+    names = [f"x{i}" for i in range(1, n + 1)]
+    terms = []
+    for i, name in enumerate(names):
+        prefix = "*".join(f"sin({names[j]})^2" for j in range(i))
+        terms.append("a^2*" + (prefix + "*" if prefix else "") + f"d{name}^2")
+    path = folder / f"sphere_{n}.toml"
+    path.write_text(f'title = "round {n}-sphere"\ncoordinates = {names!r}\n'.replace("'", '"')
+                    + f'line_element = "{" + ".join(terms)}"\n[symbols]\na = "positive"\n')
+    return path
+
+
+def scale_factor_file(n: int, folder: Path) -> Path:
+    """-dt^2 + sum_i a_i(t)^2 dx_i^2: a diagonal metric with n - 1 free functions."""
+    space = [f"x{i}" for i in range(1, n)]
+    names = ["t"] + space
+    line = "-dt^2 + " + " + ".join(f"a{i}(t)^2*d{x}^2" for i, x in enumerate(space, start=1))
+    functions = "".join(f'a{i} = ["t"]\n' for i in range(1, n))
+    path = folder / f"scale_factors_{n}.toml"
+    path.write_text(f'title = "{n} dimensions, {n - 1} free scale factors"\ncoordinates = {names!r}\n'.replace("'", '"')
+                    + f'line_element = "{line}"\n[functions]\n{functions}')
+    return path
+
+
+def run_measured(command: list[str], limit: float | None = None) -> float:
+    """Wall seconds of one child process; infinity when it passes ``limit``."""
+    start = time.perf_counter()
+    child = subprocess.Popen(command, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, cwd=ROOT,
+                             env=dict(os.environ, SOURCE_DATE_EPOCH="0"))
+    try:
+        _, err = child.communicate(timeout=limit)
+    except subprocess.TimeoutExpired:
+        child.kill()
+        child.communicate()
+        return float("inf")
+    seconds = time.perf_counter() - start
+    if child.returncode != 0:
+        raise RuntimeError(f"{' '.join(command)} failed: {err.decode()[-500:]}")
+    return seconds
+
+
+def peak_memory_kib(command: list[str]) -> int:
+    """Peak resident memory of a command, read from the kernel's accounting for that child alone."""
+    pid = os.fork()
+    if pid == 0:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, 1)
+        os.dup2(devnull, 2)
+        os.chdir(ROOT)
+        os.execvp(command[0], command)
+    _, status, usage = os.wait4(pid, 0)
+    if status != 0:
+        raise RuntimeError(f"{' '.join(command)} failed with status {status}")
+    return usage.ru_maxrss
+
+
+def stepper_command(path: Path, formats: str, out: Path) -> list[str]:
+    return [sys.executable, "-m", "stepper", "derive", str(path), "-o", str(out), "--quiet", "--formats", formats]
+
+
+def measure(label: str, path: Path, dimension: int, args, out: Path) -> dict:
+    row = {"metric": label, "n": dimension}
+    if args.no_baseline or (args.quick and label in SLOW_BASELINES):
+        row["baseline"] = None
+    else:
+        row["baseline"] = run_measured([sys.executable, str(ROOT / "bench" / "baseline.py"), str(path)],
+                                       limit=args.baseline_limit)
+    trace_times = [run_measured(stepper_command(path, "trace", out)) for _ in range(args.repeats)]
+    full_times = [run_measured(stepper_command(path, "trace,pdf,notebook", out)) for _ in range(args.repeats)]
+    row["stepper"] = statistics.median(trace_times)
+    row["stepper_all"] = statistics.median(full_times)
+    row["memory_mib"] = peak_memory_kib(stepper_command(path, "trace,pdf,notebook", out)) / 1024
+    return row
+
+
+def format_seconds(value, limit) -> str:
+    if value is None:
+        return "-"
+    if value == float("inf"):
+        return f">{limit:.0f}"
+    return f"{value:.2f}"
+
+
+def print_table(rows: list[dict], limit: float) -> None:
+    header = f"{'metric':32} {'n':>2} {'baseline s':>11} {'stepper s':>10} {'+pdf+nb s':>10} {'ratio':>8} {'peak MiB':>9}"
+    print(header)
+    print("-" * len(header))
+    for row in rows:
+        base = row["baseline"]
+        if base is None:
+            ratio = "-"
+        elif base == float("inf"):
+            ratio = f">{limit / row['stepper']:.0f}"
+        else:
+            ratio = f"{base / row['stepper']:.1f}"
+        print(f"{row['metric']:32} {row['n']:>2} {format_seconds(base, limit):>11} {row['stepper']:>10.2f} "
+              f"{row['stepper_all']:>10.2f} {ratio:>8} {row['memory_mib']:>9.0f}", flush=True)
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
+    parser.add_argument("--quick", action="store_true", help="skip the baselines of Kerr and Kerr-Newman")
+    parser.add_argument("--no-baseline", action="store_true", help="time stepper only")
+    parser.add_argument("--baseline-limit", type=float, default=1800, help="seconds before a baseline is stopped")
+    parser.add_argument("--repeats", type=int, default=3, help="runs per stepper measurement (median)")
+    parser.add_argument("--largest", type=int, default=8, help="largest dimension of the growing families")
+    args = parser.parse_args()
+    rows = []
+    with tempfile.TemporaryDirectory(prefix="stepper-bench-") as folder:
+        folder = Path(folder)
+        out = folder / "out"
+        jobs = [(label, path) for label, path in NAMED]
+        jobs += [(f"round {n}-sphere", sphere_file(n, folder)) for n in range(2, args.largest + 1)]
+        jobs += [(f"{n - 1} free scale factors", scale_factor_file(n, folder)) for n in range(2, args.largest + 1)]
+        print(f"python {sys.version.split()[0]}, {os.cpu_count()} cores; stepper median of {args.repeats} runs; "
+              f"baseline limit {args.baseline_limit:.0f} s", flush=True)
+        for label, path in jobs:
+            from stepper import load_metric  # the dimension, read the same way stepper reads it
+            dimension = load_metric(path).dimension
+            rows.append(measure(label, path, dimension, args, out))
+            print(f"  measured {label}", file=sys.stderr, flush=True)
+        print_table(rows, args.baseline_limit)
+
+
+if __name__ == "__main__":
+    main()
