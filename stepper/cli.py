@@ -93,7 +93,10 @@ def run_derive(args: argparse.Namespace) -> int:
         raise InputError(f"output folder {out_dir} exists and is not a folder")
     derivation = derive(metric, progress=_Progress(args.quiet), curvature_invariants=not args.skip_invariants)
     target = out_dir / "trace.json"
-    write_atomically(target, trace_json(derivation))
+    try:
+        write_atomically(target, trace_json(derivation))
+    except OSError as err:
+        raise InputError(f"cannot write {target}: {err.strerror or err}") from None
     if not args.quiet:
         print(summary(derivation, target))
     return 0

@@ -131,6 +131,8 @@ def metric_from_data(data: dict[str, Any], default_title: str = "Untitled metric
         check_identifier(name, "abbreviations")
         if name in symbols or name in functions:
             raise InputError(f"abbreviation '{name}' reuses a declared name")
+        if name in differentials:
+            raise InputError(f"the name '{name}' clashes with the differential of coordinate '{name[1:]}'")
         if not isinstance(text, str):
             raise InputError(f"abbreviation '{name}' must be text")
         vocabulary = Vocabulary(symbols, functions, dict(abbreviations))
