@@ -8,6 +8,8 @@ from __future__ import annotations
 
 import argparse
 import sys
+
+import jinja2
 import time
 from pathlib import Path
 from typing import Sequence
@@ -16,7 +18,8 @@ from . import __version__
 from .chain import Derivation, derive
 from .errors import InputError
 from .metricfile import load_metric
-from .trace import trace_json, write_atomically
+from .exporters import EXPORTERS, TexFailed, TexMissing
+from .trace import write_atomically
 
 
 class _ArgumentParser(argparse.ArgumentParser):
@@ -31,14 +34,21 @@ def build_parser() -> argparse.ArgumentParser:
                     "someone else can check the derivation line by line.")
     parser.add_argument("--version", action="version", version=f"stepper {__version__}")
     commands = parser.add_subparsers(dest="command", metavar="COMMAND")
-    run = commands.add_parser("derive", help="run the curvature chain on a metric file and write trace.json",
+    run = commands.add_parser("derive", help="run the curvature chain on a metric file and write the reports",
                               description="Run the whole curvature chain on a TOML metric file and write "
-                                          "DIR/trace.json (default DIR: out/<file name without .toml>).")
+                                          "trace.json, report.tex, appendix.tex, report.pdf and derivation.ipynb "
+                                          "into DIR (default: out/<file name without .toml>).")
     run.add_argument("file", metavar="FILE", help="metric file (TOML)")
     run.add_argument("-o", "--output", metavar="DIR", help="folder for the outputs (default: out/<file stem>)")
     run.add_argument("--quiet", action="store_true", help="print nothing but errors")
     run.add_argument("--skip-invariants", action="store_true",
                      help="skip the Kretschmann scalar and the Weyl tensor")
+    run.add_argument("--formats", metavar="LIST",
+                     help="comma-separated outputs to write, from: trace (trace.json), tex (report.tex), "
+                          "appendix (appendix.tex, to \\input into a paper), pdf (report.pdf), "
+                          "notebook (derivation.ipynb); default: all")
+    run.add_argument("--templates", metavar="DIR",
+                     help="folder of templates that override the project's templates/ (same file names)")
     return parser
 
 
@@ -66,7 +76,7 @@ class _Progress:
             sys.stderr.write(f"[{elapsed:6.1f}s] {label}\n")
 
 
-def summary(derivation: Derivation, target: Path) -> str:
+def summary(derivation: Derivation, out_dir: Path, written: Sequence[str]) -> str:
     """A short human summary: scalar curvature, verdicts with evidence, time."""
     m = derivation.metric
     lines = [f"{m.title} ({m.dimension} dimensions: {', '.join(m.names)})",
@@ -82,24 +92,61 @@ def summary(derivation: Derivation, target: Path) -> str:
         if len(evidence) > 110:
             evidence = evidence[:107] + "..."
         lines.append(f"  {labels.get(key, key)}: {word} ({evidence})")
-    lines.append(f"  {len(derivation.steps)} steps recorded in {derivation.seconds:.2f} s; trace written to {target}")
+    lines.append(f"  {len(derivation.steps)} steps recorded in {derivation.seconds:.2f} s")
+    lines.append(f"  written to {out_dir}: {', '.join(written) if written else 'nothing'}")
     return "\n".join(lines)
 
 
 def run_derive(args: argparse.Namespace) -> int:
+    formats = _formats(args.formats)
     metric = load_metric(args.file)
     out_dir = Path(args.output) if args.output else Path("out") / Path(args.file).stem
     if out_dir.exists() and not out_dir.is_dir():
         raise InputError(f"output folder {out_dir} exists and is not a folder")
+    templates = [Path(args.templates)] if args.templates else []
+    if templates and not templates[0].is_dir():
+        raise InputError(f"template folder {templates[0]} does not exist")
     derivation = derive(metric, progress=_Progress(args.quiet), curvature_invariants=not args.skip_invariants)
-    target = out_dir / "trace.json"
-    try:
-        write_atomically(target, trace_json(derivation))
-    except OSError as err:
-        raise InputError(f"cannot write {target}: {err.strerror or err}") from None
+    contents: dict[str, str | bytes] = {}
+    problems: list[str] = []
+    status = 0
+    for name in formats:
+        exporter = EXPORTERS[name](templates)
+        try:
+            contents[exporter.file_name] = exporter.export(derivation)
+        except TexMissing as err:
+            problems.append(f"stepper: warning: no report.pdf: {err}")
+            status = 1 if args.formats else status
+        except TexFailed as err:
+            contents["report.log"] = err.log
+            problems.append(f"stepper: error: no report.pdf: {err} (TeX's log: {out_dir / 'report.log'})")
+            status = 1
+        except jinja2.TemplateError as err:
+            raise InputError(f"template problem in {name} output: {err}") from None
+    written = []
+    for file_name, content in contents.items():
+        target = out_dir / file_name
+        try:
+            write_atomically(target, content)
+        except OSError as err:
+            raise InputError(f"cannot write {target}: {err.strerror or err}") from None
+        written.append(file_name)
     if not args.quiet:
-        print(summary(derivation, target))
-    return 0
+        print(summary(derivation, out_dir, written))
+    for line in problems:
+        sys.stderr.write(line + "\n")
+    return status
+
+
+def _formats(text: str | None) -> list[str]:
+    if not text:
+        return list(EXPORTERS)
+    chosen = [part.strip() for part in text.split(",") if part.strip()]
+    unknown = [c for c in chosen if c not in EXPORTERS]
+    if unknown or not chosen:
+        raise InputError(f"unknown output format '{unknown[0] if unknown else text}' "
+                         f"(choose from {', '.join(EXPORTERS)})")
+    return [name for name in EXPORTERS if name in chosen]
 
 
 def main(argv: Sequence[str] | None = None) -> int:

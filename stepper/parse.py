@@ -32,6 +32,7 @@ from types import MappingProxyType
 from typing import Callable, Mapping, NamedTuple, NoReturn
 
 import sympy
+from sympy.core.function import AppliedUndef
 
 from stepper.errors import InputError
 
@@ -40,6 +41,14 @@ MAX_TEXT_LENGTH = 100_000
 
 MAX_DEPTH = 200
 """Deepest nesting accepted: parentheses, argument lists and chained powers."""
+
+MAX_CONSTANT_NESTING = 8
+"""Deepest nesting of powers and functions inside an expression free of symbols.
+
+sympy answers questions about such constants (is it zero? positive?) by
+numerical evaluation whose cost grows steeply with this depth; realistic
+metrics need two or three levels (``sqrt(1 + sqrt(2))``).
+"""
 
 MAX_NUMBER_BITS = 2048
 """Largest exact number (numerator or denominator, in bits) a text may produce.
@@ -130,12 +139,19 @@ def parse_expression(text: str, vocabulary: Vocabulary, where: str) -> sympy.Exp
     tokens = _tokenize(text)
     if tokens[0].kind == "end":
         raise InputError(f"empty expression in {where}")
+    parser = _Parser(tokens, vocabulary, where)
     try:
-        result = _Parser(tokens, vocabulary, where).parse()
+        result = parser.parse()
     except RecursionError:
-        # Belt and braces: MAX_DEPTH should stop deep nesting long before this.
-        raise InputError(f"expression in {where} is nested too deeply") from None
-    if result.has(*_UNDEFINED):
+        # sympy itself recurses through nested expressions (several frames per
+        # level), so very deep function nesting can exhaust Python's stack
+        # before MAX_DEPTH is reached.  Report it like any other bad input.
+        token = parser.peek()
+        near = _show(token.text) if token.text else "the end of the text"
+        raise InputError(
+            f"too deeply nested to evaluate, near {near} at column {token.column} of {where}"
+        ) from None
+    if _has_undefined(result):
         raise InputError(f"expression in {where} is undefined (division by zero?)")
     return result
 
@@ -206,25 +222,59 @@ _MINUS_ONE = sympy.Integer(-1)
 _MAX_DIGITS = 700  # 10**700 has more than MAX_NUMBER_BITS bits
 
 
-def _is_undefined(expression: sympy.Expr) -> bool:
-    return any(expression == value for value in _UNDEFINED)
+def _unique_nodes(expression: sympy.Basic) -> list[sympy.Basic]:
+    """Every distinct sub-expression once, without recursion.
+
+    Shared sub-expressions are visited once, so this stays linear even when
+    abbreviations make the expression tree far larger than its text.
+    """
+    seen = {expression}
+    pending = [expression]
+    while pending:
+        for child in pending.pop().args:
+            if child not in seen:
+                seen.add(child)
+                pending.append(child)
+    return list(seen)
+
+
+def _has_undefined(expression: sympy.Basic) -> bool:
+    undefined = set(_UNDEFINED)
+    return any(node in undefined for node in _unique_nodes(expression))
+
+
+def _exp_bits(argument: sympy.Expr) -> int:
+    """Bound on the bits of the number sympy may make of ``exp(argument)``.
+
+    sympy rewrites exp(c*log(b)) as b^c, which for numbers b and c is a
+    number of about c*bits(b) bits; other terms stay symbolic.
+    """
+    total = 0
+    for term in sympy.Add.make_args(argument):
+        coefficient, rest = term.as_coeff_Mul()
+        if any(isinstance(node, sympy.log) for node in _unique_nodes(rest)):
+            scale = abs(coefficient.p) if coefficient.is_Rational else 1
+            total += _largest_number(rest)[0] * max(1, scale)
+    return total
 
 
 def _rational_bits(number: sympy.Rational) -> int:
     return max(abs(number.p).bit_length(), number.q.bit_length())
 
 
-def _largest_number(expression: sympy.Expr) -> tuple[int, int]:
-    """(bits, magnitude) bounds over every exact number inside ``expression``."""
+def _largest_number(expression: sympy.Basic) -> tuple[int, int]:
+    """(bits, magnitude): bounds over every exact number inside ``expression``."""
     bits, magnitude = 0, 0
-    for number in expression.atoms(sympy.Rational):
-        bits = max(bits, _rational_bits(number))
-        magnitude = max(magnitude, abs(number.p), number.q)
+    for node in _unique_nodes(expression):
+        if node.is_Rational:
+            bits = max(bits, _rational_bits(node))
+            magnitude = max(magnitude, abs(node.p), node.q)
     return bits, magnitude
 
 
 def _outer_number_bits(expression: sympy.Expr) -> int:
-    """Bits of the numbers sympy just combined: the expression or its terms' coefficients."""
+    """Bits of the numbers sympy has just combined: the coefficient of the
+    expression, or of each of its terms when it is a sum."""
     terms = expression.args if expression.is_Add else (expression,)
     bits = 0
     for term in terms:
@@ -235,7 +285,12 @@ def _outer_number_bits(expression: sympy.Expr) -> int:
 
 
 class _Parser:
-    """Recursive descent over a token list; one instance per text."""
+    """Recursive descent over a token list; one instance per text.
+
+    Nesting costs at most three Python frames per level (operand ->
+    arguments -> expression), so MAX_DEPTH stays well inside Python's
+    default recursion limit.
+    """
 
     def __init__(self, tokens: list[_Token], vocabulary: Vocabulary, where: str) -> None:
         self.tokens = tokens
@@ -243,8 +298,9 @@ class _Parser:
         self.depth = 0
         self.vocabulary = vocabulary
         self.where = where
+        self.nesting_memo: dict[sympy.Basic, int | None] = {}
 
-    # -- helpers
+    # -- token helpers and errors
 
     def peek(self) -> _Token:
         return self.tokens[self.index]
@@ -256,7 +312,7 @@ class _Parser:
         return token
 
     def at(self, *operators: str) -> bool:
-        token = self.peek()
+        token = self.tokens[self.index]
         return token.kind == "operator" and token.text in operators
 
     def fail(self, message: str, column: int, hint: str = "") -> NoReturn:
@@ -267,10 +323,13 @@ class _Parser:
             self.fail("unexpected end of text", token.column)
         if token.kind == "bad":
             self.fail(f"unexpected character {_show(token.text)}", token.column)
-        # A number, name or "(" here means it directly follows a complete operand.
+        # Where an operator was expected, a number, name or "(" means a missing "*".
         starts_operand = token.kind in ("number", "name") or token.text == "("
-        hint = " (missing '*'?)" if starts_operand else ""
-        self.fail(f"unexpected {_show(token.text)}", token.column, hint)
+        self.fail(
+            f"unexpected {_show(token.text)}",
+            token.column,
+            " (missing '*'?)" if starts_operand else "",
+        )
 
     def enter(self, token: _Token) -> None:
         self.depth += 1
@@ -284,8 +343,8 @@ class _Parser:
     def check_size(self, bits: int, token: _Token) -> None:
         if bits > MAX_NUMBER_BITS:
             self.fail(
-                f"number too large from {_show(token.text)} "
-                f"(the limit is {MAX_NUMBER_BITS} bits)",
+                f"{_show(token.text)} gives a number too large "
+                f"(over {MAX_NUMBER_BITS} bits)",
                 token.column,
             )
 
@@ -301,9 +360,13 @@ class _Parser:
         self.unexpected(token)
 
     def expression(self) -> sympy.Expr:
-        """Sum of products.  Products are built pair by pair, left to right,
-        exactly as Python operators on sympy objects would; the sum is built
-        in one ``sympy.Add`` call, which gives the same result faster."""
+        """A sum of products.
+
+        Products are built pair by pair, left to right, exactly as Python
+        operators on sympy objects would build them; the sum is built by one
+        ``sympy.Add`` call, which gives the same result as pairwise addition
+        without its quadratic cost.
+        """
         terms: list[sympy.Expr] = []
         sign: _Token | None = None
         while True:
@@ -320,15 +383,31 @@ class _Parser:
         if len(terms) == 1:
             return terms[0]
         total = sympy.Add(*terms)
-        self.check_size(_outer_number_bits(total), sign or self.peek())
+        assert sign is not None
+        self.check_size(_outer_number_bits(total), sign)
         return total
 
     def operand(self) -> sympy.Expr:
-        """Unary signs, then a primary, then an optional power."""
+        """Unary signs, then a number, name, call or parenthesis, then an optional power."""
         signs: list[_Token] = []
         while self.at("+", "-"):
             signs.append(self.advance())
-        value = self.primary()
+        token = self.peek()
+        if token.kind == "number":
+            value: sympy.Expr = self.number(self.advance())
+        elif token.kind == "name":
+            self.advance()
+            kind = self.kind_of(token.text)
+            called = kind in ("function", "elementary") and self.at("(")
+            value = self.name(token, kind, self.arguments() if called else None)
+        elif self.at("("):
+            opening = self.advance()
+            self.enter(opening)
+            value = self.expression()
+            self.close(opening)
+            self.depth -= 1
+        else:
+            self.unexpected(token)
         if self.at("^", "**"):
             operator = self.advance()
             self.enter(operator)
@@ -339,21 +418,6 @@ class _Parser:
             if sign.text == "-":
                 value = sympy.Mul(_MINUS_ONE, value)
         return value
-
-    def primary(self) -> sympy.Expr:
-        token = self.peek()
-        if token.kind == "number":
-            return self.number(self.advance())
-        if token.kind == "name":
-            return self.name(self.advance())
-        if self.at("("):
-            opening = self.advance()
-            self.enter(opening)
-            value = self.expression()
-            self.close(opening)
-            self.depth -= 1
-            return value
-        self.unexpected(token)
 
     def close(self, opening: _Token) -> None:
         token = self.peek()
@@ -383,7 +447,7 @@ class _Parser:
     # -- leaves
 
     def number(self, token: _Token) -> sympy.Rational:
-        """An exact rational from decimal digits; 2.5E4 -> 25000, 0.1 -> 1/10."""
+        """An exact rational from decimal digits: 2.5E4 -> 25000, 0.1 -> 1/10."""
         match = _NUMBER_PARTS.fullmatch(token.text)
         assert match is not None
         whole, fraction, exponent = match.group(1), match.group(2) or "", match.group(3) or "0"
@@ -404,35 +468,51 @@ class _Parser:
         self.check_size(_rational_bits(value), token)
         return value
 
-    def name(self, token: _Token) -> sympy.Expr:
-        """Resolve a name: differentials, symbols, abbreviations, functions, pi, elementary."""
-        name = token.text
+    def kind_of(self, name: str) -> str | None:
+        """What a name stands for, in resolution order; None if unknown."""
         vocabulary = self.vocabulary
         if name in vocabulary.differentials:
-            return vocabulary.differentials[name]
+            return "differential"
         if name in vocabulary.symbols:
-            return vocabulary.symbols[name]
+            return "symbol"
         if name in vocabulary.abbreviations:
-            return vocabulary.abbreviations[name]
+            return "abbreviation"
         if name in vocabulary.functions:
-            declared = vocabulary.functions[name]
-            if self.at("("):
-                given = tuple(self.arguments())
-                if given != tuple(declared.args):
-                    expected = ", ".join(str(argument) for argument in declared.args)
-                    actual = ", ".join(_brief(argument) for argument in given)
-                    self.fail(
-                        f"function {_show(name)} is declared with arguments ({expected}) "
-                        f"but called with ({actual})",
-                        token.column,
-                    )
-            return declared
+            return "function"
         if name == "pi":
-            return sympy.pi
+            return "pi"
         if name in ELEMENTARY_FUNCTIONS:
-            if not self.at("("):
+            return "elementary"
+        return None
+
+    def name(
+        self, token: _Token, kind: str | None, arguments: list[sympy.Expr] | None
+    ) -> sympy.Expr:
+        """The value of a name; ``arguments`` is the parsed call, if there was one."""
+        name = token.text
+        vocabulary = self.vocabulary
+        if kind == "differential":
+            return vocabulary.differentials[name]
+        if kind == "symbol":
+            return vocabulary.symbols[name]
+        if kind == "abbreviation":
+            return vocabulary.abbreviations[name]
+        if kind == "pi":
+            return sympy.pi
+        if kind == "function":
+            declared = vocabulary.functions[name]
+            if arguments is not None and tuple(arguments) != tuple(declared.args):
+                expected = ", ".join(_brief(argument) for argument in declared.args)
+                actual = ", ".join(_brief(argument) for argument in arguments)
+                self.fail(
+                    f"function {_show(name)} is declared with arguments ({expected}) "
+                    f"but called with ({actual})",
+                    token.column,
+                )
+            return declared
+        if kind == "elementary":
+            if arguments is None:
                 self.fail(f"function {_show(name)} must be followed by '('", token.column)
-            arguments = self.arguments()
             if len(arguments) != 1:
                 self.fail(
                     f"function {_show(name)} takes 1 argument but was given {len(arguments)}",
@@ -443,6 +523,46 @@ class _Parser:
 
     # -- building sympy objects, with guards
 
+    def nesting(self, expression: sympy.Basic) -> int | None:
+        """How many powers and functions deep a constant expression goes.
+
+        None when the expression involves a symbol.  sympy settles questions
+        about constants (is it zero? an integer?) by numerical evaluation,
+        whose cost grows steeply with this depth, so it is bounded.
+        """
+        memo = self.nesting_memo
+        pending: list[tuple[sympy.Basic, bool]] = [(expression, False)]
+        while pending:
+            node, children_done = pending.pop()
+            if node in memo:
+                continue
+            if not children_done:
+                pending.append((node, True))
+                pending.extend((child, False) for child in node.args if child not in memo)
+                continue
+            if node.is_Symbol or isinstance(node, AppliedUndef):
+                memo[node] = None
+                continue
+            levels = [memo[child] for child in node.args]
+            if any(level is None for level in levels):
+                memo[node] = None
+            else:
+                own = 1 if (node.is_Pow or node.is_Function) else 0
+                memo[node] = own + max((level for level in levels if level is not None), default=0)
+        return memo[expression]
+
+    def check_nesting(self, parts: tuple[sympy.Expr, ...], token: _Token) -> None:
+        levels = [self.nesting(part) for part in parts]
+        if any(level is None for level in levels):
+            return
+        level = 1 + max(level for level in levels if level is not None)
+        if level > MAX_CONSTANT_NESTING:
+            self.fail(
+                f"constant too deeply nested: {_show(token.text)} makes {level} levels "
+                f"of powers and functions (the limit is {MAX_CONSTANT_NESTING})",
+                token.column,
+            )
+
     def multiply(self, left: sympy.Expr, right: sympy.Expr, operator: _Token) -> sympy.Expr:
         if operator.text == "/":
             if right == 0:
@@ -450,39 +570,35 @@ class _Parser:
             result = sympy.Mul(left, sympy.Pow(right, _MINUS_ONE))
         else:
             result = sympy.Mul(left, right)
-        if _is_undefined(result):
+        if result in _UNDEFINED:
             self.fail("undefined product (division by zero?)", operator.column)
         self.check_size(_outer_number_bits(result), operator)
         return result
 
     def power(self, base: sympy.Expr, exponent: sympy.Expr, operator: _Token) -> sympy.Expr:
-        # Estimate the size of what sympy would compute *before* asking it to.
-        base_bits, _ = _largest_number(base)
+        # Estimate what sympy would compute *before* asking it to.
+        base_bits, base_magnitude = _largest_number(base)
         if exponent.is_Rational:
             estimate = base_bits * max(1, abs(exponent.p))
-        elif exponent.has(sympy.log):
-            # sympy turns E^(c*log(b)) into b^c.
-            exponent_bits, magnitude = _largest_number(exponent)
-            estimate = max(base_bits, exponent_bits) * magnitude
         else:
-            estimate = base_bits
+            # exp(a)^(c*log(b)) becomes b^(a*c).
+            estimate = max(base_bits, max(1, base_magnitude) * _exp_bits(exponent))
         self.check_size(estimate, operator)
+        self.check_nesting((base, exponent), operator)
         result = sympy.Pow(base, exponent)
-        if _is_undefined(result):
-            message = "division by zero" if base == 0 else "undefined power"
-            self.fail(message, operator.column)
+        if result in _UNDEFINED:
+            self.fail("division by zero" if base == 0 else "undefined power", operator.column)
         self.check_size(_outer_number_bits(result), operator)
         return result
 
     def apply(self, token: _Token, argument: sympy.Expr) -> sympy.Expr:
-        if argument.has(sympy.log):
-            # exp(c*log(b)) becomes b^c; bound it as a power.
-            bits, magnitude = _largest_number(argument)
-            self.check_size(bits * magnitude, token)
+        if token.text == "exp":
+            self.check_size(_exp_bits(argument), token)
+        self.check_nesting((argument,), token)
         result = ELEMENTARY_FUNCTIONS[token.text](argument)
-        if _is_undefined(result) or result.has(*_UNDEFINED):
+        if _has_undefined(result):
             self.fail(
-                f"function {_show(token.text)} is undefined at {_brief(argument)}",
+                f"function {_show(token.text)} is undefined for argument {_brief(argument)}",
                 token.column,
             )
         self.check_size(_outer_number_bits(result), token)

@@ -98,7 +98,7 @@ def trace_json(derivation: Derivation) -> str:
     return json.dumps(trace_data(derivation), indent=1, ensure_ascii=True) + "\n"
 
 
-def write_atomically(path: Path, text: str) -> None:
+def write_atomically(path: Path, text: str | bytes) -> None:
     """Write to a temporary file beside ``path`` and rename it over ``path``,
     so an interrupted run never leaves a half-written file."""
     path = Path(path)
@@ -108,8 +108,9 @@ def write_atomically(path: Path, text: str) -> None:
     os.umask(umask)
     os.chmod(temporary, 0o666 & ~umask)
     try:
-        with os.fdopen(handle, "w", encoding="utf-8", newline="\n") as out:
-            out.write(text)
+        data = text if isinstance(text, bytes) else text.encode("utf-8")
+        with os.fdopen(handle, "wb") as out:
+            out.write(data)
             out.flush()
             os.fsync(out.fileno())
         os.replace(temporary, path)

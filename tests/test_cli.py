@@ -196,17 +196,18 @@ def test_failing_run_leaves_earlier_trace_byte_identical(tmp_path):
     (tmp_path / "good.toml").write_text(GOOD_SMALL, encoding="utf-8")
     first = run_stepper(["derive", "good.toml", "-o", "result"], tmp_path)
     assert first.returncode == 0, first.stderr
-    trace = tmp_path / "result" / "trace.json"
-    before = trace.read_bytes()
-    stamp = trace.stat().st_mtime_ns
+    folder = tmp_path / "result"
+
+    def snapshot():
+        return {p.name: (p.read_bytes(), p.stat().st_mtime_ns) for p in sorted(folder.iterdir())}
+    before = snapshot()
+    assert "trace.json" in before and "report.tex" in before
     for name, text in FAILING.items():
         (tmp_path / f"{name}.toml").write_text(text, encoding="utf-8")
     for name in FAILING:  # one after another: all of them aim at the same folder
         proc = run_stepper(["derive", f"{name}.toml", "-o", "result"], tmp_path)
         assert_one_line_error(proc)
-        assert trace.read_bytes() == before, name
-        assert trace.stat().st_mtime_ns == stamp, name
-        assert sorted(p.name for p in (tmp_path / "result").iterdir()) == ["trace.json"], name
+        assert snapshot() == before, name
 
 
 def test_output_folder_that_is_a_file_is_refused_and_kept(tmp_path):
@@ -396,7 +397,8 @@ def test_example_derives_into_default_folder(example_runs, stem):
     assert isinstance(data["steps"], list) and data["steps"]
     assert "scalar" in data["results"]
     assert "scalar curvature" in proc.stdout
-    assert str(Path("out") / stem / "trace.json") in proc.stdout
+    assert f"written to {Path('out') / stem}: trace.json, report.tex, appendix.tex, report.pdf, derivation.ipynb" \
+        in proc.stdout
     assert not list((cwd / "out" / stem).glob("*.part"))
 
 
@@ -469,3 +471,47 @@ def test_line_element_gives_metric_components(small_runs, name):
         assert key in got, (key, got)
         assert equal(read_sympy(got[key], names), read_sympy(value, names)), (key, got[key], value)
     assert set(got) == set(expected)  # the trace lists the non-zero components only
+
+
+# --- output formats ------------------------------------------------------------------
+
+def test_formats_option_writes_only_what_was_asked(tmp_path):
+    (tmp_path / "good.toml").write_text(GOOD_SMALL, encoding="utf-8")
+    proc = run_stepper(["derive", "good.toml", "-o", "result", "--formats", "trace,notebook"], tmp_path)
+    assert proc.returncode == 0, proc.stderr
+    assert sorted(p.name for p in (tmp_path / "result").iterdir()) == ["derivation.ipynb", "trace.json"]
+
+
+def test_unknown_format_is_a_one_line_error(tmp_path):
+    (tmp_path / "good.toml").write_text(GOOD_SMALL, encoding="utf-8")
+    proc = run_stepper(["derive", "good.toml", "-o", "result", "--formats", "trace,docx"], tmp_path)
+    assert_one_line_error(proc, "docx")
+    assert not (tmp_path / "result").exists()
+
+
+def test_without_tex_everything_else_is_written_and_a_warning_says_how(tmp_path):
+    (tmp_path / "good.toml").write_text(GOOD_SMALL, encoding="utf-8")
+    bare_path = tmp_path / "bin"
+    bare_path.mkdir()
+    (bare_path / "python").symlink_to(sys.executable)
+    env = {"PATH": str(bare_path), "HOME": str(tmp_path)}
+    proc = subprocess.run([sys.executable, "-m", "stepper", "derive", "good.toml", "-o", "result",
+                           "--formats", "trace,tex,pdf"], cwd=tmp_path, capture_output=True, text=True,
+                          timeout=TIMEOUT, env=env)
+    assert proc.returncode == 1  # pdf was asked for by name and could not be made
+    assert proc.stderr.count("\n") == 1 and "apt-get install" in proc.stderr and "Traceback" not in proc.stderr
+    assert sorted(p.name for p in (tmp_path / "result").iterdir()) == ["report.tex", "trace.json"]
+    default = subprocess.run([sys.executable, "-m", "stepper", "derive", "good.toml", "-o", "second"],
+                             cwd=tmp_path, capture_output=True, text=True, timeout=TIMEOUT, env=env)
+    assert default.returncode == 0 and "warning" in default.stderr
+    assert "report.pdf" not in [p.name for p in (tmp_path / "second").iterdir()]
+
+
+def test_user_templates_override_the_projects(tmp_path):
+    (tmp_path / "good.toml").write_text(GOOD_SMALL, encoding="utf-8")
+    mine = tmp_path / "mine" / "latex"
+    mine.mkdir(parents=True)
+    (mine / "steps.tex.j2").write_text("<% macro explain(kind) %>OUR GROUP'S WORDING<% endmacro %>\n")
+    proc = run_stepper(["derive", "good.toml", "-o", "result", "--formats", "tex", "--templates", "mine"], tmp_path)
+    assert proc.returncode == 0, proc.stderr
+    assert "OUR GROUP'S WORDING" in (tmp_path / "result" / "report.tex").read_text()
