@@ -106,13 +106,18 @@ class ExpressionWriter:
         return expr
 
     def _match(self, polynomial: sympy.Expr):
-        normal = _trig_normal(sympy.expand(polynomial))
+        """The abbreviation times a rational number, when the polynomial is one."""
+        content, primitive = _trig_normal(sympy.expand(polynomial)).as_content_primitive()
         for name, value in self._abbreviations:
-            if sympy.expand(normal - value) == 0:
-                return name
-            if sympy.expand(normal + value) == 0:
-                return -name
+            value_content, value_primitive = value.as_content_primitive()
+            for sign in (1, -1):
+                if sympy.expand(primitive - sign * value_primitive) == 0:
+                    return sign * content / value_content * name
         return None
+
+    def definition(self, name: str, value: sympy.Expr) -> str:
+        """LaTeX for ``name = value`` without abbreviating the value by itself."""
+        return f"{self.symbol(name)} = {self._printer.doprint(value)}"
 
     # breaking -----------------------------------------------------------
     def _breakable(self, expr: sympy.Expr) -> str:

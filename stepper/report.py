@@ -161,7 +161,7 @@ class _Model:
                         for name, word in assumptions.items()],
             "functions": [{"tex": w.symbol(f.func.__name__),
                            "arguments": ", ".join(w.symbol(a.name) for a in f.args)} for f in m.functions],
-            "abbreviations": [{"tex": w.symbol(name), "value": w.inline(value)} for name, value in m.abbreviations],
+            "abbreviations": [{"tex": w.definition(name, value)} for name, value in m.abbreviations],
             "line_element": breakable_text(m.line_element) if m.line_element else "",
             "components": [{"tex": tex, "long": long}
                            for tex, long in mapping_lines(self.d.results["metric"], "metric", w)],

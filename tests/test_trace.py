@@ -129,18 +129,14 @@ def test_write_atomically_replaces_and_leaves_no_temporaries(tmp_path):
     assert [p.name for p in tmp_path.iterdir()] == ["trace.json"]
 
 
-def test_interrupted_write_keeps_the_old_file(tmp_path):
+def test_interrupted_write_keeps_the_old_file(tmp_path, monkeypatch):
     target = tmp_path / "trace.json"
     write_atomically(target, "good\n")
 
-    class Boom(str):
-        def __len__(self):
-            raise KeyboardInterrupt
-
-    class Exploding:
-        """Text whose writing fails halfway."""
-
-    with pytest.raises(TypeError):
-        write_atomically(target, Exploding())  # type: ignore[arg-type]
+    def power_cut(fd):
+        raise OSError("disk went away")
+    monkeypatch.setattr("stepper.trace.os.fsync", power_cut)
+    with pytest.raises(OSError):
+        write_atomically(target, "half of a new trace")
     assert target.read_text() == "good\n"
     assert [p.name for p in tmp_path.iterdir()] == ["trace.json"]
