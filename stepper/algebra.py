@@ -351,6 +351,7 @@ class FieldArithmetic:
             sign = 1 if pair.hyperbolic else -1
             self._relations.append((2 * k, 2 * k + 1, sign))
         self._reduction_cache: dict[tuple[int, int], PolyElement] = {}
+        self._factor_cache: dict = {}
         self._derivative_rules = [self._rules_for(x) for x in self.coordinates]
         self.zero = RationalFunction(self, self.ring.zero, self.ring.one)
         self.one = RationalFunction(self, self.ring.one, self.ring.one)
@@ -447,6 +448,14 @@ class FieldArithmetic:
             changed = True
         return (num, den) if changed else None
 
+    def pack(self, element: RationalFunction) -> tuple[dict, dict]:
+        """Plain data for sending an element to another process."""
+        return dict(element.num), dict(element.den)
+
+    def unpack(self, data: tuple[dict, dict]) -> RationalFunction:
+        num, den = data
+        return RationalFunction(self, self.ring.from_dict(num) if num else self.ring.zero, self.ring.from_dict(den))
+
     # calculus -------------------------------------------------------------
     def _rules_for(self, x: sympy.Symbol) -> list[tuple[int, PolyElement]]:
         """For each generator with non-zero derivative along x: (index, derivative)."""
@@ -521,7 +530,10 @@ class FieldArithmetic:
             return sympy.Integer(int(poly.LC)) if poly else sympy.Integer(0)
         if not factor:
             return self._as_expr(self._nicer_trig_form(poly))
-        content, factors = poly.factor_list()
+        key = (poly.ring, tuple(sorted(poly.items())))
+        if key not in self._factor_cache:
+            self._factor_cache[key] = poly.factor_list()
+        content, factors = self._factor_cache[key]
         sign = 1
         parts = []
         for f, mult in factors:
@@ -689,6 +701,12 @@ class ExpressionArithmetic:
 
     def from_expr(self, expr: sympy.Expr) -> Expression:
         return self.make(as_expression(expr))
+
+    def pack(self, element: Expression) -> sympy.Expr:
+        return element.expr
+
+    def unpack(self, data: sympy.Expr) -> Expression:
+        return Expression(self, data)
 
     def constant(self, value) -> Expression:
         return Expression(self, sympy.Rational(value))

@@ -19,6 +19,8 @@ multiplies, differentiates and asks for zero tests.
 from __future__ import annotations
 
 import itertools
+import multiprocessing
+import os
 import time
 from typing import Callable, Iterable, Sequence
 
@@ -114,12 +116,37 @@ class Derivation:
 
 
 def derive(metric: Metric, progress: Progress | None = None, arithmetic=None,
-           curvature_invariants: bool = True) -> Derivation:
-    """Run the whole chain on ``metric`` and return the recorded derivation."""
-    return _Chain(metric, progress or _no_progress, arithmetic, curvature_invariants).run()
+           curvature_invariants: bool = True, jobs: int = 1, time_limit: float | None = None) -> Derivation:
+    """Run the whole chain on ``metric`` and return the recorded derivation.
+
+    ``jobs`` > 1 spreads the largest stages over that many processes (the
+    result is the same as with one); ``time_limit`` in seconds stops the run
+    with :class:`TimeLimitReached` saying where it was.
+    """
+    chain = _Chain(metric, progress or _no_progress, arithmetic, curvature_invariants)
+    chain.jobs = max(1, int(jobs))
+    chain.deadline = None if time_limit is None else time.perf_counter() + time_limit
+    user_progress = chain.progress
+
+    def progress_and_clock(label: str, done: int, total: int) -> None:
+        chain.check_time(label)
+        user_progress(label, done, total)
+    chain.progress = progress_and_clock
+    return chain.run()
+
+
+def default_jobs() -> int:
+    """Processes to use by default: the cores this process may run on."""
+    try:
+        return len(os.sched_getaffinity(0))
+    except AttributeError:
+        return os.cpu_count() or 1
 
 
 class _Chain:
+    jobs = 1
+    deadline: float | None = None
+
     def __init__(self, metric: Metric, progress: Progress, arithmetic, curvature_invariants: bool):
         self.metric = metric
         self.n = metric.dimension
@@ -167,6 +194,44 @@ class _Chain:
     def record(self, **fields) -> Step:
         return self.tracer.record(Step(**fields))
 
+    def check_time(self, where: str) -> None:
+        if self.deadline is not None and time.perf_counter() > self.deadline:
+            raise TimeLimitReached(where)
+
+    def compute_many(self, method: str, items: list[tuple], label: str) -> list:
+        """``[getattr(self, method)(*item) for item in items]``, on several processes when asked.
+
+        Workers are forked from this process (they see every earlier result),
+        each computes a contiguous share and returns its elements packed as
+        plain data together with their display expressions, and the parent
+        keeps the input order, so the result is the same as the serial one.
+        """
+        total = len(items)
+        if self.jobs <= 1 or total < 2 * self.jobs:
+            out = []
+            for done, item in enumerate(items, start=1):
+                out.append(getattr(self, method)(*item))
+                if done % 8 == 0 or done == total:
+                    self.check_time(f"{label} ({done} of {total} components)")
+                    self.progress(f"{label} {done}/{total}", done, total)
+            return out
+        global _ACTIVE_CHAIN
+        _ACTIVE_CHAIN = self
+        size = max(1, total // (4 * self.jobs))
+        chunks = [(method, items[i:i + size]) for i in range(0, total, size)]
+        out = []
+        context = multiprocessing.get_context("fork")
+        with context.Pool(self.jobs) as pool:
+            for packed in pool.imap(_compute_chunk, chunks):
+                for data, display in packed:
+                    element = self.A.unpack(data)
+                    self._expr_cache.setdefault(element, display)
+                    out.append(element)
+                self.check_time(f"{label} ({len(out)} of {total} components)")
+                self.progress(f"{label} {len(out)}/{total}", len(out), total)
+        _ACTIVE_CHAIN = None
+        return out
+
     # the chain ----------------------------------------------------------
     def run(self) -> Derivation:
         start = time.perf_counter()
@@ -178,6 +243,7 @@ class _Chain:
             stages += [self.kretschmann, self.weyl]
         stages += [self.bianchi]
         for number, stage in enumerate(stages):
+            self.check_time(f"{stage.__name__} (stage {number + 1} of {len(stages)})")
             self.progress(stage.__name__, number, len(stages))
             stage()
         self.progress("done", len(stages), len(stages))
@@ -390,55 +456,71 @@ class _Chain:
                                    "the difference of the two routes has canonical form 0 for every i" if all_agree
                                    else "the two routes differ for some i"))
 
+    def _d_gamma(self, k, a, b, c):
+        """d_k Gamma^a_bc, computed once per process."""
+        key = (k, a, min(b, c), max(b, c))
+        cache = self.__dict__.setdefault("_d_gamma_cache", {})
+        if key not in cache:
+            cache[key] = self.A.diff(self.gamma[a][b][c], k)
+        return cache[key]
+
+    def _riemann_terms(self, a, b, c, d) -> list[tuple[int, tuple, tuple | None]]:
+        """The non-vanishing terms of R^a_bcd: (sign, first factor, second factor or None for a derivative)."""
+        G = self.gamma
+        nz = lambda i, j, k: not self.is_zero(G[i][j][k])
+        terms = []
+        if nz(a, d, b):
+            terms.append((1, (c, a, d, b), None))
+        if nz(a, c, b):
+            terms.append((-1, (d, a, c, b), None))
+        for e in range(self.n):
+            if nz(a, c, e) and nz(e, d, b):
+                terms.append((1, (a, c, e), (e, d, b)))
+            if nz(a, d, e) and nz(e, c, b):
+                terms.append((-1, (a, d, e), (e, c, b)))
+        return terms
+
+    def _riemann_value(self, a, b, c, d):
+        """R^a_bcd = d_c Gamma^a_db - d_d Gamma^a_cb + Gamma^a_ce Gamma^e_db - Gamma^a_de Gamma^e_cb."""
+        G = self.gamma
+        value = self.A.zero
+        for sign, first, second in self._riemann_terms(a, b, c, d):
+            if second is None:
+                term = self._d_gamma(*first)
+            else:
+                term = G[first[0]][first[1]][first[2]] * G[second[0]][second[1]][second[2]]
+            value = value + term if sign > 0 else value - term
+        return value
+
     def riemann(self) -> None:
         n, A, G = self.n, self.A, self.gamma
-        dgamma: dict = {}
-
-        def d_gamma(k, a, b, c):
-            key = (k, a, min(b, c), max(b, c))
-            if key not in dgamma:
-                dgamma[key] = A.diff(G[a][b][c], k)
-            return dgamma[key]
-
         R = {}
         components = {}
         zero_count = 0
-        total = n * n * n * (n - 1) // 2
-        done = 0
-        for a in range(n):
-            for b in range(n):
-                for c in range(n):
-                    for d in range(c + 1, n):
-                        done += 1
-                        value = d_gamma(c, a, d, b) - d_gamma(d, a, c, b)
-                        used = {(a, d, b), (a, c, b)}
-                        for e in range(n):
-                            if not self.is_zero(G[a][c][e]) and not self.is_zero(G[e][d][b]):
-                                value = value + G[a][c][e] * G[e][d][b]
-                                used |= {(a, c, e), (e, d, b)}
-                            if not self.is_zero(G[a][d][e]) and not self.is_zero(G[e][c][b]):
-                                value = value - G[a][d][e] * G[e][c][b]
-                                used |= {(a, d, e), (e, c, b)}
-                        R[a, b, c, d] = value
-                        R[a, b, d, c] = -value
-                        if self.is_zero(value):
-                            zero_count += 1
-                            continue
-                        key = self.key(a, b, c, d)
-                        uses = sorted({self._christoffel_id(*u) for u in used if not self.is_zero(G[u[0]][u[1]][u[2]])},
-                                      key=lambda s: self._order(s.split("/")[1]))
-                        step = self.record(
-                            id=f"riemann/{key}", kind="component",
-                            annotation=f"Riemann component R^{self.x[a].name}_({self.x[b].name} {self.x[c].name} {self.x[d].name}) "
-                                       f"(= -R^{self.x[a].name}_({self.x[b].name} {self.x[d].name} {self.x[c].name}))",
-                            formula=FORMULAS["riemann"], uses=tuple(uses) or ("christoffel",), result=self.expr(value),
-                            params={"quantity": "riemann", "indices": key},
-                            substituted=self._riemann_tex(a, b, c, d),
-                            simplifications=self.simplification(
-                                self._riemann_raw(a, b, c, d), self.size(G[u[0]][u[1]][u[2]] for u in used), value))
-                        components[key] = step.result
-                        components[self.key(a, b, d, c)] = -step.result
-            self.progress(f"riemann {done}/{total}", done, total)
+        indices = [(a, b, c, d) for a in range(n) for b in range(n) for c in range(n) for d in range(c + 1, n)]
+        values = self.compute_many("_riemann_value", indices, "riemann")
+        for (a, b, c, d), value in zip(indices, values):
+            R[a, b, c, d] = value
+            R[a, b, d, c] = -value
+            if self.is_zero(value):
+                zero_count += 1
+                continue
+            key = self.key(a, b, c, d)
+            terms = self._riemann_terms(a, b, c, d)
+            used = {t[1][1:] if t[2] is None else t[1] for t in terms} | {t[2] for t in terms if t[2] is not None}
+            uses = sorted({self._christoffel_id(*u) for u in used}, key=lambda s: self._order(s.split("/")[1]))
+            step = self.record(
+                id=f"riemann/{key}", kind="component",
+                annotation=f"Riemann component R^{self.x[a].name}_({self.x[b].name} {self.x[c].name} {self.x[d].name}) "
+                           f"(= -R^{self.x[a].name}_({self.x[b].name} {self.x[d].name} {self.x[c].name}))",
+                formula=FORMULAS["riemann"], uses=tuple(uses) or ("christoffel",), result=self.expr(value),
+                params={"quantity": "riemann", "indices": key},
+                substituted=self._riemann_tex(a, b, c, d),
+                simplifications=self.simplification(
+                    self._riemann_raw(a, b, c, d), self.size(G[u[0]][u[1]][u[2]] for u in used), value))
+            components[key] = step.result
+            components[self.key(a, b, d, c)] = printer_stable(-step.result)
+        total = len(indices)
         self.R = R
         for a, b, c in itertools.product(range(n), repeat=3):
             R[a, b, c, c] = A.zero
@@ -540,6 +622,7 @@ class _Chain:
         agree = True
         other = {}
         for i in range(n):
+            self.progress(f"ricci by the trace identity, row {i + 1}/{n}", i, n)
             for j in range(i, n):
                 value = A.zero
                 for l in range(n):
@@ -727,6 +810,8 @@ class _Chain:
         for position in range(4):
             raised = {}
             for idx in itertools.product(range(n), repeat=4):
+                if idx[1:] == (0, 0, 0):
+                    self.progress(f"kretschmann raise {position + 1}/4, row {idx[0] + 1}/{n}", position, 4)
                 total = A.zero
                 for e in range(n):
                     if self.is_zero(ginv[idx[position]][e]):
@@ -769,6 +854,7 @@ class _Chain:
         c1 = sympy.Rational(1, n - 2)
         c2 = sympy.Rational(1, (n - 1) * (n - 2))
         for a, b, c, d in _independent_riemann_indices(n):
+            self.progress(f"weyl {self.key(a, b, c, d)}", 0, 1)
             value = (self.Rdown[a, b, c, d]
                      - (g[a][c] * ric[b][d] - g[a][d] * ric[b][c] - g[b][c] * ric[a][d] + g[b][d] * ric[a][c]) * c1
                      + Rs * (g[a][c] * g[b][d] - g[a][d] * g[b][c]) * c2)
@@ -786,6 +872,7 @@ class _Chain:
         n, A, G, ginv, Gam = self.n, self.A, self.G, self.ginv, self.gamma
         residues = {}
         for b in range(n):
+            self.progress(f"bianchi, component {b + 1}/{n}", b, n)
             total = A.zero
             for a in range(n):
                 for c in range(n):
@@ -801,6 +888,24 @@ class _Chain:
             residues[f"nabla^a G_a{self.x[b].name}"] = total
         self._verdict("bianchi", "Contracted Bianchi identity: the Einstein tensor is divergence-free.",
                       residues, ("einstein", "christoffel", "inverse_metric"))
+
+
+_ACTIVE_CHAIN: "_Chain | None" = None
+
+
+def _compute_chunk(job: tuple[str, list[tuple]]) -> list:
+    """In a forked worker: compute a share of the components and pack them."""
+    method, items = job
+    chain = _ACTIVE_CHAIN
+    out = []
+    for item in items:
+        element = getattr(chain, method)(*item)
+        out.append((chain.A.pack(element), chain.A.to_expr(element)))
+    return out
+
+
+class TimeLimitReached(Exception):
+    """The run passed its time limit; ``args[0]`` says where it was."""
 
 
 def _is_canonical(order: tuple, rank: int) -> bool:

@@ -15,7 +15,7 @@ from pathlib import Path
 from typing import Sequence
 
 from . import __version__
-from .chain import Derivation, derive
+from .chain import Derivation, TimeLimitReached, default_jobs, derive
 from .errors import InputError
 from .metricfile import load_metric
 from .exporters import EXPORTERS, TexFailed, TexMissing
@@ -47,6 +47,11 @@ def build_parser() -> argparse.ArgumentParser:
                      help="comma-separated outputs to write, from: trace (trace.json), tex (report.tex), "
                           "appendix (appendix.tex, to \\input into a paper), pdf (report.pdf), "
                           "notebook (derivation.ipynb); default: all")
+    run.add_argument("--jobs", type=int, metavar="N",
+                     help="processes for the largest stages (default: the cores of this machine; "
+                          "the results are the same for every N)")
+    run.add_argument("--time-limit", type=float, metavar="SECONDS",
+                     help="stop cleanly, writing nothing, when the derivation takes longer than this")
     run.add_argument("--templates", metavar="DIR",
                      help="folder of templates that override the project's templates/ (same file names)")
     return parser
@@ -106,7 +111,18 @@ def run_derive(args: argparse.Namespace) -> int:
     templates = [Path(args.templates)] if args.templates else []
     if templates and not templates[0].is_dir():
         raise InputError(f"template folder {templates[0]} does not exist")
-    derivation = derive(metric, progress=_Progress(args.quiet), curvature_invariants=not args.skip_invariants)
+    if args.jobs is not None and args.jobs < 1:
+        raise InputError("--jobs must be at least 1")
+    if args.time_limit is not None and args.time_limit <= 0:
+        raise InputError("--time-limit must be a positive number of seconds")
+    jobs = args.jobs if args.jobs is not None else default_jobs()
+    try:
+        derivation = derive(metric, progress=_Progress(args.quiet), curvature_invariants=not args.skip_invariants,
+                            jobs=jobs, time_limit=args.time_limit)
+    except TimeLimitReached as stop:
+        sys.stderr.write(f"stepper: stopped: the time limit of {args.time_limit:g} s was reached during {stop}; "
+                         "nothing was written\n")
+        return 3
     contents: dict[str, str | bytes] = {}
     problems: list[str] = []
     status = 0

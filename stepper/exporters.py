@@ -17,6 +17,7 @@ from __future__ import annotations
 import os
 import shutil
 import subprocess
+import sys
 import tempfile
 from pathlib import Path
 from typing import Sequence
@@ -28,7 +29,15 @@ from .chain import Derivation
 from .report import report_model
 from .trace import trace_json
 
-PROJECT_TEMPLATES = Path(__file__).resolve().parent.parent / "templates"
+def _project_templates() -> Path:
+    """templates/ beside the package in a checkout, or where pip installed it."""
+    beside = Path(__file__).resolve().parent.parent / "templates"
+    if beside.is_dir():
+        return beside
+    return Path(sys.prefix) / "share" / "stepper" / "templates"
+
+
+PROJECT_TEMPLATES = _project_templates()
 
 #: pdflatex runs this many times so that links and bookmarks settle.
 TEX_RUNS = 2

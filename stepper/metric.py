@@ -16,6 +16,7 @@ from typing import Iterable, Sequence
 import sympy
 from sympy.core.function import AppliedUndef
 
+from .algebra import as_expression, printer_stable
 from .errors import InputError
 
 #: How a line element maps to the matrix; printed in every report.
@@ -60,7 +61,13 @@ class Metric:
         rows = [list(row) for row in (matrix.tolist() if hasattr(matrix, "tolist") else matrix)]
         if any(isinstance(entry, str) for row in rows for entry in row):
             raise InputError("matrix entries must be sympy expressions, not text (use stepper.load_metric for text)")
-        matrix = sympy.ImmutableMatrix(rows)
+        try:
+            entries = [[as_expression(e) for e in row] for row in rows]
+        except TypeError as err:
+            raise InputError(f"matrix entries must be exact sympy expressions or integers ({err})") from None
+        if any(e.has(sympy.Float) for row in entries for e in row):
+            raise InputError("matrix entries must be exact: use sympy.Rational instead of floating-point numbers")
+        matrix = sympy.ImmutableMatrix([[printer_stable(e) for e in row] for row in entries])
         _validate(coordinates, matrix)
         free = set().union(*(e.free_symbols for e in matrix))
         parameters = tuple(sorted(free - set(coordinates), key=lambda s: s.name))

@@ -22,6 +22,7 @@ from typing import Any
 import sympy
 
 from .errors import InputError
+from .algebra import printer_stable
 from .metric import Metric, _validate
 from .parse import Vocabulary, check_identifier, parse_expression
 
@@ -210,7 +211,7 @@ def matrix_from_line_element(text: str, coordinates, vocabulary: Vocabulary, dif
             value = coefficient[i][j] if i == j else coefficient[i][j] / 2
             value = sympy.factor(sympy.together(value)) if value != 0 else value
             g[i][j] = g[j][i] = value
-    return sympy.ImmutableMatrix(g)
+    return sympy.ImmutableMatrix([[printer_stable(e) for e in row] for row in g])
 
 
 def matrix_from_components(rows, coordinates, vocabulary: Vocabulary) -> sympy.ImmutableMatrix:
@@ -238,4 +239,4 @@ def matrix_from_components(rows, coordinates, vocabulary: Vocabulary) -> sympy.I
         for j in range(i + 1, n):
             if sympy.cancel(g[i][j] - g[j][i]) != 0:
                 raise InputError(f"'components' is not symmetric: entry [{i + 1}][{j + 1}] differs from [{j + 1}][{i + 1}]")
-    return sympy.ImmutableMatrix(g)
+    return sympy.ImmutableMatrix([[printer_stable(e) for e in row] for row in g])

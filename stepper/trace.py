@@ -17,6 +17,7 @@ from typing import Any
 
 import sympy
 
+from .algebra import printer_stable
 from .chain import Derivation
 from .tracer import Simplification, Step, Verdict
 
@@ -76,7 +77,7 @@ def metric_record(derivation: Derivation) -> dict:
         "functions": {expression_text(f.func): [a.name for a in f.args] for f in m.functions},
         "abbreviations": {name: expression_text(value) for name, value in m.abbreviations},
         "line_element": m.line_element,
-        "components": {f"{m.names[i]},{m.names[j]}": expression_text(m.matrix[i, j])
+        "components": {f"{m.names[i]},{m.names[j]}": expression_text(printer_stable(m.matrix[i, j]))
                        for i in range(m.dimension) for j in range(m.dimension) if m.matrix[i, j] != 0},
     }
 

@@ -14,7 +14,7 @@ from stepper.trace import trace_data, trace_json, write_atomically
 
 EXAMPLES = Path(__file__).resolve().parent.parent / "examples"
 SMALL = ["round_sphere", "hyperbolic_plane", "compact_star_exterior", "expanding_dust_universe",
-         "inflating_universe", "five_dimensional_black_hole"]
+         "inflating_universe", "five_dimensional_black_hole", "twisted_vacuum", "spinning_black_hole"]
 
 
 @functools.lru_cache(maxsize=None)
@@ -51,6 +51,9 @@ def test_results_round_trip_through_sympify(name):
             assert back == d.results[quantity][key], (quantity, key)
     for quantity in ("scalar", "kretschmann", "determinant"):
         assert sp.sympify(data["results"][quantity], locals=space) == d.results[quantity]
+    for key, text in data["metric"]["components"].items():
+        i, j = (d.metric.names.index(part) for part in key.split(","))
+        assert sp.sympify(text, locals=space) == d.metric.matrix[i, j], key
 
 
 def test_step_results_and_simplifications_round_trip():
