@@ -88,6 +88,12 @@ def summary(derivation: Derivation, out_dir: Path, written: Sequence[str]) -> st
              f"  scalar curvature R = {derivation.results['scalar']}"]
     if "kretschmann" in derivation.results:
         lines.append(f"  Kretschmann scalar = {derivation.results['kretschmann']}")
+    numeric = derivation.results.get("numeric_verification")
+    if numeric:
+        word = "passed" if numeric["passed"] else "FAILED"
+        deviations = ", ".join(f"{q} {v}" for q, v in numeric["deviations"].items())
+        lines.append(f"  numeric verification {word}: largest relative deviations {deviations} "
+                     f"at {len(numeric['points'])} random points")
     labels = {"ricci_flat": "Ricci-flat", "einstein_space": "Einstein manifold",
               "constant_curvature": "constant curvature", "conformally_flat": "conformally flat",
               "bianchi": "contracted Bianchi identity"}
@@ -149,6 +155,11 @@ def run_derive(args: argparse.Namespace) -> int:
         written.append(file_name)
     if not args.quiet:
         print(summary(derivation, out_dir, written))
+    numeric = derivation.results.get("numeric_verification", {})
+    if numeric and not numeric["passed"]:
+        problems.append("stepper: error: the numeric verification disagrees with the symbolic results "
+                        f"(deviations {numeric['deviations']}); do not rely on this derivation")
+        status = 1
     for line in problems:
         sys.stderr.write(line + "\n")
     return status

@@ -44,6 +44,7 @@ import sympy
 from sympy.core.function import AppliedUndef
 from sympy.printing.str import StrPrinter
 
+from .algebra import as_expression
 from .chain import Derivation
 from .tracer import Step, Verdict
 
@@ -76,7 +77,7 @@ _NOTEBOOK_NAMES = frozenset("""
     riemann_lowered kretschmann_scalar weyl christoffel_from_metric riemann_from_christoffel ricci_from_riemann
     ricci_from_trace_identity scalar_from_ricci einstein_from_ricci lowered_from_riemann kretschmann_from_lowered
     weyl_from_lowered divergence_of_einstein recorded recorded_holds given residues
-    polynomial_quotient
+    polynomial_quotient mpmath christoffel_spot_check spot_check_deviation
 """.split())
 
 
@@ -182,7 +183,7 @@ class _Source:
     def expr(self, value) -> str:
         if isinstance(value, bool) or not isinstance(value, (sympy.Basic, int)):
             raise NotebookError(f"expected a sympy expression, got {type(value).__name__}")
-        text = self._printer.doprint(sympy.sympify(value))
+        text = self._printer.doprint(as_expression(value))
         for token in tokenize.generate_tokens(io.StringIO(text).readline):
             if token.type == tokenize.NAME and token.string not in self._own:
                 if not hasattr(sympy, token.string) or token.string.startswith("_"):
@@ -224,6 +225,9 @@ class _Source:
             raise NotebookError(f"the symbol {symbol.name} has assumptions the notebook cannot re-create")
         arguments = "".join(f", {k}=True" for k in keywords)
         return f'{variable} = sp.Symbol("{symbol.name}"{arguments})'
+
+
+_NUMBER = re.compile(r"-?[0-9]+(\.[0-9]+)?(e[-+]?[0-9]+)?")
 
 
 def _step_literal(step_id: str) -> str:
@@ -543,7 +547,9 @@ class _Cells:
             "ricci": self.ricci_summary, "ricci/symmetry": self.ricci_symmetry,
             "ricci_by_trace_identity": self.ricci_route, "ricci/agreement": self.ricci_agreement,
             "scalar": self.scalar, "einstein": self.einstein_summary, "riemann_lowered": self.riemann_lowered,
-            "riemann_lowered/pair_symmetry": self.pair_symmetry, "kretschmann": self.kretschmann,
+            "riemann_lowered/pair_symmetry": self.pair_symmetry,
+            "riemann_lowered/first_bianchi": self.first_bianchi,
+            "numeric_verification": self.numeric_verification, "kretschmann": self.kretschmann,
             "weyl": self.weyl, "verdict/ricci_flat": self.ricci_flat,
             "verdict/einstein_space": self.einstein_space,
             "verdict/constant_curvature": self.constant_curvature,
@@ -776,6 +782,74 @@ residues = {{
 }}
 verdict({self._id(step)}, recorded_holds, residues)"""
         return "riemann_lowered_pair_symmetry", code
+
+    def first_bianchi(self, step):
+        code = f"""{self._holds(step)}
+# The cyclic sum R_abcd + R_acdb + R_adbc over the recorded lowered components.
+residues = {{
+    f"R_{{a}},{{b}},{{c}},{{d}} + R_{{a}},{{c}},{{d}},{{b}} + R_{{a}},{{d}},{{b}},{{c}}":
+        component(riemann_lowered, a, b, c, d) + component(riemann_lowered, a, c, d, b)
+        + component(riemann_lowered, a, d, b, c)
+    for a in index_names for b, c, d in itertools.combinations(index_names, 3)
+}}
+verdict({self._id(step)}, recorded_holds, residues)"""
+        return "riemann_lowered_first_bianchi", code
+
+    def numeric_verification(self, step):
+        params = step.params
+        symbols = {p.name: p for p in self.d.metric.parameters}
+        numbers = "{" + ", ".join(f"{self.s.expr(symbols[name])}: {self.s.expr(value)}"
+                                  for name, value in params["parameters"].items()) + "}"
+        functions = {f.func.__name__: f for f in self.d.metric.functions}
+        bodies = "{" + ", ".join(f"{self.s.expr(functions[name])}: {self.s.expr(body)}"
+                                 for name, body in params["functions"].items()) + "}"
+        points = "[" + ", ".join("{" + ", ".join(f'"{k}": "{v}"' for k, v in point.items()
+                                                 if _NUMBER.fullmatch(v) and _STEP_ID.fullmatch(k)) + "}"
+                                 for point in params["points"]) + "]"
+        code = f"""{self._holds(step)}
+# A numeric spot check of the Christoffel symbols, independent of the algebra above: at the recorded
+# random points, with the recorded parameter values and free functions, differentiate the metric by
+# central differences in mpmath and compare with the recorded symbolic Christoffel symbols.
+import mpmath
+
+
+def christoffel_spot_check():
+    # The largest relative deviation of the recorded Christoffel symbols from finite differences.
+    mpmath.mp.dps = 40
+    _numeric_parameters = {numbers}
+    _numeric_functions = {bodies}
+    _concrete_metric = metric_matrix().subs(_numeric_functions).doit().subs(_numeric_parameters)
+    _metric_at = sp.lambdify([coordinates], _concrete_metric, "mpmath")
+    _step_size = mpmath.mpf(10) ** -15
+    _worst = mpmath.mpf(0)
+    for _point in {points}:
+        _here = [mpmath.mpf(_point[_name]) for _name in index_names]
+        _g_inverse = mpmath.matrix(_metric_at(_here)) ** -1
+        _derivative = []
+        for _direction in range(dimension):
+            _up, _down = list(_here), list(_here)
+            _up[_direction] += _step_size
+            _down[_direction] -= _step_size
+            _derivative.append((mpmath.matrix(_metric_at(_up)) - mpmath.matrix(_metric_at(_down))) / (2 * _step_size))
+        _values = {{coordinate[_name]: sp.Rational(_point[_name]) for _name in index_names}}
+        for _upper, _lower_1, _lower_2 in every_index(3):
+            _i, _j, _k = (index_names.index(_name) for _name in (_upper, _lower_1, _lower_2))
+            _numeric_value = sum(_g_inverse[_i, _m] * (_derivative[_j][_m, _k] + _derivative[_k][_m, _j] - _derivative[_m][_j, _k])
+                                for _m in range(dimension)) / 2
+            _symbolic_value = component(christoffel, _upper, _lower_1, _lower_2)
+            _symbolic_value = _symbolic_value.subs(_numeric_functions).doit().subs(_numeric_parameters)
+            _symbolic_value = mpmath.mpf(sp.N(_symbolic_value.subs(_values), 40))
+            _scale = max(abs(_symbolic_value), abs(_numeric_value), mpmath.mpf(10) ** -10)
+            _worst = max(_worst, abs(_symbolic_value - _numeric_value) / _scale)
+    return _worst
+
+
+spot_check_deviation = christoffel_spot_check()
+print(f"numeric_verification: largest relative deviation of the Christoffel symbols "
+      f"{{mpmath.nstr(spot_check_deviation, 3)}}")
+if recorded_holds and spot_check_deviation > mpmath.mpf(10) ** -15:
+    raise AssertionError("step numeric_verification: the Christoffel symbols disagree with finite differences")"""
+        return "numeric_verification", code
 
     def kretschmann(self, step):
         code = f"""recorded = {self.s.expr(step.result)}

@@ -187,7 +187,15 @@ class _Model:
                                 ("weyl", r"independent Weyl components \(C_{abcd}\)")):
             if quantity in r:
                 counts.append({"label": label, "count": len(r[quantity])})
-        return {"equations": rows, "verdicts": verdicts, "counts": counts}
+        numeric = r.get("numeric_verification")
+        numeric_line = None
+        if numeric:
+            numeric_line = {
+                "word": "passed" if numeric["passed"] else "FAILED",
+                "deviations": ", ".join(f"{escape_text(q)} {escape_text(v)}" for q, v in numeric["deviations"].items()),
+                "points": len(numeric["points"]), "digits": numeric["digits"],
+                "tolerance": escape_text(numeric["tolerance"]), "link": self.link("numeric_verification")}
+        return {"equations": rows, "verdicts": verdicts, "counts": counts, "numeric": numeric_line}
 
     def checks(self) -> list[dict]:
         out = []

@@ -214,7 +214,8 @@ def test_every_step_has_a_markdown_and_a_recomputing_code_cell(name):
         assert [c.cell_type for c in cells] == ["markdown", "code"], step.id
         assert step.id in cells[0].source
         assert "not recomputed" not in cells[1].source, step.id
-    # Only sympy (and the standard library's itertools) is imported, never stepper.
+    # Only sympy, mpmath (which sympy itself requires) and the standard library's itertools are
+    # imported, never stepper.
     imported = set()
     for cell in code_cells(nb):
         for node in ast.walk(ast.parse(cell.source)):
@@ -222,7 +223,7 @@ def test_every_step_has_a_markdown_and_a_recomputing_code_cell(name):
                 imported |= {alias.name for alias in node.names}
             elif isinstance(node, ast.ImportFrom):
                 imported.add(node.module)
-    assert imported == {"itertools", "sympy"}
+    assert imported == {"itertools", "sympy", "mpmath"}
 
 
 class _TopLevelNames(ast.NodeVisitor):

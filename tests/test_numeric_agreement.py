@@ -1,7 +1,7 @@
 """Agreement of stepper's symbolic curvature with an independent numeric computation.
 
 Source of every reference value in this file: independent numeric computation
-(tests/numeric_curvature.py).  That module imports nothing from stepper and
+(stepper/numeric.py).  That module imports nothing from stepper and
 does no symbolic algebra; it differentiates the metric numerically (central
 differences in mpmath) and builds Christoffel symbols, Riemann, Ricci, the
 scalar and the Kretschmann scalar from those numbers.
@@ -43,7 +43,7 @@ import pytest
 import sympy
 from mpmath import mpf
 
-import numeric_curvature as nc
+from stepper import numeric as nc
 from stepper import derive, load_metric
 
 EXAMPLES = Path(__file__).resolve().parent.parent / "examples"
@@ -268,7 +268,7 @@ def symbolic_evaluator(d, name, results=None):
 
 
 def reference_values(name, point):
-    """Independent numeric computation (tests/numeric_curvature.py) at ``point``."""
+    """Independent numeric computation (stepper/numeric.py) at ``point``."""
     cv = nc.curvature(hand_metric(name), point, dps=REF_DPS)
     n = cv.dim
     with mpmath.workdps(2 * REF_DPS):
@@ -304,7 +304,7 @@ def test_symbolic_agrees_with_independent_numeric(name):
     assert [str(s) for s in d.metric.coordinates] == _coordinate_names(name)
     evaluate = symbolic_evaluator(d, name)
     for point in points(name):
-        # independent numeric computation (tests/numeric_curvature.py)
+        # independent numeric computation (stepper/numeric.py)
         ref = reference_values(name, point)
         sym = evaluate(point)
         dev = deviations(sym, ref)
@@ -335,7 +335,7 @@ def test_comparison_detects_a_corrupted_component(corrupt):
     name = "compact_star_exterior"
     d = derivation(name)
     point = points(name)[0]
-    # independent numeric computation (tests/numeric_curvature.py)
+    # independent numeric computation (stepper/numeric.py)
     ref = reference_values(name, point)
 
     honest = deviations(symbolic_evaluator(d, name)(point), ref)
@@ -350,3 +350,22 @@ def test_comparison_detects_a_corrupted_component(corrupt):
     # only the corrupted quantity changes
     for q in ("riemann", "ricci", "scalar", "kretschmann"):
         assert bad[q] == honest[q]
+
+
+def test_numeric_verification_step_is_recorded_and_catches_a_wrong_symbolic_result():
+    # The recorded numeric check of every derivation (stepper/verify.py) against a result corrupted on purpose.
+    # Source: independent numeric computation (stepper/numeric.py).
+    from stepper.verify import numeric_check
+
+    d = derive(load_metric(EXAMPLES / "compact_star_exterior.toml"))
+    step = d.step("numeric_verification")
+    assert step.result.holds is True and d.results["numeric_verification"]["passed"] is True
+    assert len(d.results["numeric_verification"]["points"]) == 3
+    m = d.metric
+    corrupted = dict(d.results)
+    corrupted["riemann"] = dict(d.results["riemann"])
+    corrupted["riemann"]["t,r,t,r"] = d.results["riemann"]["t,r,t,r"] * sympy.Rational(11, 10)
+    check = numeric_check(m.coordinates, m.matrix, m.parameters, m.functions, corrupted)
+    assert check.passed is False
+    assert float(check.deviations["riemann"]) > 1e-3
+    assert float(check.deviations["christoffel"]) < 1e-20

@@ -1,4 +1,4 @@
-"""Validation of the numeric curvature reference (tests/numeric_curvature.py) itself.
+"""Validation of the numeric curvature reference (stepper/numeric.py) itself.
 
 Every expected value below is a closed form taken from outside the project;
 its source is written beside the check.  'from memory' means the formula was
@@ -16,7 +16,7 @@ import mpmath
 import pytest
 from mpmath import mpf
 
-import numeric_curvature as nc
+from stepper import numeric as nc
 
 TOL = mpf("1e-30")
 HI = 100  # digits for evaluating closed forms

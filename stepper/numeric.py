@@ -1,7 +1,7 @@
-"""Independent numeric reference for curvature, used only by the tests.
+"""Independent numeric curvature: the second route that checks every derivation.
 
-This module is deliberately separate from the ``stepper`` package: it imports
-nothing from it and does no symbolic algebra.  It takes a metric as a plain
+This module shares no code with the symbolic route: it imports nothing from
+the rest of stepper and does no symbolic algebra.  It takes a metric as a plain
 Python callable and evaluates curvature at one point by finite differences in
 high-precision floating point (mpmath), so that stepper's symbolic results can
 be checked against numbers obtained by an entirely different route.

@@ -1,0 +1,1101 @@
+r"""Safe reading of claimed results written in LaTeX, as copied from a paper.
+
+A user who audits a hand calculation may paste results such as
+``\frac{M(r-2M)}{r^{3}}``.  Like :mod:`stepper.parse`, this module never hands
+text to ``eval``, ``exec`` or any of sympy's string readers (sympy's own LaTeX
+reader included): a tokenizer and a recursive-descent parser build sympy
+objects directly, and every name is looked up in the caller's
+:class:`stepper.parse.Vocabulary`.  Every problem raises
+:class:`stepper.errors.InputError` with a one-line message naming the
+offending token, its 1-based column in the text and the caller's ``where``
+label.  The guards against huge texts, deep nesting and huge numbers follow
+:mod:`stepper.parse` and use its limits.
+
+Accepted subset (highest binding first)::
+
+    expression  term { ("+" | "-") term }
+    term        signed { ("*" | "/" | \cdot | \times) signed }
+    signed      { "+" | "-" } product
+    product     factor { factor }                    juxtaposition
+    factor      number [^]
+              | name [_sub] ["'"...] [^] [call] [^]  letters, Greek letters, \mathrm{name}
+              | \dot name | \ddot name  [call] [^]
+              | group [^]                            ( ) [ ] { } \left( \right) \bigl( \bigr) ...
+              | \frac A B [^]    (also \dfrac, \tfrac)
+              | \sqrt [ "[" n "]" ] A [^]            the n-th root is A^(1/n)
+              | function [^p] ( "(" expression ")" [^] | argument )
+
+Reading rules (the decisions a reader of LaTeX has to make):
+
+* Juxtaposition is multiplication and binds tighter than the written
+  operators: ``2M`` is 2*M, ``Mr`` is M*r.  A number may only come first in a
+  product: in LaTeX ``r^22`` is r^2 followed by 2 and ``2 3`` prints as 23,
+  so a later number is refused, with a hint to write ``r^{22}`` or ``\cdot``.
+* A ``/`` followed by a product of several factors (``1/2M``) is refused as
+  ambiguous; ``\frac{1}{2M}`` or parentheses say what is meant.  Otherwise
+  ``*``, ``/``, ``\cdot`` and ``\times`` group to the left, as in
+  :mod:`stepper.parse`.
+* Without braces, ``^``, ``_``, and the arguments of ``\frac`` and ``\sqrt``
+  take one character or one Greek letter, as TeX does: ``\frac12`` is 1/2.
+  Braces ``{ }`` group without being printed, so ``{\sin\theta}^2`` is
+  (sin theta)^2.
+* A plain letter is a one-letter name.  A declared longer name is written
+  ``\mathrm{name}``, ``\text{name}`` or ``\operatorname{name}``; Greek
+  letters map to the declared name spelled the same (``\theta`` -> ``theta``;
+  ``\varphi``, ``\vartheta``, ``\varepsilon``, ``\varrho``, ``\varsigma`` fall
+  back to the plain letter's name).  ``X_{sub}`` is the declared name
+  ``X_sub`` or else ``Xsub``.  An undeclared ``e`` is Euler's number and an
+  undeclared ``\pi`` is pi.
+* A function (``\sin \cos \tan \cot \sec \csc \sinh \cosh \tanh \coth \exp
+  \ln \log``; ``\log`` is the natural logarithm) takes either a group in
+  ``( )`` or ``[ ]`` -- a power after the closing parenthesis applies to the
+  function's value, ``\sin(\theta)^2``, also when the group is wrapped in
+  braces, ``\log{\left(r\right)}^{2}``, as sympy's printer writes it -- or,
+  without parentheses, the
+  product that follows, which ends before the next ``+``, ``-``, written
+  operator, closing bracket, function, opening ``(`` or ``[``, spacing
+  command (``\,`` ...), and before a ``\frac`` or ``\sqrt`` that is not its
+  first factor: ``\cos 2\theta`` is cos(2 theta), ``\sin\theta\cos\theta`` is
+  a product of two functions, ``\sin\theta^2`` is sin(theta^2),
+  ``\sin\theta\,r`` is sin(theta) r.
+* ``\sin^2\theta`` is sin(theta)^2; a negative power on a function name is
+  refused, because ``\sin^{-1}`` usually means the inverse function.
+* A declared function is written ``a`` or ``a(t)``; its derivative with
+  respect to its one argument is ``a'``, ``a''``, ``\dot a``, ``\ddot a``
+  (``\dot{a}``, ``a'(t)``, ``\dot a^2`` = (da/dt)^2).  A declared function
+  followed by ``(`` is always a call, checked against its declaration.
+* Spacing (``\, \; \: \! \quad \qquad ~`` and ``\`` followed by a space),
+  ``\displaystyle``, ``\left.`` and ``\right.`` are ignored; so is one
+  trailing ``.`` or ``,``, and one pair of surrounding ``$...$``,
+  ``$$...$$``, ``\(...\)`` or ``\[...\]``.
+
+Everything else -- unknown commands (``\input``, ``\def`` ...), ``=``, ``&``,
+``\\``, ``$`` inside, ``%``, ``#``, unbalanced brackets -- is refused.
+"""
+
+from __future__ import annotations
+
+import re
+from types import MappingProxyType
+from typing import Mapping, NamedTuple, NoReturn
+
+import sympy
+from sympy.core.function import AppliedUndef
+
+from stepper.errors import InputError
+from stepper.parse import (
+    ELEMENTARY_FUNCTIONS,
+    MAX_CONSTANT_NESTING,
+    MAX_DEPTH,
+    MAX_NUMBER_BITS,
+    MAX_TEXT_LENGTH,
+    Vocabulary,
+)
+
+__all__ = ["FUNCTION_COMMANDS", "GREEK_LETTERS", "parse_latex"]
+
+FUNCTION_COMMANDS: frozenset[str] = frozenset(
+    ["sin", "cos", "tan", "cot", "sec", "csc", "sinh", "cosh", "tanh", "coth", "exp", "ln", "log"]
+)
+"""Commands, without the backslash, that apply an elementary function."""
+
+GREEK_LETTERS: Mapping[str, tuple[str, ...]] = MappingProxyType(
+    {
+        **{
+            letter: (letter,)
+            for letter in (
+                "alpha beta gamma delta epsilon zeta eta theta iota kappa lambda mu nu xi "
+                "rho sigma tau upsilon phi chi psi omega "
+                "Gamma Delta Theta Lambda Xi Pi Sigma Upsilon Phi Psi Omega"
+            ).split()
+        },
+        "pi": ("pi",),
+        "varepsilon": ("varepsilon", "epsilon"),
+        "vartheta": ("vartheta", "theta"),
+        "varrho": ("varrho", "rho"),
+        "varsigma": ("varsigma", "sigma"),
+        "varphi": ("varphi", "phi"),
+    }
+)
+"""Greek-letter commands -> the declared names they stand for, in the order tried."""
+
+_FRACTIONS = frozenset(["frac", "dfrac", "tfrac"])
+_DOTS = MappingProxyType({"dot": 1, "ddot": 2})
+_NAME_WRAPPERS = frozenset(["mathrm", "text", "operatorname"])
+_SPACING = frozenset(["\\,", "\\;", "\\:", "\\!", "\\ ", "\\quad", "\\qquad"])
+_IGNORED = frozenset(["displaystyle"])
+_SIZES = frozenset(
+    size + side for size in ("big", "Big", "bigg", "Bigg") for side in ("", "l", "r")
+)
+_CLOSING = MappingProxyType({"(": ")", "[": "]", "{": "}"})
+_CHARACTER_HINTS = MappingProxyType(
+    {
+        "=": " (give only the expression, not an equation)",
+        "&": " (alignment is not accepted)",
+        "$": " (math delimiters are accepted only around the whole text)",
+        "%": " (comments are not accepted)",
+        "|": " (absolute values are not accepted)",
+    }
+)
+_DECLARABLE = re.compile(r"[A-Za-z][A-Za-z0-9]*")
+_MAX_DIGITS = 700  # 10**700 has more than MAX_NUMBER_BITS bits
+_WRAPPERS = (("$$", "$$"), ("$", "$"), ("\\(", "\\)"), ("\\[", "\\]"))
+_BLANK = " \t\r\n"
+_UNDEFINED = frozenset({sympy.zoo, sympy.nan, sympy.oo, -sympy.oo})
+
+
+def _show(text: str) -> str:
+    """Quote a token for a one-line message, shortening long ones."""
+    if len(text) > 40:
+        text = text[:37] + "..."
+    if len(text) == 1 and not text.isprintable():
+        return f"U+{ord(text):04X}"
+    quoted = f'"{text}"' if "'" in text else f"'{text}'"
+    if len(text) == 1 and not text.isascii():
+        quoted += f" (U+{ord(text):04X})"
+    return quoted
+
+
+def _brief(expression: sympy.Expr) -> str:
+    """A short printed form of an expression for messages."""
+    printed = str(expression)
+    return printed if len(printed) <= 60 else printed[:57] + "..."
+
+
+def parse_latex(text: str, vocabulary: Vocabulary, where: str) -> sympy.Expr:
+    """Turn LaTeX math ``text`` into a sympy expression using only the names in ``vocabulary``.
+
+    ``where`` labels the text in error messages, e.g. ``"claimed Ricci scalar"``.
+    """
+    if not isinstance(text, str):
+        raise InputError(f"{where} must be text, not {type(text).__name__}")
+    if len(text) > MAX_TEXT_LENGTH:
+        raise InputError(
+            f"{where} is too long: {len(text)} characters (the limit is {MAX_TEXT_LENGTH})"
+        )
+    start, stop = _math_bounds(text)
+    tokens = _tokenize(text, start, stop)
+    if len(tokens) > 1 and (tokens[-2].kind == "dot" or tokens[-2].text == ","):
+        del tokens[-2]  # a sentence's full stop or comma after the formula
+    if tokens[0].kind == "end":
+        raise InputError(f"empty expression in {where}")
+    reader = _Reader(tokens, vocabulary, where, text)
+    try:
+        result = reader.parse()
+    except RecursionError:
+        # sympy recurses through nested expressions too, so very deep nesting
+        # can exhaust Python's stack before MAX_DEPTH is reached.
+        token = reader.peek()
+        near = _show(token.text) if token.text else "the end of the text"
+        raise InputError(
+            f"too deeply nested to evaluate, near {near} at column {token.column} of {where}"
+        ) from None
+    if reader.facts(result).undefined:
+        raise InputError(f"expression in {where} is undefined (division by zero?)")
+    return result
+
+
+def _math_bounds(text: str) -> tuple[int, int]:
+    """Start and stop of the formula: surrounding blanks and one pair of math
+    delimiters (with a full stop or comma after it) left out."""
+    start, stop = 0, len(text)
+    while start < stop and text[start] in _BLANK:
+        start += 1
+    while stop > start and text[stop - 1] in _BLANK:
+        stop -= 1
+    ends = [stop]
+    if stop > start and text[stop - 1] in ".,":
+        end = stop - 1
+        while end > start and text[end - 1] in _BLANK:
+            end -= 1
+        ends.append(end)
+    for opener, closer in _WRAPPERS:
+        for end in ends:
+            if (
+                end - start >= len(opener) + len(closer)
+                and text.startswith(opener, start)
+                and text.endswith(closer, start, end)
+            ):
+                return start + len(opener), end - len(closer)
+    return start, stop
+
+
+# ---------------------------------------------------------------- tokenizer
+
+
+class _Token(NamedTuple):
+    kind: str
+    """number, letter, name, command, open, close, operator, dot, bad or end."""
+    text: str
+    """As written, for messages."""
+    column: int
+    """1-based column of the first character in the whole text."""
+    start: int
+    """0-based offset of the first character in the whole text."""
+    value: str
+    """Digits; the letter; the name inside \\mathrm{}; the command without its
+    backslash; the bracket; the operator (\\cdot and \\times are "*"); for a bad
+    token the message."""
+    spaced: bool = False
+    """A spacing command comes right before this token."""
+    hint: str = ""
+    """For a bad token: advice appended to the message."""
+
+
+_PIECE = re.compile(
+    r"(?P<blank>[ \t\r\n]+)"
+    r"|(?P<number>[0-9]+(?:\.[0-9]+)?|\.[0-9]+)"
+    r"|(?P<letter>[A-Za-z])"
+    r"|(?P<command>\\(?:[A-Za-z]+|[^A-Za-z]))"
+    r"|(?P<character>.)",
+    re.DOTALL,
+)
+_COMMAND = re.compile(r"\\(?:[A-Za-z]+|[^A-Za-z])|.", re.DOTALL)
+
+
+def _tokenize(text: str, start: int, stop: int) -> list[_Token]:
+    """Split ``text[start:stop]`` into tokens, ending with an "end" token.
+
+    Spacing and ignored commands produce no token.  A character outside the
+    subset becomes a "bad" token and stops the scan; the parser reports it
+    when it gets there, so errors come in reading order.
+    """
+    tokens: list[_Token] = []
+    spaced = False
+    position = start
+
+    def add(kind: str, end: int, value: str, hint: str = "") -> None:
+        nonlocal spaced
+        tokens.append(_Token(kind, text[position:end], position + 1, position, value, spaced, hint))
+        spaced = False
+
+    while position < stop:
+        match = _PIECE.match(text, position, stop)
+        assert match is not None  # the last alternative matches any character
+        kind, piece, end = match.lastgroup, match.group(), match.end()
+        if kind == "blank":
+            pass
+        elif kind in ("number", "letter"):
+            add(kind, end, piece)
+        elif kind == "command":
+            name = piece[1:]
+            if piece in _SPACING:
+                spaced = True
+            elif name in _IGNORED:
+                pass
+            elif name in ("left", "right") or name in _SIZES:
+                end = _sized_delimiter(text, position, end, stop, name, add)
+                if tokens and tokens[-1].kind == "bad":
+                    break
+            elif name in _NAME_WRAPPERS:
+                end = _wrapped_name(text, position, end, stop, name, add)
+                if tokens[-1].kind == "bad":
+                    break
+            elif name in ("cdot", "times"):
+                add("operator", end, "*")
+            else:
+                add("command", end, name)
+        elif piece == "~":
+            spaced = True
+        elif piece in "([{":
+            add("open", end, piece)
+        elif piece in ")]}":
+            add("close", end, piece)
+        elif piece in "+-*/^_',":
+            add("operator", end, piece)
+        elif piece == ".":
+            add("dot", end, piece)
+        else:
+            add("bad", end, f"unexpected character {_show(piece)}", _CHARACTER_HINTS.get(piece, ""))
+            break
+        position = end
+    tokens.append(_Token("end", "", stop + 1, stop, "", spaced))
+    return tokens
+
+
+def _sized_delimiter(text: str, position: int, end: int, stop: int, name: str, add) -> int:
+    """Read the delimiter after \\left, \\right, \\big ...; return where it ends."""
+    after = end
+    while after < stop and text[after] in _BLANK:
+        after += 1
+    piece = _COMMAND.match(text, after, stop) if after < stop else None
+    delimiter = piece.group() if piece else ""
+    if name == "left":
+        allowed = "([."
+    elif name == "right":
+        allowed = ")]."
+    else:
+        allowed = {"l": "([", "r": ")]"}.get(name[-1], "()[]")
+    if len(delimiter) == 1 and delimiter in allowed:
+        if delimiter == ".":
+            return after + 1  # \left. and \right. print nothing
+        add("open" if delimiter in "([" else "close", after + 1, delimiter)
+        return after + 1
+    shown = text[position : after + len(delimiter)]
+    accepted = " ".join(allowed)
+    add(
+        "bad",
+        after + len(delimiter),
+        f"unsupported delimiter {_show(shown)}",
+        f" (after '\\{name}' only {accepted} are accepted)",
+    )
+    return after + len(delimiter)
+
+
+def _wrapped_name(text: str, position: int, end: int, stop: int, name: str, add) -> int:
+    """Read ``\\mathrm{name}`` and its kin as one name token; return where it ends."""
+    opening = end
+    while opening < stop and text[opening] in _BLANK:
+        opening += 1
+    closing = text.find("}", opening, stop) if opening < stop and text[opening] == "{" else -1
+    if closing >= 0:
+        inside = text[opening + 1 : closing].strip(_BLANK)
+        if _DECLARABLE.fullmatch(inside):
+            add("name", closing + 1, inside)
+            return closing + 1
+    add(
+        "bad",
+        end,
+        f"'\\{name}' must be followed by a name in braces",
+        f" (like \\{name}{{rs}})",
+    )
+    return end
+
+
+# ------------------------------------------------------------------- parser
+
+
+class _Facts(NamedTuple):
+    """What the guards need to know about an expression, computed once per node."""
+
+    bits: int  # largest numerator or denominator of an exact number inside, in bits
+    magnitude: int  # largest numerator or denominator inside
+    nesting: int | None  # powers and functions deep, for a constant; None if it has a symbol
+    has_log: bool
+    undefined: bool  # contains zoo, nan or an infinity
+
+
+def _rational_bits(number: sympy.Rational) -> int:
+    return max(abs(number.p).bit_length(), number.q.bit_length())
+
+
+class _SumSize:
+    """Bound, in bits, on the numbers the coefficients of a sum may add up to:
+    the common denominator is at most the product of the denominators, the
+    numerator at most the count times the largest numerator times that product."""
+
+    def __init__(self) -> None:
+        self.numerator_bits = 0
+        self.denominator_bits = 0
+        self.count = 0
+
+    def add(self, term: sympy.Expr) -> int:
+        for part in sympy.Add.make_args(term):
+            coefficient = part.as_coeff_Mul()[0]
+            if coefficient.is_Rational:
+                self.numerator_bits = max(self.numerator_bits, abs(coefficient.p).bit_length())
+                if coefficient.q > 1:
+                    self.denominator_bits += coefficient.q.bit_length()
+                self.count += 1
+        return self.numerator_bits + self.denominator_bits + self.count.bit_length()
+
+
+class _Reader:
+    """Recursive descent over a token list; one instance per text.
+
+    Nesting costs three Python frames per level (expression -> product ->
+    factor), so MAX_DEPTH stays inside Python's default recursion limit.
+    """
+
+    def __init__(self, tokens: list[_Token], vocabulary: Vocabulary, where: str, text: str) -> None:
+        self.tokens = tokens
+        self.index = 0
+        self.depth = 0
+        self.vocabulary = vocabulary
+        self.where = where
+        self.text = text
+        self.memo: dict[sympy.Basic, _Facts] = {}
+        # Token index of each opening bracket read as a group -> index of its closing one.
+        self.group_ends: dict[int, int] = {}
+        # (offset just after, script operator, digit) of the last one-digit
+        # superscript or subscript written without braces, for a hint.
+        self.bare_digit: tuple[int, str, str] | None = None
+
+    # -- token helpers and errors
+
+    def peek(self) -> _Token:
+        return self.tokens[self.index]
+
+    def advance(self) -> _Token:
+        token = self.tokens[self.index]
+        if token.kind != "end":
+            self.index += 1
+        return token
+
+    def at(self, *operators: str) -> bool:
+        token = self.tokens[self.index]
+        return token.kind == "operator" and token.value in operators
+
+    def at_open(self, brackets: str) -> bool:
+        token = self.tokens[self.index]
+        return token.kind == "open" and token.value in brackets
+
+    def fail(self, message: str, column: int, hint: str = "") -> NoReturn:
+        raise InputError(f"{message} at column {column} of {self.where}{hint}")
+
+    def unexpected(self, token: _Token, after: _Token | None = None, hint: str = "") -> NoReturn:
+        if token.kind == "bad":
+            self.fail(token.value, token.column, token.hint)
+        shown = "end of text" if token.kind == "end" else _show(token.text)
+        if after is not None:
+            shown += f" after {_show(after.text)}"
+        if token.kind == "dot" and not hint:
+            hint = " (a '.' is accepted only at the very end)"
+        self.fail(f"unexpected {shown}", token.column, hint)
+
+    def enter(self, token: _Token) -> None:
+        self.depth += 1
+        if self.depth > MAX_DEPTH:
+            self.fail(
+                f"too deeply nested: {_show(token.text)} opens level {self.depth} "
+                f"(the limit is {MAX_DEPTH})",
+                token.column,
+            )
+
+    def check_size(self, bits: int, token: _Token) -> None:
+        if bits > MAX_NUMBER_BITS:
+            self.fail(
+                f"number too large: {_show(token.text)} could make a number "
+                f"of more than {MAX_NUMBER_BITS} bits",
+                token.column,
+            )
+
+    def is_name(self, token: _Token) -> bool:
+        """A letter, a \\mathrm{} name or a Greek letter: something a name is made of."""
+        if token.kind in ("letter", "name"):
+            return True
+        return token.kind == "command" and token.value in GREEK_LETTERS
+
+    def function_of(self, token: _Token) -> str | None:
+        """The elementary function a token applies, if it does."""
+        if token.kind == "command" and token.value in FUNCTION_COMMANDS:
+            return token.value
+        if (
+            token.kind == "name"
+            and token.value in ELEMENTARY_FUNCTIONS
+            and self.lookup(token.value) is None
+        ):
+            return token.value
+        return None
+
+    # -- grammar
+
+    def parse(self) -> sympy.Expr:
+        result = self.expression()
+        token = self.peek()
+        if token.kind == "end":
+            return result
+        if token.kind == "close":
+            self.fail(f"unmatched {_show(token.text)}", token.column)
+        self.unexpected(token)
+
+    def expression(self) -> sympy.Expr:
+        """Terms joined by + and -, each a chain of signed products joined by * and /.
+
+        Each chain is one ``sympy.Mul`` and the sum one ``sympy.Add``, as in
+        stepper.parse, so long texts cost linear time.
+        """
+        terms: list[sympy.Expr] = []
+        sum_size = _SumSize()
+        sign: _Token | None = None
+        while True:
+            factors: list[tuple[sympy.Expr, _Token]] = []
+            operator: _Token | None = None
+            while True:
+                signs: list[_Token] = []
+                while self.at("+", "-"):
+                    signs.append(self.advance())
+                first = self.peek()
+                factor, count = self.product()
+                for mark in reversed(signs):  # a sign negates the whole product, as printed
+                    if mark.value == "-":
+                        factor = -factor
+                if operator is not None and operator.value == "/":
+                    if count > 1:
+                        self.fail(
+                            f"ambiguous {_show(operator.text)}",
+                            operator.column,
+                            f" (it is followed by a product of {count} factors: "
+                            "write \\frac{...}{...} or use parentheses)",
+                        )
+                    factor = self.reciprocal(factor, operator)
+                factors.append((factor, operator or first))
+                if not self.at("*", "/"):
+                    break
+                operator = self.advance()
+            term = self.multiply(factors)
+            if sign is not None:
+                if sign.value == "-":
+                    term = -term
+                self.check_size(sum_size.add(term), sign)
+            terms.append(term)
+            if not self.at("+", "-"):
+                break
+            sign = self.advance()
+            if len(terms) == 1:
+                sum_size.add(terms[0])
+        return terms[0] if len(terms) == 1 else sympy.Add(*terms)
+
+    def starts_factor(self, token: _Token) -> bool:
+        return token.kind in ("number", "letter", "name", "command", "open")
+
+    def ends_argument(self, token: _Token) -> bool:
+        """Whether ``token`` ends a function's argument written without parentheses
+        (asked only once the argument has a factor)."""
+        if token.spaced or self.function_of(token) is not None:
+            return True
+        if token.kind == "open" and token.value in "([":
+            return True
+        return token.kind == "command" and (token.value in _FRACTIONS or token.value == "sqrt")
+
+    def product(
+        self,
+        argument_of: _Token | None = None,
+        first: tuple[sympy.Expr, _Token] | None = None,
+    ) -> tuple[sympy.Expr, int]:
+        """Factors written side by side, and how many there were.
+
+        With ``argument_of`` (a function token) this is that function's
+        argument written without parentheses, which ends earlier; ``first``
+        is a factor already read.
+        """
+        factors: list[tuple[sympy.Expr, _Token]] = [first] if first is not None else []
+        while True:
+            token = self.peek()
+            if not self.starts_factor(token):
+                break
+            if factors and argument_of is not None and self.ends_argument(token):
+                break
+            if factors and token.kind == "number":
+                self.number_after_factor(token)
+            factors.append((self.factor(), token))
+        if not factors:
+            if argument_of is not None:
+                self.unexpected(token, hint=f" (the argument of {_show(argument_of.text)} is missing)")
+            self.unexpected(token)
+        return self.multiply(factors), len(factors)
+
+    def number_after_factor(self, token: _Token) -> NoReturn:
+        hint = " (a number comes first in a product; use \\cdot or \\times otherwise)"
+        if self.bare_digit is not None and self.bare_digit[0] == token.start:
+            _, script, digit = self.bare_digit
+            hint = (
+                f" (without braces {script} takes one character: write "
+                f"{script}{{{digit}{token.text}}}, or use \\cdot for a product)"
+            )
+        self.fail(f"number {_show(token.text)} follows a factor", token.column, hint)
+
+    def factor(self) -> sympy.Expr:
+        token = self.peek()
+        if token.kind == "number":
+            self.advance()
+            return self.scripts_of_value(self.number(token))
+        if token.kind == "open":
+            start = self.index
+            opening = self.advance()
+            self.enter(opening)
+            value = self.expression()
+            self.close(opening)
+            self.depth -= 1
+            self.group_ends[start] = self.index - 1
+            return self.scripts_of_value(value)
+        function = self.function_of(token)
+        if function is not None:
+            return self.function_application(token, function)
+        if self.is_name(token) or (token.kind == "command" and token.value in _DOTS):
+            return self.named(token)
+        if token.kind == "command" and token.value in _FRACTIONS:
+            return self.scripts_of_value(self.fraction(self.advance()))
+        if token.kind == "command" and token.value == "sqrt":
+            return self.scripts_of_value(self.root(self.advance()))
+        if token.kind == "command":
+            hint = " (line breaks are not accepted)" if token.text == "\\\\" else ""
+            self.fail(f"unknown command {_show(token.text)}", token.column, hint)
+        self.unexpected(token)
+
+    def scripts_of_value(self, value: sympy.Expr) -> sympy.Expr:
+        """An optional power after a number, group, fraction or root."""
+        if self.at("^"):
+            caret = self.advance()
+            value = self.power(value, self.superscript(caret), caret)
+        self.no_more_scripts()
+        return value
+
+    def no_more_scripts(self) -> None:
+        token = self.peek()
+        if self.at("^"):
+            self.fail("double superscript '^'", token.column, " (use braces to group)")
+        if self.at("_"):
+            self.fail("unexpected '_'", token.column, " (a subscript belongs to a name)")
+        if self.at("'"):
+            self.fail(
+                f"unexpected {_show(token.text)}", token.column,
+                " (a prime belongs to a declared function)",
+            )
+
+    def close(self, opening: _Token) -> None:
+        token = self.peek()
+        expected = _CLOSING[opening.value]
+        if token.kind == "close" and token.value == expected:
+            self.advance()
+        elif token.kind == "end":
+            self.fail(f"unmatched {_show(opening.text)}", opening.column)
+        elif token.kind == "close":
+            self.fail(
+                f"unexpected {_show(token.text)}",
+                token.column,
+                f" (expected {_show(expected)} to close {_show(opening.text)} "
+                f"of column {opening.column})",
+            )
+        else:
+            self.unexpected(token)
+
+    def superscript(self, caret: _Token) -> sympy.Expr:
+        """What follows ^: a braced group, one digit, or one name."""
+        token = self.peek()
+        if self.at_open("{"):
+            opening = self.advance()
+            self.enter(opening)
+            value = self.expression()
+            self.close(opening)
+            self.depth -= 1
+            return value
+        if token.kind == "number":
+            return self.one_digit(token, caret, remember=True)
+        if self.is_name(token):
+            self.advance()
+            return self.resolve(token, None)[0]
+        self.unexpected(
+            token, caret, " (without braces a superscript is one character: write ^{...})"
+        )
+
+    def argument(self, command: _Token) -> sympy.Expr:
+        """An argument of \\frac or \\sqrt: a braced group, one digit, or one name."""
+        token = self.peek()
+        if self.at_open("{"):
+            opening = self.advance()
+            self.enter(opening)
+            value = self.expression()
+            self.close(opening)
+            self.depth -= 1
+            return value
+        if token.kind == "number":
+            return self.one_digit(token, command, remember=False)
+        if self.is_name(token):
+            self.advance()
+            return self.resolve(token, None)[0]
+        self.unexpected(
+            token, command,
+            f" (the arguments of {_show(command.text)} are braced groups or single characters)",
+        )
+
+    def one_digit(self, token: _Token, script: _Token, remember: bool) -> sympy.Integer:
+        """Take the first digit of a number token, leaving the rest as a number."""
+        digit = token.text[0]
+        if not digit.isdigit():
+            self.unexpected(token, script)
+        if len(token.text) > 1:
+            rest = token.text[1:]
+            self.tokens[self.index] = token._replace(
+                text=rest, value=rest, column=token.column + 1, start=token.start + 1, spaced=False
+            )
+        else:
+            self.advance()
+        self.bare_digit = (token.start + 1, script.text, digit) if remember else None
+        return sympy.Integer(int(digit))
+
+    def fraction(self, command: _Token) -> sympy.Expr:
+        numerator = self.argument(command)
+        denominator = self.argument(command)
+        return self.multiply([(numerator, command), (self.reciprocal(denominator, command), command)])
+
+    def root(self, command: _Token) -> sympy.Expr:
+        index: sympy.Expr = sympy.Integer(2)
+        if self.at_open("[") and self.peek().text == "[":
+            opening = self.advance()
+            self.enter(opening)
+            index = self.expression()
+            self.close(opening)
+            self.depth -= 1
+            if index == 0:
+                self.fail(f"{_show(command.text)} of index zero", opening.column)
+        radicand = self.argument(command)
+        exponent = self.reciprocal(index, command)
+        return self.power(radicand, exponent, command)
+
+    def function_application(self, token: _Token, function: str) -> sympy.Expr:
+        """An elementary function with its optional power and its argument."""
+        self.advance()
+        self.enter(token)
+        caret: _Token | None = None
+        exponent: sympy.Expr | None = None
+        if self.at("^"):
+            caret = self.advance()
+            exponent = self.superscript(caret)
+            if exponent.could_extract_minus_sign():
+                self.fail(
+                    f"negative power {_brief(exponent)} on function {_show(token.text)}",
+                    caret.column,
+                    f" ({token.text}^{{-1}} often means the inverse function; "
+                    f"write \\frac{{1}}{{{token.text} x}} or ({token.text} x)^{{...}})",
+                )
+        if self.at("_"):
+            self.fail(
+                f"unexpected '_' after {_show(token.text)}", self.peek().column,
+                " (a function takes no subscript)",
+            )
+        late_caret: _Token | None = None
+        late_exponent: sympy.Expr | None = None
+        visible = self.at_open("([")
+        if visible:
+            opening = self.advance()
+            self.enter(opening)
+            argument = self.expression()
+            self.close(opening)
+            self.depth -= 1
+        elif self.at_open("{") and self.tokens[self.index + 1].kind == "open":
+            # Braces around a parenthesised argument, {\left( ... \right)}, print
+            # like the parentheses alone (sympy's printer writes them so).
+            brace = self.advance()
+            self.enter(brace)
+            start = self.index
+            argument = self.expression()
+            visible = self.group_ends.get(start) == self.index - 1
+            self.close(brace)
+            self.depth -= 1
+            if not visible:
+                argument = self.scripts_of_value(argument)
+                argument, _ = self.product(argument_of=token, first=(argument, brace))
+        else:
+            argument, _ = self.product(argument_of=token)
+        if visible:
+            if self.at("^"):
+                late_caret = self.advance()
+                if caret is not None:
+                    self.fail("double superscript '^'", late_caret.column, " (use braces to group)")
+                late_exponent = self.superscript(late_caret)
+        self.depth -= 1
+        value = self.apply(token, function, argument)
+        if caret is not None and exponent is not None:
+            value = self.power(value, exponent, caret)
+        if late_caret is not None and late_exponent is not None:
+            value = self.power(value, late_exponent, late_caret)
+        self.no_more_scripts()
+        return value
+
+    def named(self, token: _Token) -> sympy.Expr:
+        """A name with its subscript, primes, power and call, or a dotted name."""
+        self.advance()
+        order = _DOTS.get(token.value, 0) if token.kind == "command" else 0
+        base, subscript = (self.dotted(token) if order else (token, None))
+        primes: list[_Token] = []
+        caret: _Token | None = None
+        exponent: sympy.Expr | None = None
+        while True:
+            mark = self.peek()
+            if self.at("_"):
+                self.advance()
+                if subscript is not None:
+                    self.fail("double subscript '_'", mark.column, " (use braces to group)")
+                subscript = self.subscript(mark)
+            elif self.at("'"):
+                self.advance()
+                if caret is not None or order:
+                    self.fail(f"unexpected {_show(mark.text)}", mark.column,
+                              " (write primes before the superscript, and not with \\dot)")
+                primes.append(mark)
+            elif self.at("^"):
+                self.advance()
+                if caret is not None:
+                    self.fail("double superscript '^'", mark.column, " (use braces to group)")
+                caret, exponent = mark, self.superscript(mark)
+            else:
+                break
+        value, kind, name = self.resolve(base, subscript)
+        if order or primes:
+            marker = token if order else primes[0]
+            value = self.derivative(value, kind, name, marker, order or len(primes))
+        if kind == "function" and self.at_open("("):
+            self.call(self.vocabulary.functions[name], name, base)
+            if self.at("^"):
+                mark = self.advance()
+                if caret is not None:
+                    self.fail("double superscript '^'", mark.column, " (use braces to group)")
+                caret, exponent = mark, self.superscript(mark)
+        if caret is not None and exponent is not None:
+            value = self.power(value, exponent, caret)
+        self.no_more_scripts()
+        return value
+
+    def dotted(self, dot: _Token) -> tuple[_Token, str | None]:
+        """The name after \\dot or \\ddot, bare or in braces, with a subscript inside braces."""
+        token = self.peek()
+        if self.at_open("{"):
+            opening = self.advance()
+            name = self.peek()
+            if not self.is_name(name):
+                self.unexpected(name, dot, f" ({_show(dot.text)} takes a declared function)")
+            self.advance()
+            subscript = None
+            if self.at("_"):
+                subscript = self.subscript(self.advance())
+            self.close(opening)
+            return name, subscript
+        if self.is_name(token):
+            self.advance()
+            return token, None
+        self.unexpected(token, dot, f" ({_show(dot.text)} takes a declared function)")
+
+    def subscript(self, underscore: _Token) -> str:
+        """The text of a subscript: letters, digits, Greek letters, \\mathrm{} names."""
+        token = self.peek()
+        if self.at_open("{"):
+            opening = self.advance()
+            parts: list[str] = []
+            while True:
+                part = self.peek()
+                if part.kind == "close" and part.value == "}":
+                    break
+                if part.kind == "number" and part.value.isdigit():
+                    parts.append(part.value)
+                elif self.is_name(part):
+                    parts.append(part.value)
+                else:
+                    self.unexpected(
+                        part, None, " (a subscript holds letters and digits only)"
+                    )
+                self.advance()
+            if not parts:
+                self.unexpected(self.peek(), underscore, " (empty subscript)")
+            self.close(opening)
+            return "".join(parts)
+        if token.kind == "number":
+            return str(self.one_digit(token, underscore, remember=True))
+        if self.is_name(token):
+            self.advance()
+            return token.value
+        self.unexpected(token, underscore, " (a subscript holds letters and digits only)")
+
+    def call(self, declared: sympy.Expr, name: str, token: _Token) -> None:
+        """Read ``( arguments )`` after a declared function and check them."""
+        opening = self.advance()
+        self.enter(opening)
+        arguments = [self.expression()]
+        while self.at(","):
+            self.advance()
+            arguments.append(self.expression())
+        self.close(opening)
+        self.depth -= 1
+        if tuple(arguments) != tuple(declared.args):
+            expected = ", ".join(_brief(argument) for argument in declared.args)
+            actual = ", ".join(_brief(argument) for argument in arguments)
+            self.fail(
+                f"function {_show(name)} is declared with arguments ({expected}) "
+                f"but called with ({actual})",
+                token.column,
+                " (write \\cdot for a product)",
+            )
+
+    # -- names
+
+    def lookup(self, name: str) -> tuple[sympy.Expr, str] | None:
+        """A declared name's value and kind, in the resolution order of stepper.parse."""
+        vocabulary = self.vocabulary
+        if name in vocabulary.symbols:
+            return vocabulary.symbols[name], "symbol"
+        if name in vocabulary.abbreviations:
+            return vocabulary.abbreviations[name], "abbreviation"
+        if name in vocabulary.functions:
+            return vocabulary.functions[name], "function"
+        return None
+
+    def resolve(self, base: _Token, subscript: str | None) -> tuple[sympy.Expr, str, str]:
+        """The value, kind and declared name that a name token (and subscript) stands for."""
+        stems = GREEK_LETTERS[base.value] if base.kind == "command" else (base.value,)
+        if subscript is None:
+            names = list(stems)
+        else:
+            names = [name for stem in stems for name in (f"{stem}_{subscript}", f"{stem}{subscript}")]
+        for name in names:
+            found = self.lookup(name)
+            if found is not None:
+                return found[0], found[1], name
+        if subscript is None and base.kind == "command" and base.value == "pi":
+            return sympy.pi, "constant", "pi"
+        if subscript is None and base.kind != "command" and base.value == "e":
+            return sympy.E, "constant", "e"
+        shown = base.text if subscript is None else f"{base.text}_{subscript}"
+        tried = " or ".join(_show(name) for name in names)
+        hint = self.word_hint(base) if base.kind == "letter" and subscript is None else ""
+        if not hint and (subscript is not None or base.kind == "command"):
+            hint = f" (no declared name {tried})"
+        self.fail(f"unknown name {_show(shown)}", base.column, hint)
+
+    def word_hint(self, letter: _Token) -> str:
+        """Advice when an unknown letter begins or sits in a word that means something."""
+        text = self.text
+        first, last = letter.start, letter.start + 1
+        while first > 0 and text[first - 1].isascii() and text[first - 1].isalpha():
+            first -= 1
+        while last < len(text) and text[last].isascii() and text[last].isalpha():
+            last += 1
+        for word in (text[first:last], text[letter.start : last]):
+            if len(word) < 2:
+                continue
+            ways = [f"\\{word}"] if word in FUNCTION_COMMANDS or word in GREEK_LETTERS else []
+            if self.lookup(word) is not None:
+                ways.append(f"\\mathrm{{{word}}}")
+            if ways:
+                return f" (write {' or '.join(ways)})"
+        return ""
+
+    def derivative(
+        self, value: sympy.Expr, kind: str, name: str, marker: _Token, order: int
+    ) -> sympy.Expr:
+        if kind != "function":
+            self.fail(
+                f"{_show(marker.text)} on {_show(name)}",
+                marker.column,
+                f" ({_show(name)} is not a declared function)",
+            )
+        if len(value.args) != 1 or not isinstance(value.args[0], sympy.Symbol):
+            arguments = ", ".join(_brief(argument) for argument in value.args)
+            self.fail(
+                f"{_show(marker.text)} on {_show(name)}",
+                marker.column,
+                f" ({_show(name)} is declared with arguments ({arguments}); a dot or prime "
+                "needs a function of one variable)",
+            )
+        return sympy.Derivative(value, (value.args[0], order))
+
+    # -- numbers and guards (the guards of stepper.parse)
+
+    def number(self, token: _Token) -> sympy.Rational:
+        """An exact rational from decimal digits: 2.5 -> 5/2."""
+        whole, _, fraction = token.value.partition(".")
+        digits = (whole + fraction).lstrip("0")
+        if len(digits) > _MAX_DIGITS:  # refuse hopeless sizes before converting
+            self.check_size(MAX_NUMBER_BITS + 1, token)
+        value = sympy.Rational(int(digits or "0"), 10 ** len(fraction))
+        self.check_size(_rational_bits(value), token)
+        return value
+
+    def facts(self, expression: sympy.Basic) -> _Facts:
+        """Facts about an expression, computed without recursion and memoised.
+
+        Shared sub-expressions are visited once, so this stays linear even
+        when abbreviations make the expression tree far larger than its text.
+        """
+        memo = self.memo
+        pending: list[tuple[sympy.Basic, bool]] = [(expression, False)]
+        while pending:
+            node, children_done = pending.pop()
+            if node in memo:
+                continue
+            if not children_done:
+                pending.append((node, True))
+                pending.extend((child, False) for child in node.args if child not in memo)
+                continue
+            children = [memo[child] for child in node.args]
+            bits = max((child.bits for child in children), default=0)
+            magnitude = max((child.magnitude for child in children), default=0)
+            if node.is_Rational:
+                bits = _rational_bits(node)
+                magnitude = max(abs(node.p), node.q)
+            nesting: int | None
+            if node.is_Symbol or isinstance(node, AppliedUndef):
+                nesting = None
+            elif any(child.nesting is None for child in children):
+                nesting = None
+            else:
+                own = 1 if (node.is_Pow or node.is_Function) else 0
+                nesting = own + max((child.nesting or 0 for child in children), default=0)
+            memo[node] = _Facts(
+                bits=bits,
+                magnitude=magnitude,
+                nesting=nesting,
+                has_log=isinstance(node, sympy.log) or any(c.has_log for c in children),
+                undefined=node in _UNDEFINED or any(c.undefined for c in children),
+            )
+        return memo[expression]
+
+    def exp_bits(self, argument: sympy.Expr) -> int:
+        """Bound on the bits of the number sympy may make of ``exp(argument)``:
+        it rewrites exp(c*log(b)) as b^c, about c*bits(b) bits for numbers."""
+        total = 0
+        for term in sympy.Add.make_args(argument):
+            coefficient, rest = term.as_coeff_Mul()
+            facts = self.facts(rest)
+            if facts.has_log:
+                scale = abs(coefficient.p) if coefficient.is_Rational else 1
+                total += facts.bits * max(1, scale)
+        return total
+
+    def check_nesting(self, parts: tuple[sympy.Expr, ...], token: _Token) -> None:
+        """Bound how deep powers and functions nest inside a constant (sympy
+        settles questions about constants by costly numerical evaluation)."""
+        levels = [self.facts(part).nesting for part in parts]
+        if any(level is None for level in levels):
+            return
+        level = 1 + max(level or 0 for level in levels)
+        if level > MAX_CONSTANT_NESTING:
+            self.fail(
+                f"constant too deeply nested: {_show(token.text)} makes {level} levels "
+                f"of powers and functions (the limit is {MAX_CONSTANT_NESTING})",
+                token.column,
+            )
+
+    def multiply(self, factors: list[tuple[sympy.Expr, _Token]]) -> sympy.Expr:
+        """One sympy.Mul for a chain of factors, after bounding its numbers."""
+        bits = 0
+        for factor, token in factors:
+            bits += self.facts(factor).bits  # the numbers of the factors may multiply
+            self.check_size(bits, token)
+        if len(factors) == 1:
+            return factors[0][0]
+        result = sympy.Mul(*(factor for factor, _ in factors))
+        if result in _UNDEFINED:
+            self.fail("undefined product (division by zero?)", factors[-1][1].column)
+        return result
+
+    def reciprocal(self, value: sympy.Expr, token: _Token) -> sympy.Expr:
+        if value == 0:
+            self.fail("division by zero", token.column)
+        return value**-1
+
+    def power(self, base: sympy.Expr, exponent: sympy.Expr, token: _Token) -> sympy.Expr:
+        # Estimate what sympy would compute before asking it to.
+        base_facts = self.facts(base)
+        if exponent.is_Rational:
+            estimate = base_facts.bits * max(1, abs(exponent.p))
+        else:
+            # exp(a)^(c*log(b)) becomes b^(a*c).
+            estimate = max(base_facts.bits, max(1, base_facts.magnitude) * self.exp_bits(exponent))
+        self.check_size(estimate, token)
+        self.check_nesting((base, exponent), token)
+        result = base**exponent
+        if result in _UNDEFINED:
+            self.fail("division by zero" if base == 0 else "undefined power", token.column)
+        return result
+
+    def apply(self, token: _Token, function: str, argument: sympy.Expr) -> sympy.Expr:
+        if function == "exp":
+            self.check_size(self.exp_bits(argument), token)
+        self.check_nesting((argument,), token)
+        result = ELEMENTARY_FUNCTIONS[function](argument)
+        if self.facts(result).undefined:
+            self.fail(
+                f"function {_show(token.text)} is undefined for argument {_brief(argument)}",
+                token.column,
+            )
+        return result
