@@ -59,11 +59,10 @@ def printer_stable(expr: sympy.Expr) -> sympy.Expr:
     """The same expression in a form that sympy's string printer and sympify
     map to itself.
 
-    sympify evaluates ``2*(a + b)`` by distributing the number over the sum,
-    so a product holding a rational coefficient and a sum would come back
-    different from the object that was printed.  Here the coefficient is
-    absorbed into the first sum in the numerator (or, failing that, divided
-    into the first sum in the denominator), which is what reading would do.
+    Reading evaluates ``2*(a + b)`` by distributing the number over the sum.
+    The printer writes a product as ``p*F1*F2/(q*D1*D2)``; when F1 (or D1) is
+    a sum and p (or q) is not 1, reading would distribute, so the number is
+    multiplied into that sum here, which is what reading would do.
     """
     if expr.is_Atom:
         return expr
@@ -73,19 +72,22 @@ def printer_stable(expr: sympy.Expr) -> sympy.Expr:
     rebuilt = sympy.Mul(*args)
     if not isinstance(rebuilt, sympy.Mul):
         return rebuilt
-    coefficient, rest = rebuilt.as_coeff_Mul()
-    if coefficient == 1:
+    coefficient, _ = rebuilt.as_coeff_Mul()
+    if coefficient == 1 or not coefficient.is_Rational:
         return rebuilt
-    factors = list(sympy.Mul.make_args(rest))
-    for i, f in enumerate(factors):
-        if isinstance(f, sympy.Add):
-            factors[i] = sympy.expand(coefficient * f)
-            return sympy.Mul(*factors)
-    for i, f in enumerate(factors):
-        if isinstance(f, sympy.Pow) and f.exp == -1 and isinstance(f.base, sympy.Add):
-            factors[i] = 1 / sympy.expand(f.base / coefficient)
-            return sympy.Mul(*factors)
-    return rebuilt
+    factors = [f for f in rebuilt.as_ordered_factors() if not f.is_Number]
+    numerator = [f for f in factors if not (f.is_Pow and f.exp.is_negative)]
+    denominator = [f for f in factors if f.is_Pow and f.exp.is_negative]
+    p, q = coefficient.p, coefficient.q
+    if p != 1 and numerator and isinstance(numerator[0], sympy.Add):
+        numerator[0] = sympy.expand(p * numerator[0])
+        p = 1
+    if q != 1 and denominator and isinstance(denominator[0].base, sympy.Add) and denominator[0].exp == -1:
+        denominator[0] = 1 / sympy.expand(q * denominator[0].base)
+        q = 1
+    if (p, q) == (coefficient.p, coefficient.q):
+        return rebuilt
+    return printer_stable(sympy.Mul(sympy.Rational(p, q), *numerator, *denominator))
 
 
 def as_expression(value) -> sympy.Expr:

@@ -15,7 +15,9 @@ from pathlib import Path
 from typing import Sequence
 
 from . import __version__
+from .audit import audit, record_audit
 from .chain import Derivation, TimeLimitReached, default_jobs, derive
+from .claims import load_claims
 from .errors import InputError
 from .metricfile import load_metric
 from .exporters import EXPORTERS, TexFailed, TexMissing
@@ -39,6 +41,19 @@ def build_parser() -> argparse.ArgumentParser:
                                           "trace.json, report.tex, appendix.tex, report.pdf and derivation.ipynb "
                                           "into DIR (default: out/<file name without .toml>).")
     run.add_argument("file", metavar="FILE", help="metric file (TOML)")
+    _add_output_options(run)
+    check = commands.add_parser(
+        "audit", help="check claimed results (a hand calculation) against the derivation",
+        description="Read a claims file (TOML naming a metric file and listing claimed components in plain "
+                    "syntax or LaTeX), derive the metric, and say for each claim whether it agrees, differs "
+                    "(with the correct value and the likely slip) or cannot be decided; name the earliest "
+                    "wrong claim. Exit status 0 only when every claim agrees.")
+    check.add_argument("file", metavar="CLAIMS", help="claims file (TOML)")
+    _add_output_options(check)
+    return parser
+
+
+def _add_output_options(run: argparse.ArgumentParser) -> None:
     run.add_argument("-o", "--output", metavar="DIR", help="folder for the outputs (default: out/<file stem>)")
     run.add_argument("--quiet", action="store_true", help="print nothing but errors")
     run.add_argument("--skip-invariants", action="store_true",
@@ -54,7 +69,6 @@ def build_parser() -> argparse.ArgumentParser:
                      help="stop cleanly, writing nothing, when the derivation takes longer than this")
     run.add_argument("--templates", metavar="DIR",
                      help="folder of templates that override the project's templates/ (same file names)")
-    return parser
 
 
 class _Progress:
@@ -109,9 +123,19 @@ def summary(derivation: Derivation, out_dir: Path, written: Sequence[str]) -> st
 
 
 def run_derive(args: argparse.Namespace) -> int:
-    formats = _formats(args.formats)
     metric = load_metric(args.file)
     out_dir = Path(args.output) if args.output else Path("out") / Path(args.file).stem
+    return _derive_and_export(args, metric, out_dir)
+
+
+def run_audit(args: argparse.Namespace) -> int:
+    metric, title, claims = load_claims(args.file)
+    out_dir = Path(args.output) if args.output else Path("out") / Path(args.file).stem
+    return _derive_and_export(args, metric, out_dir, title=title, claims=claims)
+
+
+def _derive_and_export(args: argparse.Namespace, metric, out_dir: Path, title: str = "", claims=None) -> int:
+    formats = _formats(args.formats)
     if out_dir.exists() and not out_dir.is_dir():
         raise InputError(f"output folder {out_dir} exists and is not a folder")
     templates = [Path(args.templates)] if args.templates else []
@@ -129,9 +153,14 @@ def run_derive(args: argparse.Namespace) -> int:
         sys.stderr.write(f"stepper: stopped: the time limit of {args.time_limit:g} s was reached during {stop}; "
                          "nothing was written\n")
         return 3
+    status = 0
+    if claims is not None:
+        verdicts, earliest = audit(derivation, claims)
+        record_audit(derivation, title, verdicts, earliest)
+        if not derivation.results["audit"]["all_agree"]:
+            status = 1
     contents: dict[str, str | bytes] = {}
     problems: list[str] = []
-    status = 0
     for name in formats:
         exporter = EXPORTERS[name](templates)
         try:
@@ -155,6 +184,8 @@ def run_derive(args: argparse.Namespace) -> int:
         written.append(file_name)
     if not args.quiet:
         print(summary(derivation, out_dir, written))
+        if claims is not None:
+            print(audit_summary(derivation))
     numeric = derivation.results.get("numeric_verification", {})
     if numeric and not numeric["passed"]:
         problems.append("stepper: error: the numeric verification disagrees with the symbolic results "
@@ -163,6 +194,28 @@ def run_derive(args: argparse.Namespace) -> int:
     for line in problems:
         sys.stderr.write(line + "\n")
     return status
+
+
+def audit_summary(derivation: Derivation) -> str:
+    """One line per claim, then where the calculation first went wrong."""
+    report = derivation.results["audit"]
+    lines = [f"Audit: {report['title']}"]
+    for row in report["claims"]:
+        where = f" {row['component']}" if row["component"] else ""
+        label = f" [{row['label']}]" if row["label"] else ""
+        line = f"  claim {row['number']} ({row['quantity']}{where}){label}: {row['outcome']}"
+        if row["outcome"] == "differs":
+            line += f"; {row['diagnosis']}; correct value {row.get('correct')}"
+        elif row["outcome"] in ("cannot be decided", "unreadable"):
+            line += f"; {row['evidence']}"
+        lines.append(line)
+    if report["earliest_wrong"]:
+        numbers = ", ".join(str(n) for n in report["earliest_wrong"])
+        lines.append(f"  earliest wrong claim{'s' if len(report['earliest_wrong']) > 1 else ''} along the chain "
+                     f"of steps: {numbers} (later wrong claims depend on {'them' if len(report['earliest_wrong']) > 1 else 'it'})")
+    agreed = sum(1 for row in report["claims"] if row["outcome"] == "agrees")
+    lines.append(f"  {agreed} of {len(report['claims'])} claims agree")
+    return "\n".join(lines)
 
 
 def _formats(text: str | None) -> list[str]:
@@ -183,7 +236,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         parser.print_help()
         return 2
     try:
-        return run_derive(args)
+        return run_audit(args) if args.command == "audit" else run_derive(args)
     except InputError as err:
         sys.stderr.write(f"\nstepper: error: {err.message}\n" if sys.stderr.isatty() else
                          f"stepper: error: {err.message}\n")

@@ -77,7 +77,7 @@ _NOTEBOOK_NAMES = frozenset("""
     riemann_lowered kretschmann_scalar weyl christoffel_from_metric riemann_from_christoffel ricci_from_riemann
     ricci_from_trace_identity scalar_from_ricci einstein_from_ricci lowered_from_riemann kretschmann_from_lowered
     weyl_from_lowered divergence_of_einstein recorded recorded_holds given residues
-    polynomial_quotient mpmath christoffel_spot_check spot_check_deviation
+    polynomial_quotient mpmath christoffel_spot_check spot_check_deviation claimed derived claim_agrees
 """.split())
 
 
@@ -558,7 +558,9 @@ class _Cells:
         prefixes = {"christoffel/": self.christoffel_component, "riemann/": self.riemann_component,
                     "ricci/": self.ricci_component, "einstein/": self.einstein_component,
                     "contracted_christoffel/": self.contracted_component}
-        if sid in exact:
+        if step.kind == "claim":
+            topic, body = self.claim(step)
+        elif sid in exact:
             topic, body = exact[sid](step)
         else:
             prefix = next((p for p in prefixes if sid.startswith(p) and step.kind in ("component", "identity")), None)
@@ -782,6 +784,38 @@ residues = {{
 }}
 verdict({self._id(step)}, recorded_holds, residues)"""
         return "riemann_lowered_pair_symmetry", code
+
+    def claim(self, step):
+        p = step.params
+        number = int(p["number"])
+        scalars = {"determinant": "metric_determinant", "scalar": "scalar_curvature",
+                   "kretschmann": "kretschmann_scalar"}
+        quantity = p["quantity"]
+        if quantity in scalars:
+            derived = scalars[quantity]
+        elif quantity == "weyl":
+            derived = f"weyl_from_lowered({self.s.names(p['component'])})"
+        else:
+            tables = {"inverse_metric", "christoffel", "riemann", "riemann_lowered", "ricci", "einstein"}
+            if quantity not in tables:
+                raise NotebookError(f"claim {number}: unknown quantity {quantity!r}")
+            derived = f"component({quantity}, {self.s.names(p['component'])})"
+        outcome = p["outcome"]
+        if "claimed" not in p:
+            code = (f"# Claim {number} could not be read (see the text above); there is nothing to check.\n"
+                    f'print("claim {number}: unreadable, not checked")')
+            return "claim", code
+        expected = {"agrees": "True", "differs": "False"}.get(outcome)
+        check = (f"""if claim_agrees != {expected}:
+    raise AssertionError("claim {number}: the recorded verdict was '{outcome}', the recomputation disagrees")
+print(f"claim {number}: {outcome}, as recorded")""" if expected else
+                 f'print(f"claim {number}: recorded as {outcome}; exact recomputation gives {{claim_agrees}}")')
+        code = f"""# Claim {number}, as read by stepper, against the value derived above.
+claimed = {self.s.expr(p["claimed"])}
+derived = {derived}
+claim_agrees = vanishes(claimed - derived)
+{check}"""
+        return "claim", code
 
     def first_bianchi(self, step):
         code = f"""{self._holds(step)}

@@ -197,6 +197,35 @@ class _Model:
                 "tolerance": escape_text(numeric["tolerance"]), "link": self.link("numeric_verification")}
         return {"equations": rows, "verdicts": verdicts, "counts": counts, "numeric": numeric_line}
 
+    def audit(self) -> dict | None:
+        """Each claim with its verdict, the values involved and a link to the step it was checked against."""
+        report = self.d.results.get("audit")
+        if not report:
+            return None
+        w = self.writer
+        rows = []
+        plain_evidence = {row["number"]: row["evidence"] for row in report["claims"]}
+        for step in self.d.steps:
+            if step.kind != "claim":
+                continue
+            p = step.params
+            def tex(key):
+                if key not in p:
+                    return None
+                line, long = w.equation("", p[key])
+                return {"tex": line[3:] if line.startswith(" = ") else line, "long": long}
+            rows.append({
+                "anchor": self.anchor(step.id), "number": p["number"], "label": escape_text(p["label"]),
+                "what": escape_text(p["quantity"].replace("_", " ") + (f" {p['component']}" if p["component"] else "")),
+                "syntax": escape_text(p["syntax"]), "text": breakable_text(p["text"]),
+                "outcome": escape_text(p["outcome"]), "agrees": p["outcome"] == "agrees",
+                "diagnosis": escape_text(p["diagnosis"]), "evidence": breakable_text(plain_evidence[p["number"]]),
+                "claimed": tex("claimed"), "correct": tex("correct"), "difference": tex("difference"),
+                "checked": self.link(step.uses[0]), "earliest": p["earliest_wrong"]})
+        return {"title": escape_text(report["title"]), "claims": rows,
+                "all_agree": report["all_agree"], "earliest": report["earliest_wrong"],
+                "agreed": sum(1 for r in rows if r["agrees"])}
+
     def checks(self) -> list[dict]:
         out = []
         for step in self.d.steps:
@@ -213,7 +242,8 @@ def report_model(derivation: Derivation) -> dict[str, Any]:
     return {
         "metric": model.metric_section(),
         "conventions": [{"name": k, "text": v} for k, v in derivation.conventions_latex.items()],
-        "steps": [model.step_entry(s) for s in derivation.steps],
+        "steps": [model.step_entry(s) for s in derivation.steps if s.kind != "claim"],
+        "audit": model.audit(),
         "summary": model.summary(),
         "checks": model.checks(),
     }

@@ -143,3 +143,35 @@ def test_interrupted_write_keeps_the_old_file(tmp_path, monkeypatch):
         write_atomically(target, "half of a new trace")
     assert target.read_text() == "good\n"
     assert [p.name for p in tmp_path.iterdir()] == ["trace.json"]
+
+
+def test_printer_stable_forms_survive_printing_and_reading():
+    # Random products of sums with rational coefficients: the kind sympify rewrites on reading (common practice).
+    import random
+    from stepper.algebra import printer_stable
+    M, r, a, s = sp.symbols("M r a s")
+    atoms = [M, r, a, sp.sin(s), sp.cos(s)]
+    rng = random.Random(7)
+
+    def build(depth):
+        if depth == 0:
+            return rng.choice(atoms + [sp.Integer(rng.randint(-3, 3)), sp.Rational(rng.randint(-5, 5), rng.randint(1, 4))])
+        op = rng.choice("+*^/")
+        left, right = build(depth - 1), build(depth - 1)
+        if op == "+":
+            return left + right
+        if op == "*":
+            return left * right
+        if op == "^":
+            return left ** rng.randint(1, 3)
+        return left / right if right != 0 else left
+    checked = 0
+    for _ in range(1500):
+        expr = build(4)
+        if expr.has(sp.zoo, sp.nan):
+            continue
+        stable = printer_stable(expr)
+        assert sp.simplify(stable - expr) == 0 if checked < 50 else True
+        assert sp.sympify(sp.sstr(stable, order="lex")) == stable, expr
+        checked += 1
+    assert checked > 1000
