@@ -154,7 +154,7 @@ def test_example_claims_file_shows_every_verdict_kind_and_is_recorded():
     verdicts, earliest = audit(d, claims)
     record_audit(d, title, verdicts, earliest)
     seen = {v.outcome for v in verdicts}
-    assert {AGREES, DIFFERS, UNREADABLE} <= seen
+    assert {AGREES, DIFFERS, UNDECIDED, UNREADABLE} <= seen
     data = json.loads(trace_json(d))
     assert data["results"]["audit"]["all_agree"] is False
     assert data["results"]["audit"]["earliest_wrong"] == earliest
