@@ -72,14 +72,15 @@ def _add_output_options(run: argparse.ArgumentParser) -> None:
 
 
 class _Progress:
-    """Shows which stage is running: a live line on a terminal, otherwise a
-    line per stage once a run has lasted more than two seconds."""
+    """Shows which stage is running and how far it is: a live line on a
+    terminal; otherwise, once a run has lasted two seconds, a line a second."""
 
     def __init__(self, quiet: bool) -> None:
         self.quiet = quiet
         self.start = time.perf_counter()
         self.live = sys.stderr.isatty()
         self.last = ""
+        self.printed_at = 0.0
 
     def __call__(self, label: str, done: int, total: int) -> None:
         if self.quiet or label == self.last:
@@ -91,7 +92,8 @@ class _Progress:
             if label == "done":
                 sys.stderr.write("\r\033[K")
             sys.stderr.flush()
-        elif elapsed > 2 and label != "done":
+        elif elapsed > 2 and label != "done" and elapsed - self.printed_at >= 1:
+            self.printed_at = elapsed
             sys.stderr.write(f"[{elapsed:6.1f}s] {label}\n")
 
 

@@ -2,8 +2,10 @@
 
 A metric file may come from anyone, so its text is never handed to ``eval``,
 ``exec`` or any of sympy's string readers.  Instead a small tokenizer and a
-recursive-descent parser build sympy objects directly (``sympy.Add``,
-``sympy.Mul``, ``sympy.Pow``, ``sympy.Rational``, ``sympy.sin`` ...).
+recursive-descent parser build sympy objects directly: ``sympy.Rational``
+for numbers, ``sympy.Add`` for sums, ``sympy.sin`` and friends for
+functions, and Python's operators on sympy objects for products, quotients,
+powers and negation.
 
 Grammar (highest binding first; the ordering is common practice, the same as
 Python's and most calculators')::
@@ -16,6 +18,15 @@ Python's and most calculators')::
 
 So ``-x^2`` is ``-(x^2)``, ``2^-1`` is ``1/2`` and ``x^-y^2`` is ``x^(-(y^2))``.
 Every number is exact: ``0.1`` becomes ``Rational(1, 10)``, never a float.
+A chain ``a*b/c`` is one ``sympy.Mul(a, b, c**-1)`` and a chain ``a - b + c``
+one ``sympy.Add(a, -b, c)``.
+
+Guards against hostile text, each a one-line error: length (MAX_TEXT_LENGTH),
+nesting (MAX_DEPTH), division by a literal zero and any undefined value
+(zoo, nan, oo), numbers too large to compute quickly (MAX_NUMBER_BITS,
+checked *before* sympy is asked to compute them) and constants nested so
+deep that sympy's numerical checks on them would take very long
+(MAX_CONSTANT_NESTING).
 
 Every problem raises :class:`stepper.errors.InputError` with a one-line
 message naming the offending token, its 1-based column in the text, and the
@@ -82,15 +93,18 @@ _IDENTIFIER = re.compile(r"[A-Za-z][A-Za-z0-9_]*")
 
 
 def _reserved_names() -> frozenset[str]:
-    """Names that would be misread if an expression were ever printed and re-read.
+    """Names a metric file may not declare.
 
-    That is: Python keywords and built-in names, every public sympy name
-    (sympy's string reader resolves those), the elementary functions and the
-    constants listed explicitly below.
+    Python keywords (a printed expression could not be read back), the
+    elementary functions and constants a text may use, and the few sympy
+    names that printed expressions themselves contain.  Everything else --
+    Q, N, S, beta, gamma, Lambda, ... -- is free: the trace is read back with
+    the declared names as locals, and the notebook renames any variable that
+    would clash with a name it uses.
     """
-    candidates = set(keyword.kwlist) | set(keyword.softkwlist) | set(dir(builtins))
-    candidates |= set(sympy.__all__) | set(ELEMENTARY_FUNCTIONS)
-    candidates |= {"pi", "E", "I", "oo", "nan", "zoo", "S", "N", "O", "Q"}
+    candidates = set(keyword.kwlist) | set(keyword.softkwlist) | set(ELEMENTARY_FUNCTIONS)
+    candidates |= {"pi", "E", "I", "oo", "nan", "zoo", "Derivative", "Rational", "Integer", "Float",
+                   "Symbol", "Function", "Abs", "S"}
     return frozenset(name for name in candidates if _IDENTIFIER.fullmatch(name))
 
 
@@ -151,7 +165,7 @@ def parse_expression(text: str, vocabulary: Vocabulary, where: str) -> sympy.Exp
         raise InputError(
             f"too deeply nested to evaluate, near {near} at column {token.column} of {where}"
         ) from None
-    if _has_undefined(result):
+    if parser.facts(result).undefined:
         raise InputError(f"expression in {where} is undefined (division by zero?)")
     return result
 
@@ -217,71 +231,46 @@ def _brief(expression: sympy.Expr) -> str:
 
 # ------------------------------------------------------------------- parser
 
-_UNDEFINED = (sympy.zoo, sympy.nan, sympy.oo, -sympy.oo)
-_MINUS_ONE = sympy.Integer(-1)
+_UNDEFINED = frozenset({sympy.zoo, sympy.nan, sympy.oo, -sympy.oo})
 _MAX_DIGITS = 700  # 10**700 has more than MAX_NUMBER_BITS bits
 
 
-def _unique_nodes(expression: sympy.Basic) -> list[sympy.Basic]:
-    """Every distinct sub-expression once, without recursion.
+class _Facts(NamedTuple):
+    """What the guards need to know about an expression, computed once per node."""
 
-    Shared sub-expressions are visited once, so this stays linear even when
-    abbreviations make the expression tree far larger than its text.
-    """
-    seen = {expression}
-    pending = [expression]
-    while pending:
-        for child in pending.pop().args:
-            if child not in seen:
-                seen.add(child)
-                pending.append(child)
-    return list(seen)
-
-
-def _has_undefined(expression: sympy.Basic) -> bool:
-    undefined = set(_UNDEFINED)
-    return any(node in undefined for node in _unique_nodes(expression))
-
-
-def _exp_bits(argument: sympy.Expr) -> int:
-    """Bound on the bits of the number sympy may make of ``exp(argument)``.
-
-    sympy rewrites exp(c*log(b)) as b^c, which for numbers b and c is a
-    number of about c*bits(b) bits; other terms stay symbolic.
-    """
-    total = 0
-    for term in sympy.Add.make_args(argument):
-        coefficient, rest = term.as_coeff_Mul()
-        if any(isinstance(node, sympy.log) for node in _unique_nodes(rest)):
-            scale = abs(coefficient.p) if coefficient.is_Rational else 1
-            total += _largest_number(rest)[0] * max(1, scale)
-    return total
+    bits: int  # largest numerator or denominator of an exact number inside, in bits
+    magnitude: int  # largest numerator or denominator inside
+    nesting: int | None  # powers and functions deep, for a constant; None if it has a symbol
+    has_log: bool
+    undefined: bool  # contains zoo, nan or an infinity
 
 
 def _rational_bits(number: sympy.Rational) -> int:
     return max(abs(number.p).bit_length(), number.q.bit_length())
 
 
-def _largest_number(expression: sympy.Basic) -> tuple[int, int]:
-    """(bits, magnitude): bounds over every exact number inside ``expression``."""
-    bits, magnitude = 0, 0
-    for node in _unique_nodes(expression):
-        if node.is_Rational:
-            bits = max(bits, _rational_bits(node))
-            magnitude = max(magnitude, abs(node.p), node.q)
-    return bits, magnitude
+class _SumSize:
+    """Bound, in bits, on the numbers the coefficients of a sum may add up to.
 
+    Like terms have their coefficients added; the common denominator is at
+    most the product of the denominators, the numerator at most the count
+    times the largest numerator times that product.
+    """
 
-def _outer_number_bits(expression: sympy.Expr) -> int:
-    """Bits of the numbers sympy has just combined: the coefficient of the
-    expression, or of each of its terms when it is a sum."""
-    terms = expression.args if expression.is_Add else (expression,)
-    bits = 0
-    for term in terms:
-        coefficient = term.as_coeff_Mul()[0]
-        if coefficient.is_Rational:
-            bits = max(bits, _rational_bits(coefficient))
-    return bits
+    def __init__(self) -> None:
+        self.numerator_bits = 0
+        self.denominator_bits = 0
+        self.count = 0
+
+    def add(self, term: sympy.Expr) -> int:
+        for part in sympy.Add.make_args(term):
+            coefficient = part.as_coeff_Mul()[0]
+            if coefficient.is_Rational:
+                self.numerator_bits = max(self.numerator_bits, abs(coefficient.p).bit_length())
+                if coefficient.q > 1:
+                    self.denominator_bits += coefficient.q.bit_length()
+                self.count += 1
+        return self.numerator_bits + self.denominator_bits + self.count.bit_length()
 
 
 class _Parser:
@@ -298,7 +287,7 @@ class _Parser:
         self.depth = 0
         self.vocabulary = vocabulary
         self.where = where
-        self.nesting_memo: dict[sympy.Basic, int | None] = {}
+        self.memo: dict[sympy.Basic, _Facts] = {}
 
     # -- token helpers and errors
 
@@ -343,8 +332,8 @@ class _Parser:
     def check_size(self, bits: int, token: _Token) -> None:
         if bits > MAX_NUMBER_BITS:
             self.fail(
-                f"{_show(token.text)} gives a number too large "
-                f"(over {MAX_NUMBER_BITS} bits)",
+                f"number too large: {_show(token.text)} could make a number "
+                f"of more than {MAX_NUMBER_BITS} bits",
                 token.column,
             )
 
@@ -360,32 +349,45 @@ class _Parser:
         self.unexpected(token)
 
     def expression(self) -> sympy.Expr:
-        """A sum of products.
+        """A sum of products, each chain built by one sympy call.
 
-        Products are built pair by pair, left to right, exactly as Python
-        operators on sympy objects would build them; the sum is built by one
-        ``sympy.Add`` call, which gives the same result as pairwise addition
-        without its quadratic cost.
+        ``a*b/c`` becomes ``sympy.Mul(a, b, c**-1)`` and ``a - b + c`` becomes
+        ``sympy.Add(a, -b, c)``, with negation and powers written as Python
+        operators on sympy objects.  So the result is sympy's usual canonical
+        form (``x - y`` is ``Add(x, Mul(-1, y))``; a number is distributed
+        over a sum only in a two-factor product, as ``sympy.Mul`` does:
+        ``2*(x+1)`` is ``2*x + 2`` while ``2*(x+1)*y`` is ``Mul(2, x + 1, y)``),
+        and one call per chain keeps long chains linear instead of quadratic.
         """
         terms: list[sympy.Expr] = []
+        sum_size = _SumSize()
         sign: _Token | None = None
         while True:
-            value = self.operand()
+            factors = [self.operand()]
+            bits = self.facts(factors[0]).bits
             while self.at("*", "/"):
                 operator = self.advance()
-                value = self.multiply(value, self.operand(), operator)
-            if sign is not None and sign.text == "-":
-                value = sympy.Mul(_MINUS_ONE, value)
-            terms.append(value)
+                factor = self.operand()
+                if operator.text == "/":
+                    if factor == 0:
+                        self.fail("division by zero", operator.column)
+                    factor = factor**-1
+                # The numbers of the factors may multiply together.
+                bits += self.facts(factor).bits
+                self.check_size(bits, operator)
+                factors.append(factor)
+            term = factors[0] if len(factors) == 1 else sympy.Mul(*factors)
+            if sign is not None:
+                if sign.text == "-":
+                    term = -term
+                self.check_size(sum_size.add(term), sign)
+            terms.append(term)
             if not self.at("+", "-"):
                 break
             sign = self.advance()
-        if len(terms) == 1:
-            return terms[0]
-        total = sympy.Add(*terms)
-        assert sign is not None
-        self.check_size(_outer_number_bits(total), sign)
-        return total
+            if len(terms) == 1:
+                sum_size.add(terms[0])
+        return terms[0] if len(terms) == 1 else sympy.Add(*terms)
 
     def operand(self) -> sympy.Expr:
         """Unary signs, then a number, name, call or parenthesis, then an optional power."""
@@ -416,7 +418,7 @@ class _Parser:
             value = self.power(value, exponent, operator)
         for sign in reversed(signs):
             if sign.text == "-":
-                value = sympy.Mul(_MINUS_ONE, value)
+                value = -value
         return value
 
     def close(self, opening: _Token) -> None:
@@ -456,10 +458,13 @@ class _Parser:
             return sympy.Integer(0)
         # Refuse hopeless sizes before converting, so huge literals cost nothing.
         exponent_digits = exponent.lstrip("+-").lstrip("0") or "0"
-        if len(digits) > _MAX_DIGITS or len(exponent_digits) > 6:
-            self.check_size(MAX_NUMBER_BITS + 1, token)
-        shift = int(exponent_digits) * (-1 if exponent.startswith("-") else 1) - len(fraction)
-        if shift > _MAX_DIGITS or shift < -2 * _MAX_DIGITS:
+        hopeless = len(digits) > _MAX_DIGITS or len(exponent_digits) > 6
+        shift = 0
+        if not hopeless:
+            sign = -1 if exponent.startswith("-") else 1
+            shift = sign * int(exponent_digits) - len(fraction)
+            hopeless = not -2 * _MAX_DIGITS <= shift <= _MAX_DIGITS
+        if hopeless:
             self.check_size(MAX_NUMBER_BITS + 1, token)
         if shift >= 0:
             value = sympy.Rational(int(digits) * 10**shift, 1)
@@ -521,16 +526,15 @@ class _Parser:
             return self.apply(token, arguments[0])
         self.fail(f"unknown name {_show(name)}", token.column)
 
-    # -- building sympy objects, with guards
+    # -- guards and the sympy calls they protect
 
-    def nesting(self, expression: sympy.Basic) -> int | None:
-        """How many powers and functions deep a constant expression goes.
+    def facts(self, expression: sympy.Basic) -> _Facts:
+        """Facts about an expression, computed without recursion and memoised.
 
-        None when the expression involves a symbol.  sympy settles questions
-        about constants (is it zero? an integer?) by numerical evaluation,
-        whose cost grows steeply with this depth, so it is bounded.
+        Shared sub-expressions are visited once, so this stays linear even
+        when abbreviations make the expression tree far larger than its text.
         """
-        memo = self.nesting_memo
+        memo = self.memo
         pending: list[tuple[sympy.Basic, bool]] = [(expression, False)]
         while pending:
             node, children_done = pending.pop()
@@ -540,22 +544,54 @@ class _Parser:
                 pending.append((node, True))
                 pending.extend((child, False) for child in node.args if child not in memo)
                 continue
+            children = [memo[child] for child in node.args]
+            bits = max((child.bits for child in children), default=0)
+            magnitude = max((child.magnitude for child in children), default=0)
+            if node.is_Rational:
+                bits = _rational_bits(node)
+                magnitude = max(abs(node.p), node.q)
+            nesting: int | None
             if node.is_Symbol or isinstance(node, AppliedUndef):
-                memo[node] = None
-                continue
-            levels = [memo[child] for child in node.args]
-            if any(level is None for level in levels):
-                memo[node] = None
+                nesting = None
+            elif any(child.nesting is None for child in children):
+                nesting = None
             else:
                 own = 1 if (node.is_Pow or node.is_Function) else 0
-                memo[node] = own + max((level for level in levels if level is not None), default=0)
+                nesting = own + max((child.nesting or 0 for child in children), default=0)
+            memo[node] = _Facts(
+                bits=bits,
+                magnitude=magnitude,
+                nesting=nesting,
+                has_log=isinstance(node, sympy.log) or any(c.has_log for c in children),
+                undefined=node in _UNDEFINED or any(c.undefined for c in children),
+            )
         return memo[expression]
 
+    def exp_bits(self, argument: sympy.Expr) -> int:
+        """Bound on the bits of the number sympy may make of ``exp(argument)``.
+
+        sympy rewrites exp(c*log(b)) as b^c, which for numbers b and c has
+        about c*bits(b) bits; other terms stay symbolic.
+        """
+        total = 0
+        for term in sympy.Add.make_args(argument):
+            coefficient, rest = term.as_coeff_Mul()
+            facts = self.facts(rest)
+            if facts.has_log:
+                scale = abs(coefficient.p) if coefficient.is_Rational else 1
+                total += facts.bits * max(1, scale)
+        return total
+
     def check_nesting(self, parts: tuple[sympy.Expr, ...], token: _Token) -> None:
-        levels = [self.nesting(part) for part in parts]
+        """Bound how deep powers and functions nest inside a constant.
+
+        sympy answers questions about constants (is it zero? an integer?)
+        by numerical evaluation whose cost grows steeply with this depth.
+        """
+        levels = [self.facts(part).nesting for part in parts]
         if any(level is None for level in levels):
             return
-        level = 1 + max(level for level in levels if level is not None)
+        level = 1 + max(level or 0 for level in levels)
         if level > MAX_CONSTANT_NESTING:
             self.fail(
                 f"constant too deeply nested: {_show(token.text)} makes {level} levels "
@@ -563,43 +599,31 @@ class _Parser:
                 token.column,
             )
 
-    def multiply(self, left: sympy.Expr, right: sympy.Expr, operator: _Token) -> sympy.Expr:
-        if operator.text == "/":
-            if right == 0:
-                self.fail("division by zero", operator.column)
-            result = sympy.Mul(left, sympy.Pow(right, _MINUS_ONE))
-        else:
-            result = sympy.Mul(left, right)
-        if result in _UNDEFINED:
-            self.fail("undefined product (division by zero?)", operator.column)
-        self.check_size(_outer_number_bits(result), operator)
-        return result
-
     def power(self, base: sympy.Expr, exponent: sympy.Expr, operator: _Token) -> sympy.Expr:
         # Estimate what sympy would compute *before* asking it to.
-        base_bits, base_magnitude = _largest_number(base)
+        base_facts = self.facts(base)
         if exponent.is_Rational:
-            estimate = base_bits * max(1, abs(exponent.p))
+            estimate = base_facts.bits * max(1, abs(exponent.p))
         else:
             # exp(a)^(c*log(b)) becomes b^(a*c).
-            estimate = max(base_bits, max(1, base_magnitude) * _exp_bits(exponent))
+            estimate = max(
+                base_facts.bits, max(1, base_facts.magnitude) * self.exp_bits(exponent)
+            )
         self.check_size(estimate, operator)
         self.check_nesting((base, exponent), operator)
-        result = sympy.Pow(base, exponent)
+        result = base**exponent
         if result in _UNDEFINED:
             self.fail("division by zero" if base == 0 else "undefined power", operator.column)
-        self.check_size(_outer_number_bits(result), operator)
         return result
 
     def apply(self, token: _Token, argument: sympy.Expr) -> sympy.Expr:
         if token.text == "exp":
-            self.check_size(_exp_bits(argument), token)
+            self.check_size(self.exp_bits(argument), token)
         self.check_nesting((argument,), token)
         result = ELEMENTARY_FUNCTIONS[token.text](argument)
-        if _has_undefined(result):
+        if self.facts(result).undefined:
             self.fail(
                 f"function {_show(token.text)} is undefined for argument {_brief(argument)}",
                 token.column,
             )
-        self.check_size(_outer_number_bits(result), token)
         return result

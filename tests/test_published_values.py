@@ -270,3 +270,20 @@ def test_a_wrong_claim_would_be_caught():
     s = names(d)
     wrong = -s["M"] * (s["r"] - 2 * s["M"]) / s["r"] ** 3
     assert not exactly_equal(component(d, "christoffel", "r,t,t"), wrong)
+
+
+def test_charged_rotating_black_hole_kretschmann():
+    # Kerr-Newman in Boyer-Lindquist coordinates: R = 0 and
+    # K = 8/Sigma^6 [6 M^2 (r^6 - 15 a^2 r^4 c^2 + 15 a^4 r^2 c^4 - a^6 c^6)
+    #                - 12 M Q^2 r (r^4 - 10 a^2 r^2 c^2 + 5 a^4 c^4) + Q^4 (7 r^4 - 34 a^2 r^2 c^2 + 7 a^4 c^4)].
+    # Source: Henry, Astrophys. J. 535, 350 (2000), eq. (2) (from memory).
+    d = derive(load_metric(EXAMPLES.parent / "bench" / "metrics" / "charged_rotating_black_hole.toml"))
+    s = names(d)
+    M, a, Q, r, c = s["M"], s["alpha"], s["Q"], s["r"], sp.cos(s["theta"])
+    sigma = r**2 + a**2 * c**2
+    published = 8 / sigma**6 * (
+        6 * M**2 * (r**6 - 15 * a**2 * r**4 * c**2 + 15 * a**4 * r**2 * c**4 - a**6 * c**6)
+        - 12 * M * Q**2 * r * (r**4 - 10 * a**2 * r**2 * c**2 + 5 * a**4 * c**4)
+        + Q**4 * (7 * r**4 - 34 * a**2 * r**2 * c**2 + 7 * a**4 * c**4))
+    assert d.results["scalar"] == 0
+    assert exactly_equal(d.results["kretschmann"], published)
