@@ -392,8 +392,10 @@ class FieldArithmetic:
         if not num:
             return RationalFunction(self, self.ring.zero, self.ring.one)
         if self._relations:
-            num = self._reduce(num)
-            den = self._reduce(den)
+            reduced_num, reduced_den = self._reduce(num), self._reduce(den)
+            if reduced_num != num or reduced_den != den:
+                reduced_fraction = False  # the rewrite may have made common factors appear
+            num, den = reduced_num, reduced_den
             den_free = self._cosine_free_denominator(num, den)
             if den_free is not None:
                 num, den = den_free
@@ -746,6 +748,8 @@ class ExpressionArithmetic:
             value = concrete.subs(point).evalf(self._digits)
             if not value.is_number or value.has(sympy.zoo, sympy.nan) or not value.is_finite:
                 continue
+            if not value.is_real:  # outside the real domain of the expression: no evidence either way
+                continue
             tried += 1
             worst = max(worst, abs(complex(value)))
         if tried == 0:
@@ -762,7 +766,7 @@ class ExpressionArithmetic:
 def _sample_value(symbol: sympy.Symbol, rng: random.Random) -> sympy.Rational:
     """A random rational respecting the symbol's sign assumptions."""
     value = sympy.Rational(rng.randint(1100, 2900), 1000)
-    if symbol.is_negative:
+    if symbol.is_negative or symbol.is_nonpositive:
         return -value
     if symbol.is_positive or symbol.is_nonnegative:
         return value

@@ -18,7 +18,7 @@ from dataclasses import dataclass
 import sympy
 
 from .algebra import choose_arithmetic, printer_stable
-from .chain import Derivation
+from .chain import Derivation, canonical_lowered
 from .claims import QUANTITIES, Claim
 from .tracer import Step, Verdict
 
@@ -37,21 +37,6 @@ class ClaimVerdict:
     evidence: str
 
 
-def _canonical_lowered(indices: tuple[int, ...]) -> tuple[int, tuple[int, ...]]:
-    """(sign, a<b, c<d, (a,b)<=(c,d) order) of a lowered four-index component; sign 0 if it vanishes."""
-    a, b, c, d = indices
-    if a == b or c == d:
-        return 0, indices
-    sign = 1
-    if a > b:
-        a, b, sign = b, a, -sign
-    if c > d:
-        c, d, sign = d, c, -sign
-    if (a, b) > (c, d):
-        a, b, c, d = c, d, a, b
-    return sign, (a, b, c, d)
-
-
 def correct_value(derivation: Derivation, quantity: str, component: str) -> tuple[sympy.Expr, str]:
     """The recorded value of a component (zero when not listed) and the id of the step that holds it."""
     results = derivation.results
@@ -63,7 +48,7 @@ def correct_value(derivation: Derivation, quantity: str, component: str) -> tupl
     key = lambda idx: ",".join(names[i] for i in idx)
     table = results.get(quantity, {})
     if quantity in ("riemann_lowered", "weyl"):
-        sign, canonical = _canonical_lowered(index)
+        sign, canonical = canonical_lowered(index)
         value = sign * table.get(key(canonical), sympy.Integer(0)) if sign else sympy.Integer(0)
         return printer_stable(value), quantity
     value = table.get(component, sympy.Integer(0))
@@ -101,10 +86,14 @@ class Auditor:
         return A.to_expr(A.from_expr(expr))
 
     def check(self, claim: Claim) -> ClaimVerdict:
-        if claim.quantity in SCALARS or QUANTITIES[claim.quantity] == 0:
+        if QUANTITIES[claim.quantity] == 0:
             correct, step_id = correct_value(self.d, claim.quantity, "")
         else:
             correct, step_id = correct_value(self.d, claim.quantity, claim.component)
+        if claim.quantity not in self.d.results:
+            return ClaimVerdict(claim, UNDECIDED, step_id, None, None, "",
+                                f"the derivation did not compute the {claim.quantity.replace('_', ' ')} "
+                                "(it was run with --skip-invariants)")
         if claim.expr is None:
             return ClaimVerdict(claim, UNREADABLE, step_id, correct, None, "",
                                 f"the claimed value could not be read: {claim.problem}")

@@ -106,7 +106,7 @@ def summary(derivation: Derivation, out_dir: Path, written: Sequence[str]) -> st
         lines.append(f"  Kretschmann scalar = {derivation.results['kretschmann']}")
     numeric = derivation.results.get("numeric_verification")
     if numeric:
-        word = "passed" if numeric["passed"] else "FAILED"
+        word = {True: "passed", False: "FAILED", None: "not done"}[numeric["passed"]]
         deviations = ", ".join(f"{q} {v}" for q, v in numeric["deviations"].items())
         lines.append(f"  numeric verification {word}: largest relative deviations {deviations} "
                      f"at {len(numeric['points'])} random points")
@@ -176,6 +176,12 @@ def _derive_and_export(args: argparse.Namespace, metric, out_dir: Path, title: s
             status = 1
         except jinja2.TemplateError as err:
             raise InputError(f"template problem in {name} output: {err}") from None
+    if "pdf" in formats and "report.pdf" not in contents:
+        stale = out_dir / "report.pdf"  # an older PDF would no longer match the new trace
+        if stale.exists():
+            stale.unlink()
+    if "report.log" not in contents and (out_dir / "report.log").exists():
+        (out_dir / "report.log").unlink()
     written = []
     for file_name, content in contents.items():
         target = out_dir / file_name
@@ -189,10 +195,12 @@ def _derive_and_export(args: argparse.Namespace, metric, out_dir: Path, title: s
         if claims is not None:
             print(audit_summary(derivation))
     numeric = derivation.results.get("numeric_verification", {})
-    if numeric and not numeric["passed"]:
+    if numeric and numeric["passed"] is False:
         problems.append("stepper: error: the numeric verification disagrees with the symbolic results "
                         f"(deviations {numeric['deviations']}); do not rely on this derivation")
         status = 1
+    elif numeric and numeric["passed"] is None:
+        problems.append(f"stepper: warning: no numeric verification: {numeric['note']}")
     for line in problems:
         sys.stderr.write(line + "\n")
     return status
@@ -246,6 +254,10 @@ def main(argv: Sequence[str] | None = None) -> int:
     except KeyboardInterrupt:
         sys.stderr.write("stepper: interrupted; nothing was written\n")
         return 130
+    except Exception as err:  # a bug in stepper, not in the input: one line, no traceback
+        sys.stderr.write(f"stepper: internal error: {type(err).__name__}: {' '.join(str(err).split())[:300]} "
+                         "(please report it with the input file)\n")
+        return 1
 
 
 if __name__ == "__main__":

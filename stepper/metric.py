@@ -79,7 +79,7 @@ class Metric:
 
 
 def _assumption_word(symbol: sympy.Symbol) -> str:
-    for word in ("positive", "negative", "nonnegative", "nonzero", "real"):
+    for word in ("positive", "negative", "nonnegative", "nonpositive", "nonzero", "real"):
         if getattr(symbol, f"is_{word}"):
             return word
     return "complex"

@@ -185,6 +185,10 @@ def matrix_from_line_element(text: str, coordinates, vocabulary: Vocabulary, dif
     with_differentials = Vocabulary(vocabulary.symbols, vocabulary.functions, vocabulary.abbreviations, differentials)
     expr = parse_expression(text, with_differentials, "line_element")
     d = [differentials[f"d{c.name}"] for c in coordinates]
+    degree = _differential_degree(expr, frozenset(d))
+    if degree != 2:
+        raise InputError(f"line_element has {degree} differentials in every term; "
+                         "every term must have exactly 2")
     index = {s: i for i, s in enumerate(d)}
     n = len(coordinates)
     coefficient = [[sympy.Integer(0)] * n for _ in range(n)]
@@ -212,6 +216,34 @@ def matrix_from_line_element(text: str, coordinates, vocabulary: Vocabulary, dif
             value = sympy.factor(sympy.together(value)) if value != 0 else value
             g[i][j] = g[j][i] = value
     return sympy.ImmutableMatrix([[printer_stable(e) for e in row] for row in g])
+
+
+def _differential_degree(expr: sympy.Expr, differentials: frozenset) -> int:
+    """The degree of ``expr`` in the differentials, found without expanding it
+    (so that a large power of a sum is refused before any work is done)."""
+    if not expr.free_symbols & differentials:
+        return 0
+    if expr in differentials:
+        return 1
+    if isinstance(expr, sympy.Add):
+        degrees = [_differential_degree(term, differentials) for term in expr.args]
+        if len(set(degrees)) != 1:
+            wanted = 2 if 2 in degrees else max(degrees)
+            offending, count = next((t, k) for t, k in zip(expr.args, degrees) if k != wanted)
+            raise InputError(f"line_element: the term {_brief(offending)} has {count} differentials; "
+                             "every term must have exactly 2")
+        return degrees[0]
+    if isinstance(expr, sympy.Mul):
+        return sum(_differential_degree(f, differentials) for f in expr.args)
+    if isinstance(expr, sympy.Pow) and expr.exp.is_Integer and expr.exp > 0:
+        return int(expr.exp) * _differential_degree(expr.base, differentials)
+    raise InputError(f"line_element is not quadratic in the differentials: a differential appears inside "
+                     f"{_brief(expr)}")
+
+
+def _brief(expr: sympy.Expr) -> str:
+    text = str(expr)
+    return text if len(text) <= 60 else text[:57] + "..."
 
 
 def matrix_from_components(rows, coordinates, vocabulary: Vocabulary) -> sympy.ImmutableMatrix:

@@ -801,6 +801,10 @@ verdict({self._id(step)}, recorded_holds, residues)"""
                 raise NotebookError(f"claim {number}: unknown quantity {quantity!r}")
             derived = f"component({quantity}, {self.s.names(p['component'])})"
         outcome = p["outcome"]
+        if quantity not in self.d.results:
+            code = (f"# Claim {number} is about a quantity this derivation did not compute; nothing to check.\n"
+                    f'print("claim {number}: {outcome}, not checked here")')
+            return "claim", code
         if "claimed" not in p:
             code = (f"# Claim {number} could not be read (see the text above); there is nothing to check.\n"
                     f'print("claim {number}: unreadable, not checked")')

@@ -191,7 +191,7 @@ class _Model:
         numeric_line = None
         if numeric:
             numeric_line = {
-                "word": "passed" if numeric["passed"] else "FAILED",
+                "word": {True: "passed", False: "FAILED", None: "not done"}[numeric["passed"]],
                 "deviations": ", ".join(f"{escape_text(q)} {escape_text(v)}" for q, v in numeric["deviations"].items()),
                 "points": len(numeric["points"]), "digits": numeric["digits"],
                 "tolerance": escape_text(numeric["tolerance"]), "link": self.link("numeric_verification")}

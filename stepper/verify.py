@@ -114,7 +114,7 @@ def numeric_check(coordinates: Sequence[sympy.Symbol], matrix: sympy.Matrix, par
                 symbolic_scalar = mpmath.mpf(scalar_function(point))
             except (ZeroDivisionError, ValueError, TypeError, OverflowError):
                 continue
-            if not all(mpmath.isfinite(v) for table in symbolic.values() for v in table.values()):
+            if not all(mpmath.isfinite(v) and mpmath.im(v) == 0 for table in symbolic.values() for v in table.values()):
                 continue
             if not mpmath.isfinite(symbolic_scalar):
                 continue
@@ -127,8 +127,13 @@ def numeric_check(coordinates: Sequence[sympy.Symbol], matrix: sympy.Matrix, par
                 worst[quantity] = max(worst[quantity], numeric.compare(symbolic[quantity], numeric_tables[quantity]))
             worst["scalar"] = max(worst["scalar"], numeric.compare({(): symbolic_scalar}, {(): reference.scalar}))
             used_points.append({name: mpmath.nstr(value, 12) for name, value in zip(names, point)})
-    passed = len(used_points) == points and all(v <= TOLERANCE for v in worst.values())
-    note = "" if len(used_points) == points else f"only {len(used_points)} of {points} random points were usable"
+    passed = bool(used_points) and all(v <= TOLERANCE for v in worst.values())
+    if not used_points:
+        note = f"no usable point in {attempts} tries (the metric was singular, degenerate or not real there)"
+    elif len(used_points) < points:
+        note = f"only {len(used_points)} of {points} random points were usable"
+    else:
+        note = ""
     return NumericCheck(
         deviations={q: mpmath.nstr(v, 3, min_fixed=0, max_fixed=0) for q, v in worst.items()},
         points=used_points,

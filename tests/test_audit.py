@@ -218,3 +218,32 @@ def test_hostile_claims_run_nothing(tmp_path):
     assert proc.stdout.count("unreadable") == 2
     tex = (tmp_path / "out" / "report.tex").read_text()
     assert r"\input{/etc/passwd}" not in tex and r"\write18{" not in tex
+
+
+def test_claims_about_quantities_not_computed_cannot_be_decided():
+    # Found in review: with --skip-invariants a Kretschmann claim must not be judged against 0.
+    # Source: Carroll, Spacetime and Geometry, sec. 5.7 (from memory): K = 48 M^2 / r^6.
+    d = derive(load_metric(EXAMPLES / "compact_star_exterior.toml"), curvature_invariants=False)
+    verdicts, _ = outcomes(d, [("kretschmann", "", "latex", r"\frac{48M^2}{r^6}"),
+                               ("weyl", "t,r,t,r", "plain", "0")])
+    assert [v.outcome for v in verdicts] == [UNDECIDED, UNDECIDED]
+    assert all("did not compute" in v.evidence for v in verdicts)
+
+
+def test_field_representation_is_canonical_after_trigonometric_rewriting():
+    # (cos/(1 - sin)) (cos/(1 + sin)) = cos^2/(1 - sin^2) = 1 (common practice).
+    import sympy as sp
+    from stepper.algebra import FieldArithmetic
+    theta = sp.Symbol("theta", real=True)
+    field = FieldArithmetic([theta], [sp.sin(theta)])
+    c, s = field.from_expr(sp.cos(theta)), field.from_expr(sp.sin(theta))
+    assert (c / (1 - s)) * (c / (1 + s)) == field.one
+
+
+def test_nonpositive_symbols_are_sampled_with_their_sign():
+    import random
+    import sympy as sp
+    from stepper.algebra import _sample_value
+    q = sp.Symbol("q", real=True, nonpositive=True)
+    rng = random.Random(3)
+    assert all(_sample_value(q, rng) < 0 for _ in range(50))

@@ -515,3 +515,12 @@ def test_user_templates_override_the_projects(tmp_path):
     proc = run_stepper(["derive", "good.toml", "-o", "result", "--formats", "tex", "--templates", "mine"], tmp_path)
     assert proc.returncode == 0, proc.stderr
     assert "OUR GROUP'S WORDING" in (tmp_path / "result" / "report.tex").read_text()
+
+
+def test_huge_power_in_a_line_element_is_refused_at_once(tmp_path):
+    # Found in review: expanding before checking the degree could run for minutes.
+    (tmp_path / "big.toml").write_text('coordinates = ["t", "r"]\nline_element = "(dt + dr + r + t + 3)^80"\n')
+    (tmp_path / "big2.toml").write_text('coordinates = ["t", "r"]\nline_element = "(dt + dr)^100000"\n')
+    for name in ("big.toml", "big2.toml"):
+        proc = run_stepper(["derive", name, "-o", "result"], tmp_path)
+        assert_one_line_error(proc, "differentials")
