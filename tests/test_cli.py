@@ -524,3 +524,21 @@ def test_huge_power_in_a_line_element_is_refused_at_once(tmp_path):
     for name in ("big.toml", "big2.toml"):
         proc = run_stepper(["derive", name, "-o", "result"], tmp_path)
         assert_one_line_error(proc, "differentials")
+
+
+def test_time_limit_stops_cleanly_and_writes_nothing(tmp_path):
+    proc = run_stepper(["derive", str(EXAMPLES / "spinning_black_hole.toml"), "-o", "result",
+                        "--time-limit", "0.05", "--jobs", "1"], tmp_path)
+    assert proc.returncode == 3
+    assert proc.stderr.strip().splitlines()[-1].startswith("stepper: stopped: the time limit of 0.05 s")
+    assert "nothing was written" in proc.stderr and "Traceback" not in proc.stderr
+    assert not (tmp_path / "result").exists()
+
+
+def test_parallel_run_gives_the_same_bytes_as_the_serial_one(tmp_path):
+    args = ["derive", str(EXAMPLES / "twisted_vacuum.toml"), "--formats", "trace,tex,notebook", "--quiet"]
+    serial = run_stepper(args + ["-o", "one", "--jobs", "1"], tmp_path)
+    parallel = run_stepper(args + ["-o", "two", "--jobs", "2"], tmp_path)
+    assert serial.returncode == 0 and parallel.returncode == 0, (serial.stderr, parallel.stderr)
+    for name in ("trace.json", "report.tex", "derivation.ipynb"):
+        assert (tmp_path / "one" / name).read_bytes() == (tmp_path / "two" / name).read_bytes(), name
