@@ -313,12 +313,21 @@ class FieldArithmetic:
     """
 
     name = "field"
-    rewrite = "canonical rational form, with cos^2 = 1 - sin^2"
     description = (
         "canonical form of a rational function in the coordinates, parameters, "
         "sine/cosine pairs and derivatives of free functions, reduced with "
         "cos^2 = 1 - sin^2 (cosh^2 = 1 + sinh^2) and a cosine-free denominator"
     )
+
+    @property
+    def rewrite(self) -> str:
+        """The rewrite applied to every result, named for the generators this metric needs."""
+        rules = []
+        if any(sign < 0 for _, _, sign in self._relations):
+            rules.append("cos^2 = 1 - sin^2")
+        if any(sign > 0 for _, _, sign in self._relations):
+            rules.append("cosh^2 = 1 + sinh^2")
+        return "canonical rational form" + (", with " + " and ".join(rules) if rules else "")
 
     def __init__(self, coordinates: Sequence[sympy.Symbol], expressions: Iterable[sympy.Expr]):
         scan = _Scan(coordinates)
