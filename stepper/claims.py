@@ -20,7 +20,6 @@ unreadable; the other claims are still checked.
 
 from __future__ import annotations
 
-import tomllib
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -29,7 +28,7 @@ import sympy
 from .errors import InputError
 from .latex_input import parse_latex
 from .metric import Metric
-from .metricfile import load_metric
+from .metricfile import load_metric, read_toml
 from .parse import Vocabulary, parse_expression
 
 #: Quantity name -> number of indices (0 for a scalar).
@@ -78,18 +77,7 @@ def metric_vocabulary(metric: Metric) -> Vocabulary:
 def load_claims(path: str | Path) -> tuple[Metric, str, list[Claim]]:
     """The metric the claims are about, the title, and the claims."""
     path = Path(path)
-    try:
-        text = path.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise InputError(f"cannot read {path}: no such file") from None
-    except (OSError, UnicodeDecodeError) as err:
-        raise InputError(f"cannot read {path}: {getattr(err, 'strerror', None) or err}") from None
-    if not text.strip():
-        raise InputError(f"{path} is empty")
-    try:
-        data = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as err:
-        raise InputError(f"{path} is not valid TOML: {err}") from None
+    data = read_toml(path)
     unknown = [k for k in data if k not in ("metric", "title", "claim")]
     if unknown:
         raise InputError(f"unknown key '{unknown[0]}' in {path.name} (known keys: metric, title, claim)")

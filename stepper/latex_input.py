@@ -8,8 +8,8 @@ objects directly, and every name is looked up in the caller's
 :class:`stepper.parse.Vocabulary`.  Every problem raises
 :class:`stepper.errors.InputError` with a one-line message naming the
 offending token, its 1-based column in the text and the caller's ``where``
-label.  The guards against huge texts, deep nesting and huge numbers follow
-:mod:`stepper.parse` and use its limits.
+label.  The guards against huge texts, deep nesting and huge numbers are
+those of :mod:`stepper.guards`, shared with :mod:`stepper.parse`.
 
 Accepted subset (highest binding first)::
 
@@ -80,17 +80,20 @@ from types import MappingProxyType
 from typing import Mapping, NamedTuple, NoReturn
 
 import sympy
-from sympy.core.function import AppliedUndef
 
 from stepper.errors import InputError
-from stepper.parse import (
-    ELEMENTARY_FUNCTIONS,
-    MAX_CONSTANT_NESTING,
-    MAX_DEPTH,
+from stepper.guards import (
+    MAX_DIGITS,
     MAX_NUMBER_BITS,
-    MAX_TEXT_LENGTH,
-    Vocabulary,
+    UNDEFINED,
+    GuardedReader,
+    Sum,
+    brief,
+    check_text,
+    rational_bits,
+    show,
 )
+from stepper.parse import ELEMENTARY_FUNCTIONS, Vocabulary
 
 __all__ = ["FUNCTION_COMMANDS", "GREEK_LETTERS", "parse_latex"]
 
@@ -138,28 +141,8 @@ _CHARACTER_HINTS = MappingProxyType(
     }
 )
 _DECLARABLE = re.compile(r"[A-Za-z][A-Za-z0-9]*")
-_MAX_DIGITS = 700  # 10**700 has more than MAX_NUMBER_BITS bits
 _WRAPPERS = (("$$", "$$"), ("$", "$"), ("\\(", "\\)"), ("\\[", "\\]"))
 _BLANK = " \t\r\n"
-_UNDEFINED = frozenset({sympy.zoo, sympy.nan, sympy.oo, -sympy.oo})
-
-
-def _show(text: str) -> str:
-    """Quote a token for a one-line message, shortening long ones."""
-    if len(text) > 40:
-        text = text[:37] + "..."
-    if len(text) == 1 and not text.isprintable():
-        return f"U+{ord(text):04X}"
-    quoted = f'"{text}"' if "'" in text else f"'{text}'"
-    if len(text) == 1 and not text.isascii():
-        quoted += f" (U+{ord(text):04X})"
-    return quoted
-
-
-def _brief(expression: sympy.Expr) -> str:
-    """A short printed form of an expression for messages."""
-    printed = str(expression)
-    return printed if len(printed) <= 60 else printed[:57] + "..."
 
 
 def parse_latex(text: str, vocabulary: Vocabulary, where: str) -> sympy.Expr:
@@ -167,32 +150,14 @@ def parse_latex(text: str, vocabulary: Vocabulary, where: str) -> sympy.Expr:
 
     ``where`` labels the text in error messages, e.g. ``"claimed Ricci scalar"``.
     """
-    if not isinstance(text, str):
-        raise InputError(f"{where} must be text, not {type(text).__name__}")
-    if len(text) > MAX_TEXT_LENGTH:
-        raise InputError(
-            f"{where} is too long: {len(text)} characters (the limit is {MAX_TEXT_LENGTH})"
-        )
+    check_text(text, where)
     start, stop = _math_bounds(text)
     tokens = _tokenize(text, start, stop)
     if len(tokens) > 1 and (tokens[-2].kind == "dot" or tokens[-2].text == ","):
         del tokens[-2]  # a sentence's full stop or comma after the formula
     if tokens[0].kind == "end":
         raise InputError(f"empty expression in {where}")
-    reader = _Reader(tokens, vocabulary, where, text)
-    try:
-        result = reader.parse()
-    except RecursionError:
-        # sympy recurses through nested expressions too, so very deep nesting
-        # can exhaust Python's stack before MAX_DEPTH is reached.
-        token = reader.peek()
-        near = _show(token.text) if token.text else "the end of the text"
-        raise InputError(
-            f"too deeply nested to evaluate, near {near} at column {token.column} of {where}"
-        ) from None
-    if reader.facts(result).undefined:
-        raise InputError(f"expression in {where} is undefined (division by zero?)")
-    return result
+    return _Reader(tokens, vocabulary, where, text).read()
 
 
 def _math_bounds(text: str) -> tuple[int, int]:
@@ -306,7 +271,7 @@ def _tokenize(text: str, start: int, stop: int) -> list[_Token]:
         elif piece == ".":
             add("dot", end, piece)
         else:
-            add("bad", end, f"unexpected character {_show(piece)}", _CHARACTER_HINTS.get(piece, ""))
+            add("bad", end, f"unexpected character {show(piece)}", _CHARACTER_HINTS.get(piece, ""))
             break
         position = end
     tokens.append(_Token("end", "", stop + 1, stop, "", spaced))
@@ -336,7 +301,7 @@ def _sized_delimiter(text: str, position: int, end: int, stop: int, name: str, a
     add(
         "bad",
         after + len(delimiter),
-        f"unsupported delimiter {_show(shown)}",
+        f"unsupported delimiter {show(shown)}",
         f" (after '\\{name}' only {accepted} are accepted)",
     )
     return after + len(delimiter)
@@ -365,56 +330,19 @@ def _wrapped_name(text: str, position: int, end: int, stop: int, name: str, add)
 # ------------------------------------------------------------------- parser
 
 
-class _Facts(NamedTuple):
-    """What the guards need to know about an expression, computed once per node."""
-
-    bits: int  # largest numerator or denominator of an exact number inside, in bits
-    magnitude: int  # largest numerator or denominator inside
-    nesting: int | None  # powers and functions deep, for a constant; None if it has a symbol
-    has_log: bool
-    undefined: bool  # contains zoo, nan or an infinity
-
-
-def _rational_bits(number: sympy.Rational) -> int:
-    return max(abs(number.p).bit_length(), number.q.bit_length())
-
-
-class _SumSize:
-    """Bound, in bits, on the numbers the coefficients of a sum may add up to:
-    the common denominator is at most the product of the denominators, the
-    numerator at most the count times the largest numerator times that product."""
-
-    def __init__(self) -> None:
-        self.numerator_bits = 0
-        self.denominator_bits = 0
-        self.count = 0
-
-    def add(self, term: sympy.Expr) -> int:
-        for part in sympy.Add.make_args(term):
-            coefficient = part.as_coeff_Mul()[0]
-            if coefficient.is_Rational:
-                self.numerator_bits = max(self.numerator_bits, abs(coefficient.p).bit_length())
-                if coefficient.q > 1:
-                    self.denominator_bits += coefficient.q.bit_length()
-                self.count += 1
-        return self.numerator_bits + self.denominator_bits + self.count.bit_length()
-
-
-class _Reader:
+class _Reader(GuardedReader[_Token]):
     """Recursive descent over a token list; one instance per text.
 
     Nesting costs three Python frames per level (expression -> product ->
     factor), so MAX_DEPTH stays inside Python's default recursion limit.
+    The token cursor and the guards against hostile text come from
+    :class:`stepper.guards.GuardedReader`.
     """
 
     def __init__(self, tokens: list[_Token], vocabulary: Vocabulary, where: str, text: str) -> None:
-        self.tokens = tokens
-        self.index = 0
-        self.depth = 0
+        super().__init__(tokens, where)
         self.vocabulary = vocabulary
-        self.where = where
         self.text = text
-        self.memo: dict[sympy.Basic, _Facts] = {}
         # Token index of each opening bracket read as a group -> index of its closing one.
         self.group_ends: dict[int, int] = {}
         # (offset just after, script operator, digit) of the last one-digit
@@ -422,15 +350,6 @@ class _Reader:
         self.bare_digit: tuple[int, str, str] | None = None
 
     # -- token helpers and errors
-
-    def peek(self) -> _Token:
-        return self.tokens[self.index]
-
-    def advance(self) -> _Token:
-        token = self.tokens[self.index]
-        if token.kind != "end":
-            self.index += 1
-        return token
 
     def at(self, *operators: str) -> bool:
         token = self.tokens[self.index]
@@ -440,35 +359,15 @@ class _Reader:
         token = self.tokens[self.index]
         return token.kind == "open" and token.value in brackets
 
-    def fail(self, message: str, column: int, hint: str = "") -> NoReturn:
-        raise InputError(f"{message} at column {column} of {self.where}{hint}")
-
     def unexpected(self, token: _Token, after: _Token | None = None, hint: str = "") -> NoReturn:
         if token.kind == "bad":
             self.fail(token.value, token.column, token.hint)
-        shown = "end of text" if token.kind == "end" else _show(token.text)
+        shown = "end of text" if token.kind == "end" else show(token.text)
         if after is not None:
-            shown += f" after {_show(after.text)}"
+            shown += f" after {show(after.text)}"
         if token.kind == "dot" and not hint:
             hint = " (a '.' is accepted only at the very end)"
         self.fail(f"unexpected {shown}", token.column, hint)
-
-    def enter(self, token: _Token) -> None:
-        self.depth += 1
-        if self.depth > MAX_DEPTH:
-            self.fail(
-                f"too deeply nested: {_show(token.text)} opens level {self.depth} "
-                f"(the limit is {MAX_DEPTH})",
-                token.column,
-            )
-
-    def check_size(self, bits: int, token: _Token) -> None:
-        if bits > MAX_NUMBER_BITS:
-            self.fail(
-                f"number too large: {_show(token.text)} could make a number "
-                f"of more than {MAX_NUMBER_BITS} bits",
-                token.column,
-            )
 
     def is_name(self, token: _Token) -> bool:
         """A letter, a \\mathrm{} name or a Greek letter: something a name is made of."""
@@ -496,7 +395,7 @@ class _Reader:
         if token.kind == "end":
             return result
         if token.kind == "close":
-            self.fail(f"unmatched {_show(token.text)}", token.column)
+            self.fail(f"unmatched {show(token.text)}", token.column)
         self.unexpected(token)
 
     def expression(self) -> sympy.Expr:
@@ -505,8 +404,7 @@ class _Reader:
         Each chain is one ``sympy.Mul`` and the sum one ``sympy.Add``, as in
         stepper.parse, so long texts cost linear time.
         """
-        terms: list[sympy.Expr] = []
-        sum_size = _SumSize()
+        terms = Sum(self)
         sign: _Token | None = None
         while True:
             factors: list[tuple[sympy.Expr, _Token]] = []
@@ -523,7 +421,7 @@ class _Reader:
                 if operator is not None and operator.value == "/":
                     if count > 1:
                         self.fail(
-                            f"ambiguous {_show(operator.text)}",
+                            f"ambiguous {show(operator.text)}",
                             operator.column,
                             f" (it is followed by a product of {count} factors: "
                             "write \\frac{...}{...} or use parentheses)",
@@ -533,18 +431,10 @@ class _Reader:
                 if not self.at("*", "/"):
                     break
                 operator = self.advance()
-            term = self.multiply(factors)
-            if sign is not None:
-                if sign.value == "-":
-                    term = -term
-                self.check_size(sum_size.add(term), sign)
-            terms.append(term)
+            terms.add(self.multiply(factors), sign)
             if not self.at("+", "-"):
-                break
+                return terms.value()
             sign = self.advance()
-            if len(terms) == 1:
-                sum_size.add(terms[0])
-        return terms[0] if len(terms) == 1 else sympy.Add(*terms)
 
     def starts_factor(self, token: _Token) -> bool:
         return token.kind in ("number", "letter", "name", "command", "open")
@@ -581,7 +471,7 @@ class _Reader:
             factors.append((self.factor(), token))
         if not factors:
             if argument_of is not None:
-                self.unexpected(token, hint=f" (the argument of {_show(argument_of.text)} is missing)")
+                self.unexpected(token, hint=f" (the argument of {show(argument_of.text)} is missing)")
             self.unexpected(token)
         return self.multiply(factors), len(factors)
 
@@ -593,7 +483,7 @@ class _Reader:
                 f" (without braces {script} takes one character: write "
                 f"{script}{{{digit}{token.text}}}, or use \\cdot for a product)"
             )
-        self.fail(f"number {_show(token.text)} follows a factor", token.column, hint)
+        self.fail(f"number {show(token.text)} follows a factor", token.column, hint)
 
     def factor(self) -> sympy.Expr:
         token = self.peek()
@@ -620,7 +510,7 @@ class _Reader:
             return self.scripts_of_value(self.root(self.advance()))
         if token.kind == "command":
             hint = " (line breaks are not accepted)" if token.text == "\\\\" else ""
-            self.fail(f"unknown command {_show(token.text)}", token.column, hint)
+            self.fail(f"unknown command {show(token.text)}", token.column, hint)
         self.unexpected(token)
 
     def scripts_of_value(self, value: sympy.Expr) -> sympy.Expr:
@@ -639,7 +529,7 @@ class _Reader:
             self.fail("unexpected '_'", token.column, " (a subscript belongs to a name)")
         if self.at("'"):
             self.fail(
-                f"unexpected {_show(token.text)}", token.column,
+                f"unexpected {show(token.text)}", token.column,
                 " (a prime belongs to a declared function)",
             )
 
@@ -649,12 +539,12 @@ class _Reader:
         if token.kind == "close" and token.value == expected:
             self.advance()
         elif token.kind == "end":
-            self.fail(f"unmatched {_show(opening.text)}", opening.column)
+            self.fail(f"unmatched {show(opening.text)}", opening.column)
         elif token.kind == "close":
             self.fail(
-                f"unexpected {_show(token.text)}",
+                f"unexpected {show(token.text)}",
                 token.column,
-                f" (expected {_show(expected)} to close {_show(opening.text)} "
+                f" (expected {show(expected)} to close {show(opening.text)} "
                 f"of column {opening.column})",
             )
         else:
@@ -696,7 +586,7 @@ class _Reader:
             return self.resolve(token, None)[0]
         self.unexpected(
             token, command,
-            f" (the arguments of {_show(command.text)} are braced groups or single characters)",
+            f" (the arguments of {show(command.text)} are braced groups or single characters)",
         )
 
     def one_digit(self, token: _Token, script: _Token, remember: bool) -> sympy.Integer:
@@ -728,7 +618,7 @@ class _Reader:
             self.close(opening)
             self.depth -= 1
             if index == 0:
-                self.fail(f"{_show(command.text)} of index zero", opening.column)
+                self.fail(f"{show(command.text)} of index zero", opening.column)
         radicand = self.argument(command)
         exponent = self.reciprocal(index, command)
         return self.power(radicand, exponent, command)
@@ -744,14 +634,14 @@ class _Reader:
             exponent = self.superscript(caret)
             if exponent.could_extract_minus_sign():
                 self.fail(
-                    f"negative power {_brief(exponent)} on function {_show(token.text)}",
+                    f"negative power {brief(exponent)} on function {show(token.text)}",
                     caret.column,
                     f" ({token.text}^{{-1}} often means the inverse function; "
                     f"write \\frac{{1}}{{{token.text} x}} or ({token.text} x)^{{...}})",
                 )
         if self.at("_"):
             self.fail(
-                f"unexpected '_' after {_show(token.text)}", self.peek().column,
+                f"unexpected '_' after {show(token.text)}", self.peek().column,
                 " (a function takes no subscript)",
             )
         late_caret: _Token | None = None
@@ -785,7 +675,7 @@ class _Reader:
                     self.fail("double superscript '^'", late_caret.column, " (use braces to group)")
                 late_exponent = self.superscript(late_caret)
         self.depth -= 1
-        value = self.apply(token, function, argument)
+        value = self.apply(token, ELEMENTARY_FUNCTIONS[function], argument)
         if caret is not None and exponent is not None:
             value = self.power(value, exponent, caret)
         if late_caret is not None and late_exponent is not None:
@@ -811,7 +701,7 @@ class _Reader:
             elif self.at("'"):
                 self.advance()
                 if caret is not None or order:
-                    self.fail(f"unexpected {_show(mark.text)}", mark.column,
+                    self.fail(f"unexpected {show(mark.text)}", mark.column,
                               " (write primes before the superscript, and not with \\dot)")
                 primes.append(mark)
             elif self.at("^"):
@@ -844,7 +734,7 @@ class _Reader:
             opening = self.advance()
             name = self.peek()
             if not self.is_name(name):
-                self.unexpected(name, dot, f" ({_show(dot.text)} takes a declared function)")
+                self.unexpected(name, dot, f" ({show(dot.text)} takes a declared function)")
             self.advance()
             subscript = None
             if self.at("_"):
@@ -854,7 +744,7 @@ class _Reader:
         if self.is_name(token):
             self.advance()
             return token, None
-        self.unexpected(token, dot, f" ({_show(dot.text)} takes a declared function)")
+        self.unexpected(token, dot, f" ({show(dot.text)} takes a declared function)")
 
     def subscript(self, underscore: _Token) -> str:
         """The text of a subscript: letters, digits, Greek letters, \\mathrm{} names."""
@@ -896,15 +786,7 @@ class _Reader:
             arguments.append(self.expression())
         self.close(opening)
         self.depth -= 1
-        if tuple(arguments) != tuple(declared.args):
-            expected = ", ".join(_brief(argument) for argument in declared.args)
-            actual = ", ".join(_brief(argument) for argument in arguments)
-            self.fail(
-                f"function {_show(name)} is declared with arguments ({expected}) "
-                f"but called with ({actual})",
-                token.column,
-                " (write \\cdot for a product)",
-            )
+        self.check_call(name, declared, arguments, token, " (write \\cdot for a product)")
 
     # -- names
 
@@ -935,11 +817,11 @@ class _Reader:
         if subscript is None and base.kind != "command" and base.value == "e":
             return sympy.E, "constant", "e"
         shown = base.text if subscript is None else f"{base.text}_{subscript}"
-        tried = " or ".join(_show(name) for name in names)
+        tried = " or ".join(show(name) for name in names)
         hint = self.word_hint(base) if base.kind == "letter" and subscript is None else ""
         if not hint and (subscript is not None or base.kind == "command"):
             hint = f" (no declared name {tried})"
-        self.fail(f"unknown name {_show(shown)}", base.column, hint)
+        self.fail(f"unknown name {show(shown)}", base.column, hint)
 
     def word_hint(self, letter: _Token) -> str:
         """Advice when an unknown letter begins or sits in a word that means something."""
@@ -964,96 +846,31 @@ class _Reader:
     ) -> sympy.Expr:
         if kind != "function":
             self.fail(
-                f"{_show(marker.text)} on {_show(name)}",
+                f"{show(marker.text)} on {show(name)}",
                 marker.column,
-                f" ({_show(name)} is not a declared function)",
+                f" ({show(name)} is not a declared function)",
             )
         if len(value.args) != 1 or not isinstance(value.args[0], sympy.Symbol):
-            arguments = ", ".join(_brief(argument) for argument in value.args)
+            arguments = ", ".join(brief(argument) for argument in value.args)
             self.fail(
-                f"{_show(marker.text)} on {_show(name)}",
+                f"{show(marker.text)} on {show(name)}",
                 marker.column,
-                f" ({_show(name)} is declared with arguments ({arguments}); a dot or prime "
+                f" ({show(name)} is declared with arguments ({arguments}); a dot or prime "
                 "needs a function of one variable)",
             )
         return sympy.Derivative(value, (value.args[0], order))
 
-    # -- numbers and guards (the guards of stepper.parse)
+    # -- numbers and the guarded sympy calls peculiar to LaTeX
 
     def number(self, token: _Token) -> sympy.Rational:
         """An exact rational from decimal digits: 2.5 -> 5/2."""
         whole, _, fraction = token.value.partition(".")
         digits = (whole + fraction).lstrip("0")
-        if len(digits) > _MAX_DIGITS:  # refuse hopeless sizes before converting
+        if len(digits) > MAX_DIGITS:  # refuse hopeless sizes before converting
             self.check_size(MAX_NUMBER_BITS + 1, token)
         value = sympy.Rational(int(digits or "0"), 10 ** len(fraction))
-        self.check_size(_rational_bits(value), token)
+        self.check_size(rational_bits(value), token)
         return value
-
-    def facts(self, expression: sympy.Basic) -> _Facts:
-        """Facts about an expression, computed without recursion and memoised.
-
-        Shared sub-expressions are visited once, so this stays linear even
-        when abbreviations make the expression tree far larger than its text.
-        """
-        memo = self.memo
-        pending: list[tuple[sympy.Basic, bool]] = [(expression, False)]
-        while pending:
-            node, children_done = pending.pop()
-            if node in memo:
-                continue
-            if not children_done:
-                pending.append((node, True))
-                pending.extend((child, False) for child in node.args if child not in memo)
-                continue
-            children = [memo[child] for child in node.args]
-            bits = max((child.bits for child in children), default=0)
-            magnitude = max((child.magnitude for child in children), default=0)
-            if node.is_Rational:
-                bits = _rational_bits(node)
-                magnitude = max(abs(node.p), node.q)
-            nesting: int | None
-            if node.is_Symbol or isinstance(node, AppliedUndef):
-                nesting = None
-            elif any(child.nesting is None for child in children):
-                nesting = None
-            else:
-                own = 1 if (node.is_Pow or node.is_Function) else 0
-                nesting = own + max((child.nesting or 0 for child in children), default=0)
-            memo[node] = _Facts(
-                bits=bits,
-                magnitude=magnitude,
-                nesting=nesting,
-                has_log=isinstance(node, sympy.log) or any(c.has_log for c in children),
-                undefined=node in _UNDEFINED or any(c.undefined for c in children),
-            )
-        return memo[expression]
-
-    def exp_bits(self, argument: sympy.Expr) -> int:
-        """Bound on the bits of the number sympy may make of ``exp(argument)``:
-        it rewrites exp(c*log(b)) as b^c, about c*bits(b) bits for numbers."""
-        total = 0
-        for term in sympy.Add.make_args(argument):
-            coefficient, rest = term.as_coeff_Mul()
-            facts = self.facts(rest)
-            if facts.has_log:
-                scale = abs(coefficient.p) if coefficient.is_Rational else 1
-                total += facts.bits * max(1, scale)
-        return total
-
-    def check_nesting(self, parts: tuple[sympy.Expr, ...], token: _Token) -> None:
-        """Bound how deep powers and functions nest inside a constant (sympy
-        settles questions about constants by costly numerical evaluation)."""
-        levels = [self.facts(part).nesting for part in parts]
-        if any(level is None for level in levels):
-            return
-        level = 1 + max(level or 0 for level in levels)
-        if level > MAX_CONSTANT_NESTING:
-            self.fail(
-                f"constant too deeply nested: {_show(token.text)} makes {level} levels "
-                f"of powers and functions (the limit is {MAX_CONSTANT_NESTING})",
-                token.column,
-            )
 
     def multiply(self, factors: list[tuple[sympy.Expr, _Token]]) -> sympy.Expr:
         """One sympy.Mul for a chain of factors, after bounding its numbers."""
@@ -1064,7 +881,7 @@ class _Reader:
         if len(factors) == 1:
             return factors[0][0]
         result = sympy.Mul(*(factor for factor, _ in factors))
-        if result in _UNDEFINED:
+        if result in UNDEFINED:
             self.fail("undefined product (division by zero?)", factors[-1][1].column)
         return result
 
@@ -1072,30 +889,3 @@ class _Reader:
         if value == 0:
             self.fail("division by zero", token.column)
         return value**-1
-
-    def power(self, base: sympy.Expr, exponent: sympy.Expr, token: _Token) -> sympy.Expr:
-        # Estimate what sympy would compute before asking it to.
-        base_facts = self.facts(base)
-        if exponent.is_Rational:
-            estimate = base_facts.bits * max(1, abs(exponent.p))
-        else:
-            # exp(a)^(c*log(b)) becomes b^(a*c).
-            estimate = max(base_facts.bits, max(1, base_facts.magnitude) * self.exp_bits(exponent))
-        self.check_size(estimate, token)
-        self.check_nesting((base, exponent), token)
-        result = base**exponent
-        if result in _UNDEFINED:
-            self.fail("division by zero" if base == 0 else "undefined power", token.column)
-        return result
-
-    def apply(self, token: _Token, function: str, argument: sympy.Expr) -> sympy.Expr:
-        if function == "exp":
-            self.check_size(self.exp_bits(argument), token)
-        self.check_nesting((argument,), token)
-        result = ELEMENTARY_FUNCTIONS[function](argument)
-        if self.facts(result).undefined:
-            self.fail(
-                f"function {_show(token.text)} is undefined for argument {_brief(argument)}",
-                token.column,
-            )
-        return result

@@ -42,6 +42,17 @@ KNOWN_KEYS = ("title", "notes", "coordinates", "line_element", "components", "sy
 def load_metric(path: str | Path) -> Metric:
     """Read and check a metric file; every problem is an :class:`InputError`."""
     path = Path(path)
+    return metric_from_data(read_toml(path), default_title=path.stem)
+
+
+def read_toml(path: str | Path) -> dict[str, Any]:
+    """The table in the TOML file at ``path``.
+
+    A missing or unreadable file, a folder, text that is not UTF-8, an empty
+    file and invalid TOML each raise a one-line :class:`InputError` naming
+    the file.
+    """
+    path = Path(path)
     try:
         raw = path.read_bytes()
     except FileNotFoundError:
@@ -49,7 +60,7 @@ def load_metric(path: str | Path) -> Metric:
     except IsADirectoryError:
         raise InputError(f"cannot read {path}: it is a folder") from None
     except OSError as err:
-        raise InputError(f"cannot read {path}: {err.strerror}") from None
+        raise InputError(f"cannot read {path}: {err.strerror or err}") from None
     try:
         text = raw.decode("utf-8")
     except UnicodeDecodeError:
@@ -57,10 +68,9 @@ def load_metric(path: str | Path) -> Metric:
     if not text.strip():
         raise InputError(f"{path} is empty")
     try:
-        data = tomllib.loads(text)
+        return tomllib.loads(text)
     except tomllib.TOMLDecodeError as err:
         raise InputError(f"{path} is not valid TOML: {err}") from None
-    return metric_from_data(data, default_title=path.stem)
 
 
 def _text(data: dict, key: str, default: str | None = None) -> str | None:

@@ -21,6 +21,7 @@ import mpmath
 import sympy
 
 from . import numeric
+from .sampling import signed_sample
 
 #: Working precision of the check (decimal digits).
 DIGITS = 30
@@ -46,13 +47,9 @@ class NumericCheck:
 
 
 def _sample(symbol: sympy.Symbol, rng: random.Random) -> sympy.Rational:
-    """A random rational of the right sign, between about 0.4 and 2.6 in size."""
-    value = sympy.Rational(rng.randint(400, 2600), 1000)
-    if symbol.is_negative or symbol.is_nonpositive:
-        return -value
-    if symbol.is_positive or symbol.is_nonnegative:
-        return value
-    return value if rng.random() < 0.75 else -value
+    """A random rational of the right sign, between about 0.4 and 2.6 in size
+    (a symbol of unknown sign is positive three times in four)."""
+    return signed_sample(symbol, rng, 400, 2600, positive_share=0.75)
 
 
 def _concrete_functions(functions: Sequence[sympy.Expr], rng: random.Random) -> dict:
