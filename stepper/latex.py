@@ -190,28 +190,31 @@ def _trig_normal(expr: sympy.Expr) -> sympy.Expr:
     return sympy.expand(expr)
 
 
+#: LaTeX head and index placement per quantity: (symbol, number of upper indices).
+_COMPONENT_SYMBOLS = {
+    "christoffel": (r"\Gamma", 1),
+    "riemann": ("R", 1),
+    "riemann_lowered": ("R", 0),
+    "weyl": ("C", 0),
+    "ricci": ("R", 0),
+    "ricci_by_trace_identity": ("R^{(2)}", 0),
+    "einstein": ("G", 0),
+    "metric": ("g", 0),
+    "inverse_metric": ("g", 2),
+}
+
+
 def component_symbol(quantity: str, names: Sequence[str], writer: ExpressionWriter) -> str:
     """The LaTeX symbol of a component, e.g. Gamma^r_{tt} for ("christoffel", ["r", "t", "t"])."""
+    head, upper = _COMPONENT_SYMBOLS[quantity]
     tex = ["{" + writer.symbol(n) + "}" for n in names]
-    if quantity == "christoffel":
-        return rf"\Gamma^{{{tex[0]}}}_{{{tex[1]}{tex[2]}}}"
-    if quantity == "riemann":
-        return rf"R^{{{tex[0]}}}{{}}_{{{tex[1]}{tex[2]}{tex[3]}}}"
-    if quantity == "riemann_lowered":
-        return rf"R_{{{''.join(tex)}}}"
-    if quantity == "weyl":
-        return rf"C_{{{''.join(tex)}}}"
-    if quantity == "ricci":
-        return rf"R_{{{''.join(tex)}}}"
-    if quantity == "ricci_by_trace_identity":
-        return rf"R^{{(2)}}_{{{''.join(tex)}}}"
-    if quantity == "einstein":
-        return rf"G_{{{''.join(tex)}}}"
-    if quantity == "metric":
-        return rf"g_{{{''.join(tex)}}}"
-    if quantity == "inverse_metric":
-        return rf"g^{{{''.join(tex)}}}"
-    raise KeyError(quantity)
+    up, down = "".join(tex[:upper]), "".join(tex[upper:])
+    if not down:
+        return rf"{head}^{{{up}}}"
+    if not up:
+        return rf"{head}_{{{down}}}"
+    spacer = "{}" if head == "R" else ""  # R^a{}_{bcd}: the lower indices start after the upper one
+    return rf"{head}^{{{up}}}{spacer}_{{{down}}}"
 
 
 def mapping_lines(mapping: Mapping[str, sympy.Expr], quantity: str, writer: ExpressionWriter) -> list[tuple[str, bool]]:

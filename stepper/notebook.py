@@ -701,15 +701,18 @@ check_summary("riemann", recorded, riemann, riemann_from_christoffel,
 {self._done(step)}"""
         return "riemann_summary", code
 
-    def ricci_component(self, step):
-        key = self._indices(step)
-        i, j = (self.s.name(p) for p in key.split(","))
-        store = f"ricci[{i}, {j}] = recorded" if i == j else f"ricci[{i}, {j}] = ricci[{j}, {i}] = recorded"
+    def _symmetric_component(self, step, table: str, recompute: str, topic: str):
+        """A two-index symmetric component: check it, then store it under both index orders."""
+        i, j = (self.s.name(p) for p in self._indices(step).split(","))
+        store = f"{table}[{i}, {j}] = recorded" if i == j else f"{table}[{i}, {j}] = {table}[{j}, {i}] = recorded"
         code = f"""recorded = {self.s.expr(step.result)}
-check({self._id(step)}, recorded, ricci_from_riemann({i}, {j}))
+check({self._id(step)}, recorded, {recompute}({i}, {j}))
 {store}
 {self._done(step)}"""
-        return "ricci_component", code
+        return topic, code
+
+    def ricci_component(self, step):
+        return self._symmetric_component(step, "ricci", "ricci_from_riemann", "ricci_component")
 
     def ricci_summary(self, step):
         code = f"""# Every non-zero R_ij, both orders (those not listed are zero).
@@ -748,14 +751,7 @@ scalar_curvature = recorded
         return "scalar", code
 
     def einstein_component(self, step):
-        key = self._indices(step)
-        i, j = (self.s.name(p) for p in key.split(","))
-        store = f"einstein[{i}, {j}] = recorded" if i == j else f"einstein[{i}, {j}] = einstein[{j}, {i}] = recorded"
-        code = f"""recorded = {self.s.expr(step.result)}
-check({self._id(step)}, recorded, einstein_from_ricci({i}, {j}))
-{store}
-{self._done(step)}"""
-        return "einstein_component", code
+        return self._symmetric_component(step, "einstein", "einstein_from_ricci", "einstein_component")
 
     def einstein_summary(self, step):
         code = f"""# Every non-zero G_ij, both orders (those not listed are zero).
