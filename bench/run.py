@@ -126,20 +126,19 @@ def format_seconds(value, limit) -> str:
     return f"{value:.2f}"
 
 
-def print_table(rows: list[dict], limit: float) -> None:
-    header = f"{'metric':32} {'n':>2} {'baseline s':>11} {'stepper s':>10} {'+pdf+nb s':>10} {'ratio':>8} {'peak MiB':>9}"
-    print(header)
-    print("-" * len(header))
-    for row in rows:
-        base = row["baseline"]
-        if base is None:
-            ratio = "-"
-        elif base == float("inf"):
-            ratio = f">{limit / row['stepper']:.0f}"
-        else:
-            ratio = f"{base / row['stepper']:.1f}"
-        print(f"{row['metric']:32} {row['n']:>2} {format_seconds(base, limit):>11} {row['stepper']:>10.2f} "
-              f"{row['stepper_all']:>10.2f} {ratio:>8} {row['memory_mib']:>9.0f}", flush=True)
+HEADER = f"{'metric':32} {'n':>2} {'baseline s':>11} {'stepper s':>10} {'+pdf+nb s':>10} {'ratio':>8} {'peak MiB':>9}"
+
+
+def table_row(row: dict, limit: float) -> str:
+    base = row["baseline"]
+    if base is None:
+        ratio = "-"
+    elif base == float("inf"):
+        ratio = f">{limit / row['stepper']:.0f}"
+    else:
+        ratio = f"{base / row['stepper']:.1f}"
+    return (f"{row['metric']:32} {row['n']:>2} {format_seconds(base, limit):>11} {row['stepper']:>10.2f} "
+            f"{row['stepper_all']:>10.2f} {ratio:>8} {row['memory_mib']:>9.0f}")
 
 
 def main() -> None:
@@ -149,22 +148,26 @@ def main() -> None:
     parser.add_argument("--baseline-limit", type=float, default=1800, help="seconds before a baseline is stopped")
     parser.add_argument("--repeats", type=int, default=3, help="runs per stepper measurement (median)")
     parser.add_argument("--largest", type=int, default=8, help="largest dimension of the growing families")
+    parser.add_argument("--only", choices=("named", "families"), help="run only the named metrics or only the families")
     args = parser.parse_args()
     rows = []
     with tempfile.TemporaryDirectory(prefix="stepper-bench-") as folder:
         folder = Path(folder)
         out = folder / "out"
-        jobs = [(label, path) for label, path in NAMED]
-        jobs += [(f"round {n}-sphere", sphere_file(n, folder)) for n in range(2, args.largest + 1)]
-        jobs += [(f"{n - 1} free scale factors", scale_factor_file(n, folder)) for n in range(2, args.largest + 1)]
+        jobs = [] if args.only == "families" else [(label, path) for label, path in NAMED]
+        if args.only != "named":
+            jobs += [(f"round {n}-sphere", sphere_file(n, folder)) for n in range(2, args.largest + 1)]
+            jobs += [(f"{n - 1} free scale factors", scale_factor_file(n, folder))
+                     for n in range(2, args.largest + 1)]
         print(f"python {sys.version.split()[0]}, {os.cpu_count()} cores; stepper median of {args.repeats} runs; "
               f"baseline limit {args.baseline_limit:.0f} s", flush=True)
+        print(HEADER)
+        print("-" * len(HEADER), flush=True)
         for label, path in jobs:
             from stepper import load_metric  # the dimension, read the same way stepper reads it
             dimension = load_metric(path).dimension
             rows.append(measure(label, path, dimension, args, out))
-            print(f"  measured {label}", file=sys.stderr, flush=True)
-        print_table(rows, args.baseline_limit)
+            print(table_row(rows[-1], args.baseline_limit), flush=True)
 
 
 if __name__ == "__main__":
