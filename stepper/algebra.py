@@ -40,6 +40,10 @@ from .sampling import signed_sample
 #: times (the contracted Bianchi identity differentiates the Einstein tensor).
 EXTRA_DERIVATIVE_ORDERS = 3
 
+#: Polynomials in more generators than this are shown unfactored: multivariate
+#: factoring costs far more than the rest of the derivation there.
+FACTOR_GENERATORS_LIMIT = 6
+
 
 @dataclass(frozen=True)
 class ZeroTest:
@@ -541,9 +545,15 @@ class FieldArithmetic:
         return printer_stable(num / den)
 
     def _poly_to_expr(self, poly: PolyElement, factor: bool) -> sympy.Expr:
+        """A polynomial as an expression: its monomial factor times the rest, the rest factored
+        into irreducibles when that is cheap (few terms in few generators)."""
         if poly.is_ground:
             return sympy.Integer(int(poly.LC)) if poly else sympy.Integer(0)
-        if not factor:
+        monomial, rest = self._split_monomial(poly)
+        if monomial != 1:
+            return self._as_expr(monomial) * self._poly_to_expr(rest, factor)
+        used = sum(1 for i in range(self.ring.ngens) if poly.degree(i) > 0)
+        if not factor or used > FACTOR_GENERATORS_LIMIT:
             return self._as_expr(self._nicer_trig_form(poly))
         key = (poly.ring, tuple(sorted(poly.items())))
         if key not in self._factor_cache:
@@ -558,6 +568,15 @@ class FieldArithmetic:
                 sign *= (-1) ** mult
             parts.append(self._as_expr(f) ** mult)
         return sympy.Mul(sympy.Integer(sign * int(content)), *parts)
+
+    def _split_monomial(self, poly: PolyElement) -> tuple[PolyElement, PolyElement]:
+        """(m, q) with poly = m q, m the largest monomial dividing every term."""
+        exponents = tuple(min(monom[i] for monom in poly.keys()) for i in range(self.ring.ngens))
+        if not any(exponents):
+            return self.ring.one, poly
+        monomial = self.ring.from_dict({exponents: 1})
+        rest = self.ring.from_dict({tuple(e - m for e, m in zip(monom, exponents)): c for monom, c in poly.items()})
+        return monomial, rest
 
     def _looks_negative(self, poly: PolyElement) -> bool:
         """More negative than positive coefficients or, on a tie, a negative
