@@ -8,19 +8,14 @@ from __future__ import annotations
 
 import argparse
 import sys
-
-import jinja2
 import time
 from pathlib import Path
 from typing import Sequence
 
 from . import __version__
-from .audit import audit, record_audit
 from .chain import Derivation, TimeLimitReached, default_jobs, derive
-from .claims import load_claims
 from .errors import InputError
 from .metricfile import load_metric
-from .exporters import EXPORTERS, TexFailed, TexMissing
 from .trace import write_atomically
 
 
@@ -131,12 +126,17 @@ def run_derive(args: argparse.Namespace) -> int:
 
 
 def run_audit(args: argparse.Namespace) -> int:
+    from .claims import load_claims
     metric, title, claims = load_claims(args.file)
     out_dir = Path(args.output) if args.output else Path("out") / Path(args.file).stem
     return _derive_and_export(args, metric, out_dir, title=title, claims=claims)
 
 
 def _derive_and_export(args: argparse.Namespace, metric, out_dir: Path, title: str = "", claims=None) -> int:
+    # Imported here so that a run writing only trace.json does not pay for templates and TeX.
+    import jinja2
+
+    from .exporters import EXPORTERS, TexFailed, TexMissing
     formats = _formats(args.formats)
     if out_dir.exists() and not out_dir.is_dir():
         raise InputError(f"output folder {out_dir} exists and is not a folder")
@@ -157,6 +157,7 @@ def _derive_and_export(args: argparse.Namespace, metric, out_dir: Path, title: s
         return 3
     status = 0
     if claims is not None:
+        from .audit import audit, record_audit
         verdicts, earliest = audit(derivation, claims)
         record_audit(derivation, title, verdicts, earliest)
         if not derivation.results["audit"]["all_agree"]:
@@ -229,6 +230,7 @@ def audit_summary(derivation: Derivation) -> str:
 
 
 def _formats(text: str | None) -> list[str]:
+    from .exporters import EXPORTERS
     if not text:
         return list(EXPORTERS)
     chosen = [part.strip() for part in text.split(",") if part.strip()]

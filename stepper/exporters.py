@@ -22,11 +22,7 @@ import tempfile
 from pathlib import Path
 from typing import Sequence
 
-import jinja2
-from pylatex import Document, Package
-
 from .chain import Derivation
-from .report import report_model
 from .trace import trace_json
 
 def _project_templates() -> Path:
@@ -55,7 +51,9 @@ class TexFailed(Exception):
         self.log = log
 
 
-def template_environment(extra_folders: Sequence[Path] = ()) -> jinja2.Environment:
+def template_environment(extra_folders: Sequence[Path] = ()):
+    """A Jinja2 environment over the user's folders, then the project's templates/."""
+    import jinja2
     folders = [str(Path(f)) for f in extra_folders] + [str(PROJECT_TEMPLATES)]
     return jinja2.Environment(
         loader=jinja2.FileSystemLoader(folders),
@@ -69,6 +67,7 @@ def template_environment(extra_folders: Sequence[Path] = ()) -> jinja2.Environme
 
 def latex_preamble() -> str:
     """The packages a report needs, assembled with pylatex."""
+    from pylatex import Document, Package
     document = Document(documentclass="article", lmodern=True, textcomp=True, page_numbers=False,
                         geometry_options={"margin": "2.2cm"})
     document.packages.append(Package("amsmath"))
@@ -102,6 +101,7 @@ class _TemplateExporter(Exporter):
     template_name = ""
 
     def export(self, derivation: Derivation) -> str:
+        from .report import report_model
         environment = template_environment(self.templates)
         template = environment.get_template(self.template_name)
         return template.render(preamble=latex_preamble(), **report_model(derivation))
