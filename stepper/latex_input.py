@@ -552,25 +552,17 @@ class _Reader(GuardedReader[_Token]):
 
     def superscript(self, caret: _Token) -> sympy.Expr:
         """What follows ^: a braced group, one digit, or one name."""
-        token = self.peek()
-        if self.at_open("{"):
-            opening = self.advance()
-            self.enter(opening)
-            value = self.expression()
-            self.close(opening)
-            self.depth -= 1
-            return value
-        if token.kind == "number":
-            return self.one_digit(token, caret, remember=True)
-        if self.is_name(token):
-            self.advance()
-            return self.resolve(token, None)[0]
-        self.unexpected(
-            token, caret, " (without braces a superscript is one character: write ^{...})"
-        )
+        return self._group_or_single(
+            caret, True, " (without braces a superscript is one character: write ^{...})")
 
     def argument(self, command: _Token) -> sympy.Expr:
         """An argument of \\frac or \\sqrt: a braced group, one digit, or one name."""
+        return self._group_or_single(
+            command, False,
+            f" (the arguments of {show(command.text)} are braced groups or single characters)")
+
+    def _group_or_single(self, anchor: _Token, remember: bool, hint: str) -> sympy.Expr:
+        """A braced group, or (as TeX reads an undelimited argument) one digit or one name."""
         token = self.peek()
         if self.at_open("{"):
             opening = self.advance()
@@ -580,14 +572,11 @@ class _Reader(GuardedReader[_Token]):
             self.depth -= 1
             return value
         if token.kind == "number":
-            return self.one_digit(token, command, remember=False)
+            return self.one_digit(token, anchor, remember=remember)
         if self.is_name(token):
             self.advance()
             return self.resolve(token, None)[0]
-        self.unexpected(
-            token, command,
-            f" (the arguments of {show(command.text)} are braced groups or single characters)",
-        )
+        self.unexpected(token, anchor, hint)
 
     def one_digit(self, token: _Token, script: _Token, remember: bool) -> sympy.Integer:
         """Take the first digit of a number token, leaving the rest as a number."""
