@@ -81,6 +81,14 @@ _NOTEBOOK_NAMES = frozenset("""
 """.split())
 
 
+#: The only sympy names a printed expression may contain: the elementary functions a metric file may
+#: use (see stepper.parse), their sympy spellings, and what the printer writes for numbers and derivatives.
+_PRINTABLE_SYMPY_NAMES = frozenset("""
+    sin cos tan cot sec csc sinh cosh tanh coth exp log sqrt Abs pi E I
+    Derivative Rational Integer Function Symbol S
+""".split())
+
+
 class NotebookError(ValueError):
     """The derivation holds something the notebook cannot write safely."""
 
@@ -186,8 +194,9 @@ class _Source:
         text = self._printer.doprint(as_expression(value))
         for token in tokenize.generate_tokens(io.StringIO(text).readline):
             if token.type == tokenize.NAME and token.string not in self._own:
-                if not hasattr(sympy, token.string) or token.string.startswith("_"):
-                    raise NotebookError(f"printed expression uses {token.string!r}, which is not a sympy name")
+                if token.string not in _PRINTABLE_SYMPY_NAMES:
+                    raise NotebookError(f"printed expression uses {token.string!r}, which the notebook does "
+                                        "not write into code")
                 self.sympy_names.add(token.string)
         return text
 
@@ -837,8 +846,11 @@ verdict({self._id(step)}, recorded_holds, residues)"""
         functions = {f.func.__name__: f for f in self.d.metric.functions}
         bodies = "{" + ", ".join(f"{self.s.expr(functions[name])}: {self.s.expr(body)}"
                                  for name, body in params["functions"].items()) + "}"
-        points = "[" + ", ".join("{" + ", ".join(f'"{k}": "{v}"' for k, v in point.items()
-                                                 if _NUMBER.fullmatch(v) and _STEP_ID.fullmatch(k)) + "}"
+        for point in params["points"]:
+            for k, v in point.items():
+                if not (_NUMBER.fullmatch(v) and k in self.s.coordinate_names):
+                    raise NotebookError(f"numeric_verification point {k}={v!r} is not a plain number")
+        points = "[" + ", ".join("{" + ", ".join(f'"{k}": "{v}"' for k, v in point.items()) + "}"
                                  for point in params["points"]) + "]"
         code = f"""{self._holds(step)}
 # A numeric spot check of the Christoffel symbols, independent of the algebra above: at the recorded
