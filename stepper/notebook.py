@@ -723,12 +723,16 @@ check({self._id(step)}, recorded, {recompute}({i}, {j}))
     def ricci_component(self, step):
         return self._symmetric_component(step, "ricci", "ricci_from_riemann", "ricci_component")
 
-    def ricci_summary(self, step):
-        code = f"""# Every non-zero R_ij, both orders (those not listed are zero).
+    def _symmetric_summary(self, step, table: str, symbol: str, recompute: str):
+        """Summary of a symmetric two-index tensor: listed entries match, the rest recompute to zero."""
+        code = f"""# Every non-zero {symbol}_ij, both orders (those not listed are zero).
 recorded = {self.s.table(step.result)}
-check_summary("ricci", recorded, ricci, ricci_from_riemann, index_pairs())
+check_summary("{table}", recorded, {table}, {recompute}, index_pairs())
 {self._done(step)}"""
-        return "ricci_summary", code
+        return f"{table}_summary", code
+
+    def ricci_summary(self, step):
+        return self._symmetric_summary(step, "ricci", "R", "ricci_from_riemann")
 
     def ricci_symmetry(self, step):
         code = f"""{self._holds(step)}
@@ -763,11 +767,7 @@ scalar_curvature = recorded
         return self._symmetric_component(step, "einstein", "einstein_from_ricci", "einstein_component")
 
     def einstein_summary(self, step):
-        code = f"""# Every non-zero G_ij, both orders (those not listed are zero).
-recorded = {self.s.table(step.result)}
-check_summary("einstein", recorded, einstein, einstein_from_ricci, index_pairs())
-{self._done(step)}"""
-        return "einstein_summary", code
+        return self._symmetric_summary(step, "einstein", "G", "einstein_from_ricci")
 
     # lowered Riemann, invariants, Weyl ------------------------------------
     def riemann_lowered(self, step):
