@@ -31,6 +31,9 @@ from .errors import InputError
 from .metric import LINE_ELEMENT_CONVENTION, Metric
 from .tracer import Simplification, Step, Tracer, Verdict
 from .verify import numeric_check
+from .matter import CONVENTIONS as MATTER_CONVENTIONS, CONVENTIONS_LATEX as MATTER_CONVENTIONS_LATEX, record_matter
+from .ansatz import record_ansatz
+from .geodesics import record_geodesics
 
 CONVENTIONS = {
     "line_element": LINE_ELEMENT_CONVENTION,
@@ -159,7 +162,9 @@ class _Chain:
         self.x = metric.coordinates
         self.progress = progress
         self.invariants = curvature_invariants
-        self.A = arithmetic or choose_arithmetic(metric.coordinates, list(metric.matrix), metric.parameters)
+        extra = list(metric.extra_symbols)
+        self.A = arithmetic or choose_arithmetic(metric.coordinates, list(metric.matrix) + extra,
+                                                 tuple(metric.parameters) + tuple(extra))
         self.tracer = Tracer()
         self.results: dict = {}
         self._expr_cache: dict = {}
@@ -270,6 +275,11 @@ class _Chain:
         if self.invariants:
             stages += [self.kretschmann, self.weyl]
         stages += [self.bianchi, self.numeric_verification]
+        if self.metric.matter is not None:
+            stages.append(self.matter)
+        if self.metric.ansatz is not None:
+            stages.append(self.ansatz)
+        stages.append(self.geodesics)
         for number, stage in enumerate(stages):
             self.check_time(f"{stage.__name__} (stage {number + 1} of {len(stages)})")
             self.progress(stage.__name__, number, len(stages))
@@ -278,7 +288,19 @@ class _Chain:
         derivation = Derivation(self.metric, self.tracer.steps, self.results, self.A.name,
                                 time.perf_counter() - start)
         derivation.arithmetic_description = self.A.description
+        if self.metric.matter is not None:
+            derivation.conventions.update(MATTER_CONVENTIONS)
+            derivation.conventions_latex.update(MATTER_CONVENTIONS_LATEX)
         return derivation
+
+    def matter(self) -> None:
+        record_matter(self, self.metric.matter)
+
+    def ansatz(self) -> None:
+        record_ansatz(self, self.metric.ansatz)
+
+    def geodesics(self) -> None:
+        record_geodesics(self, self.metric.orbit)
 
     def metric_step(self) -> None:
         n = self.n

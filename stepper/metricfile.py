@@ -10,6 +10,24 @@ Keys (all text is parsed by :mod:`stepper.parse`, never evaluated)::
     [symbols]        name = "positive" | "negative" | "nonnegative" | "nonpositive" | "nonzero" | "real"
     [functions]      name = ["t", "r"]  # a free function and the coordinates it depends on
     [abbreviations]  name = "expression" # may use earlier abbreviations
+
+Optional requests beyond curvature::
+
+    [matter]                     # the stress-energy tensor the metric requires
+    units = "geometric"          # G = c = 1; or "physical": kappa = 8 pi G / c^4
+    cosmological_constant = "0"  # an expression in declared symbols
+    time = "t"                   # observers are normal to time = const (default: first coordinate)
+    [matter.region]              # ranges for sampling undecided energy conditions
+    r = ["3", "20"]
+    [ansatz]                     # solve G_ij + Lambda g_ij = 0 for free functions
+    unknowns = ["A", "B"]
+    cosmological_constant = "0"
+    [orbit]                      # a geodesic integrated numerically in the notebook
+    kind = "timelike"            # or "null"
+    values = { M = "1" }
+    start = { t = "0", r = "10", theta = "pi/2", phi = "0" }
+    velocity = { r = "0", theta = "0", phi = "1/30" }
+    span = "300"
 """
 
 from __future__ import annotations
@@ -23,7 +41,7 @@ import sympy
 
 from .errors import InputError
 from .algebra import printer_stable
-from .metric import Metric, _validate
+from .metric import AnsatzRequest, MatterRequest, Metric, OrbitRequest, _validate
 from .parse import Vocabulary, check_identifier, parse_expression
 
 ASSUMPTIONS = {
@@ -36,7 +54,11 @@ ASSUMPTIONS = {
 }
 
 KNOWN_KEYS = ("title", "notes", "coordinates", "line_element", "components", "symbols", "functions",
-              "abbreviations")
+              "abbreviations", "matter", "ansatz", "orbit")
+MATTER_KEYS = ("units", "cosmological_constant", "time", "region")
+ANSATZ_KEYS = ("unknowns", "cosmological_constant")
+ORBIT_KEYS = ("kind", "values", "start", "velocity", "span")
+UNITS = ("geometric", "physical")
 
 
 def load_metric(path: str | Path) -> Metric:
@@ -161,6 +183,13 @@ def metric_from_data(data: dict[str, Any], default_title: str = "Untitled metric
         matrix = matrix_from_components(data["components"], coordinates, vocabulary)
     _validate(coordinates, matrix)
     used = set().union(*(e.free_symbols for e in matrix))
+    requests = {}
+    if "matter" in data:
+        requests["matter"] = _matter_request(_table(data, "matter"), coordinates, symbols, functions)
+    if "ansatz" in data:
+        requests["ansatz"] = _ansatz_request(_table(data, "ansatz"), coordinates, symbols, functions, matrix)
+    if "orbit" in data:
+        requests["orbit"] = _orbit_request(_table(data, "orbit"), coordinates, symbols, functions, used)
     return Metric(
         coordinates=coordinates,
         matrix=matrix,
@@ -171,7 +200,118 @@ def metric_from_data(data: dict[str, Any], default_title: str = "Untitled metric
         line_element=line,
         notes=notes,
         assumptions=tuple((n, declared.get(n, "real")) for n in list(names) + [p.name for p in parameters]),
+        **requests,
     )
+
+
+def _check_keys(table: dict, known: tuple[str, ...], where: str) -> None:
+    unknown = [k for k in table if k not in known]
+    if unknown:
+        raise InputError(f"unknown key '{unknown[0]}' in [{where}] (known keys: {', '.join(known)})")
+
+
+def _constant_expression(table: dict, key: str, symbols: dict, where: str, coordinates=()) -> sympy.Expr:
+    """An expression in declared parameters only (no coordinates, no free functions)."""
+    text = table.get(key, "0")
+    if isinstance(text, (int, float)) and not isinstance(text, bool):
+        text = repr(text)
+    if not isinstance(text, str):
+        raise InputError(f"'{where}.{key}' must be text")
+    value = parse_expression(text, Vocabulary(symbols, {}, {}), f"{where}.{key}")
+    bad = [s.name for s in value.free_symbols if s in set(coordinates)]
+    if bad:
+        raise InputError(f"'{where}.{key}' must be a constant, but it uses the coordinate '{bad[0]}'")
+    return value
+
+
+def _coordinate(table: dict, key: str, coordinates, where: str) -> sympy.Symbol:
+    names = [c.name for c in coordinates]
+    name = table.get(key, names[0])
+    if not isinstance(name, str) or name not in names:
+        raise InputError(f"'{where}.{key}' must be one of the coordinates ({', '.join(names)})")
+    return coordinates[names.index(name)]
+
+
+def _matter_request(table: dict, coordinates, symbols: dict, functions: dict) -> MatterRequest:
+    _check_keys(table, MATTER_KEYS, "matter")
+    units = table.get("units", "geometric")
+    if units not in UNITS:
+        raise InputError(f"'matter.units' must be one of {', '.join(UNITS)}, not {units!r}")
+    symbols = dict(symbols)
+    newton = light = None
+    if units == "physical":
+        for name in ("G", "c"):
+            if name in functions or (name in symbols and symbols[name] in coordinates):
+                raise InputError(f"matter.units = \"physical\" needs '{name}' for a constant, "
+                                 "but it is already a coordinate or function")
+            symbols.setdefault(name, sympy.Symbol(name, positive=True))
+        newton, light = symbols["G"], symbols["c"]
+    lam = _constant_expression(table, "cosmological_constant", symbols, "matter", coordinates)
+    region = []
+    ranges = _table(table, "region") if "region" in table else {}
+    for name, bounds in ranges.items():
+        if name not in symbols:
+            raise InputError(f"matter.region: '{name}' is not a declared coordinate or symbol")
+        if not (isinstance(bounds, list) and len(bounds) == 2):
+            raise InputError(f"matter.region.{name} must be a pair [low, high], e.g. {name} = [\"1\", \"10\"]")
+        low, high = (_number(b, symbols, f"matter.region.{name}") for b in bounds)
+        if not low <= high:
+            raise InputError(f"matter.region.{name}: the low end {low} is above the high end {high}")
+        region.append((symbols[name], low, high))
+    return MatterRequest(time=_coordinate(table, "time", coordinates, "matter"), units=units,
+                         cosmological_constant=lam, newton=newton, light=light, region=tuple(region))
+
+
+def _number(text, symbols: dict, where: str) -> sympy.Expr:
+    """An exact real number such as "3", "1/2" or "pi/2" (no symbols)."""
+    if isinstance(text, (int, float)) and not isinstance(text, bool):
+        text = repr(text)
+    if not isinstance(text, str):
+        raise InputError(f"{where} must be a number in quotes, e.g. \"1/2\"")
+    value = parse_expression(text, Vocabulary({}, {}, {}), where)
+    if not value.is_real or not value.is_number:
+        raise InputError(f"{where} must be a real number, not {text!r}")
+    return value
+
+
+def _ansatz_request(table: dict, coordinates, symbols: dict, functions: dict, matrix) -> AnsatzRequest:
+    _check_keys(table, ANSATZ_KEYS, "ansatz")
+    names = table.get("unknowns", list(functions))
+    if not isinstance(names, list) or not names or not all(isinstance(n, str) for n in names):
+        raise InputError("'ansatz.unknowns' must be a non-empty list of declared function names")
+    for name in names:
+        if name not in functions:
+            raise InputError(f"ansatz.unknowns: '{name}' is not a declared function (see [functions])")
+        if not any(e.has(functions[name]) for e in matrix):
+            raise InputError(f"ansatz.unknowns: the function '{name}' does not appear in the metric")
+    lam = _constant_expression(table, "cosmological_constant", symbols, "ansatz", coordinates)
+    return AnsatzRequest(unknowns=tuple(functions[n] for n in names), cosmological_constant=lam)
+
+
+def _orbit_request(table: dict, coordinates, symbols: dict, functions: dict, used: set) -> OrbitRequest:
+    _check_keys(table, ORBIT_KEYS, "orbit")
+    if functions:
+        raise InputError("[orbit] needs a metric without free functions")
+    kind = table.get("kind", "timelike")
+    if kind not in ("timelike", "null"):
+        raise InputError(f"'orbit.kind' must be \"timelike\" or \"null\", not {kind!r}")
+    names = [c.name for c in coordinates]
+    parameters = sorted((s.name for s in used if s not in coordinates))
+
+    def numbers(key: str, wanted: list[str]) -> tuple:
+        given = _table(table, key)
+        for name in given:
+            if name not in wanted:
+                raise InputError(f"orbit.{key}: '{name}' is not one of {', '.join(wanted) or 'nothing'}")
+        missing = [w for w in wanted if w not in given]
+        if missing:
+            raise InputError(f"orbit.{key} is missing '{missing[0]}' (it needs {', '.join(wanted)})")
+        return tuple((symbols[w], _number(given[w], symbols, f"orbit.{key}.{w}")) for w in wanted)
+
+    time = coordinates[0]
+    return OrbitRequest(time=time, kind=kind, values=numbers("values", parameters),
+                        start=numbers("start", names), velocity=numbers("velocity", names[1:]),
+                        span=_number(table.get("span", "100"), symbols, "orbit.span"))
 
 
 _NAME = re.compile(r"[A-Za-z_][A-Za-z0-9_]*")

@@ -79,7 +79,25 @@ def metric_record(derivation: Derivation) -> dict:
         "line_element": m.line_element,
         "components": {f"{m.names[i]},{m.names[j]}": expression_text(printer_stable(m.matrix[i, j]))
                        for i in range(m.dimension) for j in range(m.dimension) if m.matrix[i, j] != 0},
+        "requests": requests_record(m),
     }
+
+
+def requests_record(m) -> dict:
+    """What was asked beyond curvature: matter, an ansatz to solve, an orbit."""
+    out: dict = {}
+    if m.matter is not None:
+        r = m.matter
+        out["matter"] = {"units": r.units, "cosmological_constant": expression_text(r.cosmological_constant),
+                         "kappa": expression_text(r.kappa), "time": r.time.name,
+                         "region": {s.name: [expression_text(lo), expression_text(hi)] for s, lo, hi in r.region}}
+    if m.ansatz is not None:
+        out["ansatz"] = {"unknowns": [expression_text(f) for f in m.ansatz.unknowns],
+                         "cosmological_constant": expression_text(m.ansatz.cosmological_constant)}
+    if m.orbit is not None:
+        from .geodesics import orbit_params
+        out["orbit"] = _value(orbit_params(m.orbit))
+    return out
 
 
 def trace_data(derivation: Derivation) -> dict:

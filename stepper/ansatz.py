@@ -1,0 +1,327 @@
+"""From an ansatz with free functions to the equations they must satisfy, and,
+where sympy can, to their solution, checked by substitution.
+
+The field equations E_ij = G_ij + Lambda g_ij = 0 (vacuum, or an Einstein
+space R_ij = 2 Lambda g_ij / (n - 2) when Lambda is not 0) are reduced one
+by one: each component's numerator is factored, and factors that cannot
+vanish (those free of the unknowns, assumed non-zero, and powers of an
+unknown that divides the determinant of the non-degenerate metric) are
+dropped.  Components that are a multiple of another by a factor free of the
+unknowns are duplicates.  The contracted Bianchi identity
+g^ac (d_c E_ab - Gamma^e_ca E_eb - Gamma^e_cb E_ae) = 0, an identity for any
+metric, is a linear relation among the E_ij and their derivatives; where an
+equation enters one component of it only undifferentiated, with a non-zero
+coefficient, and every other equation in that component is kept, it follows
+from the kept ones (where the coefficient is non-zero).  The independent
+equations are then solved one unknown at a time with sympy's dsolve, and the
+solution is substituted back into every component E_ij.
+"""
+
+from __future__ import annotations
+
+import sympy
+from sympy.core.function import AppliedUndef
+
+from .algebra import choose_arithmetic, printer_stable
+from .metric import AnsatzRequest
+from .tracer import Verdict
+
+FORMULAS = {
+    "equations": r"E_{ij} \equiv G_{ij} + \Lambda g_{ij} = 0",
+    "dependence": r"\nabla^a E_{ab} = g^{ac}\left(\partial_c E_{ab} - \Gamma^e_{ca} E_{eb} - \Gamma^e_{cb} E_{ae}\right) \equiv 0",
+    "solve": r"E = 0 \;\Rightarrow\; f = f(x;\, C_1, C_2, \dots)",
+    "solution": r"g_{ij} = g_{ij}\big|_{f = f(x; C)}",
+    "check": r"E_{ij}\big|_{f = f(x; C)} = 0",
+}
+
+
+def record_ansatz(chain, request: AnsatzRequest) -> None:
+    """Record the reduced equations, their dependence, the solution and its check."""
+    _Ansatz(chain, request).run()
+
+
+class _Ansatz:
+    def __init__(self, chain, request: AnsatzRequest):
+        self.c = chain
+        self.A = chain.A
+        self.n = chain.n
+        self.request = request
+        self.unknowns = list(request.unknowns)
+        self.heads = {f.func for f in self.unknowns}
+        self.lam = request.cosmological_constant
+
+    def run(self) -> None:
+        self.equations()
+        self.dependence()
+        self.solve()
+
+    def has_unknowns(self, expr: sympy.Expr) -> bool:
+        return any(f.func in self.heads for f in expr.atoms(AppliedUndef))
+
+    # 1. the equations ----------------------------------------------------------
+    def equations(self) -> None:
+        c, n, A = self.c, self.n, self.A
+        lam = A.from_expr(self.lam) if self.lam != 0 else A.zero
+        self.E = {(i, j): c.G[i][j] + lam * c.g[i][j] for i in range(n) for j in range(i, n)}
+        det_factors = {f for f, _ in sympy.factor_list(sympy.numer(sympy.together(c.expr(c.det))))[1]}
+        self.reduced, dropped, self.duplicates, zero = {}, {}, {}, []
+        representatives: list[tuple[int, int]] = []
+        for ij, element in self.E.items():
+            if c.is_zero(element):
+                zero.append(c.key(*ij))
+                continue
+            for rep in representatives:
+                ratio = element / self.E[rep]
+                if not self.has_unknowns(c.expr(ratio)):
+                    self.duplicates[ij] = (rep, ratio)
+                    break
+            else:
+                representatives.append(ij)
+                self.reduced[ij], dropped[ij] = self.reduce(c.expr(element), det_factors)
+        self.order = representatives
+        eqs = {c.key(*ij): self.reduced[ij] for ij in representatives}
+        c.results["ansatz"] = {"equations": eqs}
+        params = {
+            "unknowns": [printer_stable(f) for f in self.unknowns],
+            "cosmological_constant": self.lam,
+            "dropped_factors": {c.key(*ij): dropped[ij] for ij in representatives if dropped[ij]},
+            "duplicates": {c.key(*ij): {"of": c.key(*rep), "factor": c.expr(q)}
+                           for ij, (rep, q) in self.duplicates.items()},
+            "identically_zero": zero,
+        }
+        lam_words = "" if self.lam == 0 else f" with Lambda = {self.lam}"
+        c.record(id="ansatz/equations", kind="ansatz",
+                 annotation=f"Field equations E_ij = G_ij + Lambda g_ij = 0{lam_words} for the unknowns "
+                            f"{', '.join(str(f) for f in self.unknowns)}: each listed component's numerator, with "
+                            "the factors that cannot vanish removed; duplicates (a multiple of another component "
+                            "by a factor free of the unknowns) and identically vanishing components are named.",
+                 formula=FORMULAS["equations"],
+                 uses=("einstein", "metric") + tuple(f"einstein/{c.key(*ij)}" for ij in self.E
+                                                     if f"einstein/{c.key(*ij)}" in c.tracer),
+                 result=eqs, params=params)
+
+    def reduce(self, expr: sympy.Expr, det_factors: set) -> tuple[sympy.Expr, list]:
+        numerator = sympy.numer(sympy.together(expr))
+        constant, factors = sympy.factor_list(numerator)
+        kept, dropped = [], []
+        for factor, _power in factors:
+            if not self.has_unknowns(factor):
+                dropped.append(factor)
+            elif isinstance(factor, AppliedUndef) and factor in det_factors:
+                dropped.append(factor)
+            else:
+                kept.append(factor)
+        return printer_stable(sympy.Mul(*kept)), dropped
+
+    # 2. which equations follow from the others ---------------------------------------
+    def dependence(self) -> None:
+        c, n, A = self.c, self.n, self.A
+        ginv, gamma = c.ginv, c.gamma
+        sym = lambda i, j: (min(i, j), max(i, j))
+        kept = list(self.order)
+        follows = {}
+        relations = {}
+        for b in range(n):
+            alg: dict = {}
+            der: dict = {}
+            for a in range(n):
+                for cc in range(n):
+                    if c.is_zero(ginv[a][cc]):
+                        continue
+                    der.setdefault(sym(a, b), {}).setdefault(cc, A.zero)
+                    der[sym(a, b)][cc] = der[sym(a, b)][cc] + ginv[a][cc]
+                    for e in range(n):
+                        if not c.is_zero(gamma[e][cc][a]):
+                            alg[sym(e, b)] = alg.get(sym(e, b), A.zero) - ginv[a][cc] * gamma[e][cc][a]
+                        if not c.is_zero(gamma[e][cc][b]):
+                            alg[sym(a, e)] = alg.get(sym(a, e), A.zero) - ginv[a][cc] * gamma[e][cc][b]
+            alg, der = self.fold_duplicates(alg, der)
+            present = {ij for ij, v in alg.items() if not c.is_zero(v)} | \
+                      {ij for ij, d in der.items() if any(not c.is_zero(v) for v in d.values())}
+            present = {ij for ij in present if ij in self.reduced}
+            relations[self.c.x[b].name] = sorted(c.key(*ij) for ij in present)
+            candidates = [ij for ij in kept if ij in present
+                          and all(c.is_zero(v) for v in der.get(ij, {}).values())]
+            candidates.sort(key=lambda ij: (self.order_of(self.reduced[ij]), self.order.index(ij)))
+            for ij in reversed(candidates):
+                others = present - {ij}
+                if others and others <= set(kept) - {ij}:
+                    kept.remove(ij)
+                    follows[c.key(*ij)] = {
+                        "from": sorted(c.key(*o) for o in others),
+                        "bianchi_component": self.c.x[b].name,
+                        "coefficient": c.expr(alg[ij]),
+                    }
+                    break
+        self.independent = kept
+        c.results["ansatz"]["independent"] = [c.key(*ij) for ij in kept]
+        c.results["ansatz"]["follows"] = follows
+        words = "; ".join(f"E_{k} follows from {', '.join('E_' + o for o in v['from'])} and their derivatives "
+                          f"(component {v['bianchi_component']} of the identity, where its coefficient "
+                          f"{v['coefficient']} is non-zero)" for k, v in follows.items())
+        c.record(id="ansatz/dependence", kind="ansatz",
+                 annotation="Independent equations: " + ", ".join("E_" + c.key(*ij) for ij in kept) + ". "
+                            + (words + "." if words else "No equation follows from the others by the contracted "
+                                                         "Bianchi identity."),
+                 formula=FORMULAS["dependence"], uses=("ansatz/equations", "verdict/bianchi"),
+                 result={"independent": [c.key(*ij) for ij in kept], "follows": follows},
+                 params={"relations": relations})
+
+    def fold_duplicates(self, alg: dict, der: dict) -> tuple[dict, dict]:
+        """Write each duplicate E_k = q E_rep in terms of its representative."""
+        A = self.A
+        for ij, (rep, q) in self.duplicates.items():
+            a = alg.pop(ij, A.zero)
+            d = der.pop(ij, {})
+            total = a * q
+            for cc, coefficient in d.items():
+                total = total + coefficient * A.diff(q, cc)
+                der.setdefault(rep, {})
+                der[rep][cc] = der[rep].get(cc, A.zero) + coefficient * q
+            alg[rep] = alg.get(rep, A.zero) + total
+        return alg, der
+
+    @staticmethod
+    def order_of(expr: sympy.Expr) -> int:
+        orders = [sum(count for _, count in d.variable_count) for d in expr.atoms(sympy.Derivative)]
+        return max(orders, default=0)
+
+    # 3. solving ------------------------------------------------------------------
+    def fresh_constants(self, solution: sympy.Expr) -> sympy.Expr:
+        taken = {s.name for s in self.c.metric.parameters} | {s.name for s in self.lam.free_symbols} \
+            | {x.name for x in self.c.x} | {s.name for s in self.constants}
+        mapping = {}
+        for s in sorted(solution.free_symbols, key=lambda s: s.name):
+            if s.name.startswith("C") and s.name[1:].isdigit() and s not in self.constants and \
+                    s.name not in {p.name for p in self.c.metric.parameters}:
+                k = 1
+                while f"C{k}" in taken:
+                    k += 1
+                new = sympy.Symbol(f"C{k}", real=True)
+                taken.add(new.name)
+                self.constants.append(new)
+                mapping[s] = new
+        return solution.xreplace(mapping)
+
+    def solve(self) -> None:
+        c = self.c
+        self.constants: list[sympy.Symbol] = []
+        solved: dict = {}
+        pending = {ij: self.reduced[ij] for ij in self.independent}
+        last = "ansatz/dependence"
+        number = 0
+        failure = ""
+        while len(solved) < len(self.unknowns):
+            current = {}
+            for ij, eq in pending.items():
+                value = sympy.factor(sympy.numer(sympy.together(eq.subs(solved).doit()))) if solved else eq
+                if value != 0:
+                    current[ij] = value
+            pending = current
+            choice = None
+            for ij, eq in sorted(pending.items(), key=lambda kv: (self.order_of(kv[1]), self.order.index(kv[0]))):
+                left = [f for f in self.unknowns if f not in solved and eq.has(f)]
+                if len(left) == 1:
+                    choice = (ij, eq, left[0])
+                    break
+            if choice is None:
+                failure = ("no remaining equation involves a single unsolved unknown"
+                           if pending else "the equations no longer constrain the remaining unknowns")
+                break
+            ij, eq, f = choice
+            try:
+                solutions = sympy.dsolve(eq, f)
+            except (NotImplementedError, ValueError, TypeError) as err:
+                failure = f"sympy's dsolve could not solve E_{c.key(*ij)} for {f} ({type(err).__name__})"
+                break
+            solutions = solutions if isinstance(solutions, list) else [solutions]
+            explicit = [s.rhs for s in solutions if s.lhs == f and not s.rhs.has(f) and s.rhs != 0]
+            if not explicit:
+                failure = f"sympy's dsolve gave no explicit non-zero solution of E_{c.key(*ij)} for {f}"
+                break
+            value = printer_stable(self.fresh_constants(explicit[0]))
+            solved[f] = value
+            number += 1
+            step_id = f"ansatz/solve/{number}"
+            c.record(id=step_id, kind="ode solution",
+                     annotation=f"Solve E_{c.key(*ij)} = 0 (after the earlier solutions are substituted) for {f} "
+                                "with sympy's dsolve" + (f"; {len(explicit) - 1} other branch(es) not followed"
+                                                         if len(explicit) > 1 else "") + ".",
+                     formula=FORMULAS["solve"], uses=(last,),
+                     result={"equation": eq, "unknown": f, "solution": value},
+                     params={"component": c.key(*ij), "other_branches": [printer_stable(s) for s in explicit[1:]]})
+            last = step_id
+        c.results["ansatz"]["solution"] = {str(f): v for f, v in solved.items()}
+        c.results["ansatz"]["constants"] = [s.name for s in self.constants]
+        if failure:
+            c.results["ansatz"]["unsolved"] = failure
+        if not solved:
+            c.record(id="ansatz/solution", kind="ansatz",
+                     annotation=f"The system is not solved: {failure}. The independent equations above stand "
+                                "as the result.", formula=FORMULAS["solution"], uses=(last,),
+                     result=Verdict("The ansatz equations are solved.", None, failure))
+            return
+        self.record_solution(solved, last, failure)
+
+    def record_solution(self, solved: dict, last: str, failure: str) -> None:
+        c, n = self.c, self.n
+        matrix = self.c.metric.matrix.subs(solved).doit()
+        components = {c.key(i, j): printer_stable(sympy.factor(matrix[i, j])) for i in range(n) for j in range(n)
+                      if matrix[i, j] != 0}
+        rescaled = self.absorbable(matrix)
+        c.results["ansatz"]["metric"] = components
+        c.results["ansatz"]["rescalings"] = rescaled
+        note = "; ".join(f"{k} can be set to 1 by rescaling {v}" for k, v in rescaled.items())
+        c.record(id="ansatz/solution", kind="ansatz",
+                 annotation="The metric with the solution put in, with integration constants "
+                            f"{', '.join(s.name for s in self.constants) or 'none'}"
+                            + (f" ({note})" if note else "") + (f". Not every unknown is solved: {failure}" if failure else "") + ".",
+                 formula=FORMULAS["solution"], uses=(last,), result=components,
+                 params={"solution": {str(f): v for f, v in solved.items()}, "rescalings": rescaled})
+        residues = []
+        entries = list(matrix) + list(self.constants)
+        check = choose_arithmetic(c.x, entries, tuple(c.metric.parameters) + tuple(self.constants)
+                                  + tuple(self.lam.free_symbols))
+        for ij, element in self.E.items():
+            value = c.expr(element).subs(solved).doit()
+            residues.append(check.from_expr(value))
+        undecided = []
+        holds = True
+        for r in residues:
+            test = check.zero_test(r)
+            if test.vanishes is False:
+                holds = False
+                break
+            if test.vanishes is None:
+                undecided.append(test.evidence)
+        if holds and undecided:
+            holds = None
+        how = {True: f"all {len(residues)} components E_ij vanish after substitution ("
+                     + ("canonical rational form 0" if check.name == "field" else "sympy reduces them to 0") + ")",
+               False: "a component E_ij does not vanish after substitution",
+               None: f"not proven symbolically: {undecided[0] if undecided else ''}"}[holds]
+        if failure and holds:
+            how += f"; the unknowns not solved remain free ({failure})"
+        verdict = Verdict("The solution satisfies every field equation E_ij = 0.", holds, how)
+        c.results["ansatz"]["check"] = {"holds": holds, "evidence": how}
+        c.record(id="ansatz/check", kind="check",
+                 annotation="Substitute the solution into every component E_ij = G_ij + Lambda g_ij, including the "
+                            "duplicates and those that follow by the Bianchi identity.",
+                 formula=FORMULAS["check"], uses=("ansatz/solution", "ansatz/equations"), result=verdict)
+
+    def absorbable(self, matrix) -> dict:
+        """Constants that only scale g_xx of a coordinate x the metric does not depend on."""
+        out = {}
+        n, x = self.n, self.c.x
+        for C in self.constants:
+            holders = [(i, j) for i in range(n) for j in range(i, n) if matrix[i, j].has(C)]
+            if len(holders) != 1 or holders[0][0] != holders[0][1]:
+                continue
+            i = holders[0][0]
+            if any(matrix[a, b].has(x[i]) for a in range(n) for b in range(n)):
+                continue
+            entry = sympy.factor(matrix[i, i])
+            scale, rest = entry.as_independent(C, as_Add=False)
+            if rest.is_Pow and rest.base == C or rest == C:
+                out[C.name] = f"{x[i].name}: {x[i].name} -> {x[i].name} / sqrt(|{rest}|)"
+        return out

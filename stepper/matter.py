@@ -1,0 +1,579 @@
+"""The matter a metric needs: field equations, stress-energy, an orthonormal
+frame, energy conditions and the perfect-fluid and trace-free tests.
+
+Conventions (stated in every trace that asks for them):
+
+* Field equations G_ij + Lambda g_ij = kappa T_ij with kappa = 8 pi G / c^4
+  (8 pi in geometric units G = c = 1); solved for T_ij.
+* Frame: the observers normal to the hypersurfaces time = const, with
+  e_(0)^i = -g^(t i) / sqrt(-g^tt) (future-pointing when t grows to the
+  future), and the spatial vectors by Gram-Schmidt from the coordinate
+  directions d_x (x != t) in coordinate order.  Frame indices are named after
+  the coordinate each frame vector starts from; the frame metric is
+  diag(-1, 1, ..., 1).  The frame exists where -g^tt > 0 and every spatial
+  norm is positive.
+* Energy density rho = T_(0)(0), principal pressures p_k = T_(k)(k) when the
+  frame components are diagonal (Hawking-Ellis type I in this frame).
+* Energy conditions (Hawking & Ellis 1973, sec. 4.3; n dimensions):
+  null rho + p_k >= 0; weak also rho >= 0; strong rho + p_k >= 0 and
+  (n - 3) rho + sum p_k >= 0; dominant rho >= |p_k|.
+
+Every quantity is computed as kappa times itself inside the chain's exact
+arithmetic (kappa holds pi, which the field does not) and divided by kappa
+for display; kappa > 0, so signs are unchanged.
+"""
+
+from __future__ import annotations
+
+import itertools
+import random
+from collections import Counter
+
+import sympy
+
+from .metric import MatterRequest
+from .tracer import Verdict
+
+FORMULAS = {
+    "field_equations": r"G_{ij} + \Lambda g_{ij} = \kappa T_{ij},\qquad \kappa = \frac{8\pi G}{c^4}",
+    "stress_energy": r"T_{ij} = \frac{1}{\kappa}\left(G_{ij} + \Lambda g_{ij}\right)",
+    "stress_energy_mixed": r"T^i{}_j = g^{ik} T_{kj}",
+    "stress_energy_up": r"T^{ij} = g^{ik} g^{jl} T_{kl}",
+    "trace_free": r"T = T^i{}_i = 0",
+    "frame": (r"e_{(0)}{}^i = \frac{-g^{ti}}{\sqrt{-g^{tt}}},\quad e_{(k)} = \frac{w_{(k)}}{\sqrt{g(w_{(k)}, w_{(k)})}},"
+              r"\quad w_{(k)} = \partial_k - \sum_{m<k} \frac{g(\partial_k, w_{(m)})}{g(w_{(m)}, w_{(m)})} w_{(m)}"),
+    "frame_check": r"g_{ij}\, e_{(a)}{}^i e_{(b)}{}^j = \eta_{(a)(b)} = \operatorname{diag}(-1, 1, \dots, 1)",
+    "frame_stress_energy": r"T_{(a)(b)} = e_{(a)}{}^i e_{(b)}{}^j T_{ij}",
+    "frame_ricci": r"R_{(a)(b)} = e_{(a)}{}^i e_{(b)}{}^j R_{ij}",
+    "frame_riemann": r"R_{(a)(b)(c)(d)} = e_{(a)}{}^i e_{(b)}{}^j e_{(c)}{}^k e_{(d)}{}^l R_{ijkl}",
+    "density_and_pressures": r"\rho = T_{(0)(0)},\qquad p_{(k)} = T_{(k)(k)}",
+    "perfect_fluid": r"T_{ij} = (\rho + p)\, u_i u_j + p\, g_{ij}",
+    "null": r"\rho + p_{(k)} \ge 0",
+    "weak": r"\rho \ge 0,\quad \rho + p_{(k)} \ge 0",
+    "strong": r"\rho + p_{(k)} \ge 0,\quad (n-3)\rho + \textstyle\sum_k p_{(k)} \ge 0",
+    "dominant": r"\rho \ge |p_{(k)}|",
+}
+
+CONVENTIONS = {
+    "field_equations": "G_ij + Lambda g_ij = kappa T_ij, kappa = 8 pi G / c^4 (8 pi when G = c = 1)",
+    "frame": ("observers normal to time = const: e_(0)^i = -g^(t i)/sqrt(-g^tt); spatial vectors by Gram-Schmidt "
+              "from the coordinate directions in coordinate order; frame metric diag(-1, 1, ..., 1)"),
+    "energy_conditions": ("type I in the frame: rho = T_(0)(0), p_k = T_(k)(k); null rho + p_k >= 0; weak also rho >= 0; "
+                          "strong rho + p_k >= 0 and (n-3) rho + sum p_k >= 0; dominant rho >= |p_k|"),
+}
+
+CONVENTIONS_LATEX = {
+    "Field equations": (r"$G_{ij} + \Lambda g_{ij} = \kappa T_{ij}$ with $\kappa = 8\pi G/c^4$ "
+                        r"($\kappa = 8\pi$ in geometric units $G = c = 1$)."),
+    "Orthonormal frame": (r"observers normal to $t = \text{const}$, $e_{(0)}{}^i = -g^{ti}/\sqrt{-g^{tt}}$; spatial "
+                          r"vectors by Gram--Schmidt from the coordinate directions; frame metric "
+                          r"$\operatorname{diag}(-1, 1, \dots, 1)$; frame indices named after coordinates."),
+    "Energy conditions": (r"with $\rho = T_{(0)(0)}$ and $p_{(k)} = T_{(k)(k)}$ (type I): null $\rho + p_{(k)} \ge 0$; "
+                          r"weak also $\rho \ge 0$; strong $\rho + p_{(k)} \ge 0$ and $(n-3)\rho + \sum_k p_{(k)} \ge 0$; "
+                          r"dominant $\rho \ge |p_{(k)}|$."),
+}
+
+#: Points drawn from the region when the algebra cannot decide an inequality.
+SAMPLE_POINTS = 200
+SAMPLE_SEED = 20261202
+
+
+def record_matter(chain, request: MatterRequest) -> None:
+    """Run every matter stage on a chain that has computed the Einstein tensor."""
+    _Matter(chain, request).run()
+
+
+class _Matter:
+    def __init__(self, chain, request: MatterRequest):
+        self.c = chain
+        self.request = request
+        self.A = chain.A
+        self.n = chain.n
+        self.kappa = request.kappa
+        self.lam = request.cosmological_constant
+        self.t = chain.x.index(request.time)
+
+    def run(self) -> None:
+        self.field_equations()
+        self.stress_energy()
+        self.raised_stress_energy()
+        self.trace_free()
+        if self.frame():
+            self.frame_stress_energy()
+            self.frame_curvature()
+            self.density_and_pressures()
+        self.perfect_fluid()
+        self.energy_conditions()
+
+    # helpers ------------------------------------------------------------
+    def physical(self, element) -> sympy.Expr:
+        """A kappa-scaled element divided by kappa, for display."""
+        from .algebra import printer_stable
+        return printer_stable(self.c.expr(element) / self.kappa)
+
+    def name(self, i: int) -> str:
+        return self.c.x[i].name
+
+    # field equations and T ----------------------------------------------
+    def field_equations(self) -> None:
+        r = self.request
+        units = ("geometric units, G = c = 1, so kappa = 8 pi" if r.units == "geometric"
+                 else "physical units: G and c kept as symbols, kappa = 8 pi G / c^4")
+        result = {"kappa": self.kappa, "cosmological_constant": self.lam}
+        self.c.results["field_equations"] = {**result, "units": r.units}
+        self.c.record(id="field_equations", kind="field equations",
+                      annotation=f"Einstein's field equations with cosmological constant Lambda = {self.lam}, in {units}; "
+                                 "they are solved for the stress-energy tensor T_ij that the metric requires.",
+                      formula=FORMULAS["field_equations"], uses=("einstein", "metric"), result=result,
+                      params={"units": r.units, "convention": CONVENTIONS["field_equations"]})
+
+    def stress_energy(self) -> None:
+        c, n, A = self.c, self.n, self.A
+        lam = A.from_expr(self.lam) if self.lam != 0 else A.zero
+        self.S = [[c.G[i][j] + lam * c.g[i][j] for j in range(n)] for i in range(n)]
+        components = {}
+        t = c.tex
+        kappa_tex = sympy.latex(self.kappa)
+        for i in range(n):
+            for j in range(i, n):
+                if c.is_zero(self.S[i][j]):
+                    continue
+                key = c.key(i, j)
+                uses = ["field_equations", "metric"] + ([f"einstein/{key}"] if f"einstein/{key}" in c.tracer else [])
+                value = self.physical(self.S[i][j])
+                lam_tex = "" if self.lam == 0 else f" + {sympy.latex(self.lam)}\\, g_{{{t[i]}{t[j]}}}"
+                c.record(id=f"stress_energy/{key}", kind="component",
+                         annotation=f"Stress-energy component T_({self.name(i)} {self.name(j)}) required by the metric",
+                         formula=FORMULAS["stress_energy"], uses=tuple(uses), result=value,
+                         params={"quantity": "stress_energy", "indices": key},
+                         substituted=f"T_{{{t[i]}{t[j]}}} = \\frac{{1}}{{{kappa_tex}}}\\left(G_{{{t[i]}{t[j]}}}{lam_tex}\\right)")
+                components[key] = value
+                if i != j:
+                    components[c.key(j, i)] = value
+        c.results["stress_energy"] = dict(sorted(components.items(), key=lambda kv: c._order(kv[0])))
+        c.record(id="stress_energy", kind="summary",
+                 annotation="Stress-energy tensor with indices down (components not listed vanish).",
+                 formula=FORMULAS["stress_energy"],
+                 uses=tuple(s.id for s in c.tracer.steps if s.id.startswith("stress_energy/")) or ("field_equations",),
+                 result=c.results["stress_energy"])
+
+    def raised_stress_energy(self) -> None:
+        c, n, A, ginv = self.c, self.n, self.A, self.c.ginv
+        S = self.S
+        mixed = [[sum((ginv[i][k] * S[k][j] for k in range(n) if not c.is_zero(ginv[i][k])), A.zero)
+                  for j in range(n)] for i in range(n)]
+        up = [[sum((mixed[i][k] * ginv[k][j] for k in range(n) if not c.is_zero(ginv[k][j])), A.zero)
+               for j in range(n)] for i in range(n)]
+        self.mixed = mixed
+        for name, table, formula, what in (
+                ("stress_energy_mixed", mixed, FORMULAS["stress_energy_mixed"],
+                 "Stress-energy tensor with the first index raised, T^i_j = g^ik T_kj, keyed 'i,j'"),
+                ("stress_energy_up", up, FORMULAS["stress_energy_up"],
+                 "Stress-energy tensor with both indices raised, T^ij = g^ik g^jl T_kl")):
+            comps = {c.key(i, j): self.physical(table[i][j]) for i in range(n) for j in range(n)
+                     if not c.is_zero(table[i][j])}
+            c.results[name] = comps
+            c.record(id=name, kind="raising", annotation=what + " (components not listed vanish).",
+                     formula=formula, uses=("stress_energy", "inverse_metric"), result=comps)
+
+    def trace_free(self) -> None:
+        c, n = self.c, self.n
+        trace = sum((self.mixed[i][i] for i in range(n)), self.A.zero)
+        c.results["stress_energy_trace"] = self.physical(trace)
+        verdict = c.identity_verdict("T = T^i_i = 0", [trace], "the trace T^i_i")
+        if verdict.holds is False:
+            verdict = Verdict(verdict.statement, False, f"the trace T^i_i = {self.physical(trace)} is not zero")
+        statement = "Trace-free stress-energy (as for an electromagnetic field in four dimensions): T^i_i = 0."
+        verdict = Verdict(statement, verdict.holds, verdict.evidence)
+        c.results.setdefault("verdicts", {})["trace_free"] = {"holds": verdict.holds, "evidence": verdict.evidence}
+        c.record(id="verdict/trace_free", kind="verdict", annotation=statement, formula=FORMULAS["trace_free"],
+                 uses=("stress_energy_mixed",), result=verdict, params={"trace": self.physical(trace)})
+
+    # the frame ------------------------------------------------------------
+    def inner(self, u: list, v: list):
+        """g(u, v) for two vectors given by contravariant components (None = 0)."""
+        c, g, A = self.c, self.c.g, self.A
+        total = A.zero
+        for i, ui in enumerate(u):
+            if ui is None or c.is_zero(ui):
+                continue
+            for j, vj in enumerate(v):
+                if vj is None or c.is_zero(vj) or c.is_zero(g[i][j]):
+                    continue
+                total = total + ui * g[i][j] * vj
+        return total
+
+    def frame(self) -> bool:
+        """Build the frame (unnormalised vectors v and squared norms N); False when none can be built."""
+        c, n, A, t = self.c, self.n, self.A, self.t
+        time_name = self.name(t)
+        v0 = [-c.ginv[t][i] for i in range(n)]
+        N0 = -c.ginv[t][t]
+        reason = ""
+        if c.is_zero(N0):
+            reason = (f"no frame is built: g^{time_name}{time_name} vanishes identically, so the hypersurfaces "
+                      f"{time_name} = const are null and have no normal observers")
+        vectors, norms, labels = [v0], [N0], [t]
+        for k in range(n):
+            if reason or k == t:
+                continue
+            w = [A.one if i == k else A.zero for i in range(n)]
+            for m in range(1, len(vectors)):
+                coefficient = self.inner([A.one if i == k else A.zero for i in range(n)], vectors[m]) / norms[m]
+                if not c.is_zero(coefficient):
+                    w = [wi - coefficient * vm for wi, vm in zip(w, vectors[m])]
+            norm = self.inner(w, w)
+            if c.is_zero(norm):
+                reason = (f"no frame is built: the direction {self.name(k)} has zero norm after Gram-Schmidt "
+                          f"(it is null within {time_name} = const)")
+                break
+            vectors.append(w)
+            norms.append(norm)
+            labels.append(k)
+        self.frame_built = not reason
+        c.results["frame"] = {"built": not reason}
+        if reason:
+            c.results["frame"]["reason"] = reason
+            c.record(id="frame", kind="frame", annotation=reason[0].upper() + reason[1:] + ".",
+                     formula=FORMULAS["frame"], uses=("inverse_metric", "metric"), result=Verdict(
+                         "An orthonormal frame is built from the metric.", False, reason))
+            return False
+        self.v, self.N, self.labels = vectors, norms, labels
+        frame_result = {}
+        for a, (vec, norm) in enumerate(zip(vectors, norms)):
+            inverse_root = _inverse_square_root(c.expr(norm))
+            frame_result[self.name(labels[a])] = {self.name(i): _stable(c.expr(vi) * inverse_root)
+                                                 for i, vi in enumerate(vec) if not c.is_zero(vi)}
+        norms_result = {self.name(labels[a]): c.expr(norm) for a, norm in enumerate(norms)}
+        c.results["frame"].update({"vectors": frame_result, "squared_norms": norms_result,
+                                   "time": time_name})
+        diagonal = all(len(b) == 1 for b in c.blocks)
+        how = ("the metric is diagonal, so each frame vector is a coordinate direction divided by its length"
+               if diagonal else "Gram-Schmidt within the blocks of the metric")
+        c.record(id="frame", kind="frame",
+                 annotation=f"Orthonormal frame of the observers normal to {time_name} = const ({how}). "
+                            f"Frame vector e_(x) starts from the coordinate direction x; "
+                            "its squared norm N is listed, and the frame exists where every N > 0.",
+                 formula=FORMULAS["frame"], uses=("inverse_metric", "metric"),
+                 result={"vectors": frame_result, "squared_norms": norms_result},
+                 params={"time": time_name, "order": [self.name(k) for k in labels],
+                         "convention": CONVENTIONS["frame"]})
+        residues = []
+        for a in range(n):
+            for b in range(a, n):
+                value = self.inner(vectors[a], vectors[b])
+                if a == b:
+                    value = value - (-norms[a] if a == 0 else norms[a])
+                residues.append(value)
+        c.record(id="frame/check", kind="check",
+                 annotation="The frame is orthonormal: g(e_(a), e_(b)) = diag(-1, 1, ..., 1).",
+                 formula=FORMULAS["frame_check"], uses=("frame",),
+                 result=c.identity_verdict("g(e_a, e_b) = eta_ab", residues,
+                                           "g(w_a, w_b) - eta_ab N_a for the unnormalised vectors"))
+        return True
+
+    def frame_value(self, numerator, frame_indices: tuple[int, ...]) -> tuple[object, sympy.Expr]:
+        """(rational part, odd product of norms): the frame component is rational / sqrt(odd)."""
+        counts = Counter(frame_indices)
+        value = numerator
+        odd = self.A.one
+        for a, k in counts.items():
+            if k // 2:
+                value = value / self.N[a] ** (k // 2)
+            if k % 2:
+                odd = odd * self.N[a]
+        return value, odd
+
+    def frame_expr(self, numerator, frame_indices: tuple[int, ...], scale: sympy.Expr = sympy.Integer(1)) -> sympy.Expr:
+        rational, odd = self.frame_value(numerator, frame_indices)
+        if self.c.is_zero(rational):
+            return sympy.Integer(0)
+        value = self.c.expr(rational) / scale
+        if odd != self.A.one and not (odd == 1):
+            value = value * _inverse_square_root(self.c.expr(odd))
+        return _stable(value)
+
+    def contract(self, tensor, frame_indices: tuple[int, ...]):
+        """tensor(v_a, v_b, ...) over the non-zero components of the vectors."""
+        c, A = self.c, self.A
+        supports = [[(i, vi) for i, vi in enumerate(self.v[a]) if not c.is_zero(vi)] for a in frame_indices]
+        total = A.zero
+        for choice in itertools.product(*supports):
+            component = tensor(*(i for i, _ in choice))
+            if c.is_zero(component):
+                continue
+            term = component
+            for _, vi in choice:
+                term = term * vi
+            total = total + term
+        return total
+
+    def frame_stress_energy(self) -> None:
+        c, n = self.c, self.n
+        self.F = {}
+        comps = {}
+        for a in range(n):
+            for b in range(a, n):
+                value = self.contract(lambda i, j: self.S[i][j], (a, b))
+                self.F[a, b] = self.F[b, a] = value
+                shown = self.frame_expr(value, (a, b), self.kappa)
+                if shown != 0:
+                    comps[self.frame_key(a, b)] = shown
+                    if a != b:
+                        comps[self.frame_key(b, a)] = shown
+        c.results["frame_stress_energy"] = comps
+        c.record(id="frame_stress_energy", kind="frame components",
+                 annotation="Stress-energy tensor in the orthonormal frame (components not listed vanish).",
+                 formula=FORMULAS["frame_stress_energy"], uses=("frame", "stress_energy"), result=comps)
+
+    def frame_key(self, *frame_indices: int) -> str:
+        return ",".join(self.name(self.labels[a]) for a in frame_indices)
+
+    def frame_curvature(self) -> None:
+        c, n = self.c, self.n
+        ricci = {}
+        for a in range(n):
+            for b in range(a, n):
+                shown = self.frame_expr(self.contract(lambda i, j: c.ric[i][j], (a, b)), (a, b))
+                if shown != 0:
+                    ricci[self.frame_key(a, b)] = shown
+                    if a != b:
+                        ricci[self.frame_key(b, a)] = shown
+        c.results["frame_ricci"] = ricci
+        c.record(id="frame_ricci", kind="frame components",
+                 annotation="Ricci tensor in the orthonormal frame (components not listed vanish).",
+                 formula=FORMULAS["frame_ricci"], uses=("frame", "ricci"), result=ricci)
+        riemann = {}
+        pairs = [(a, b) for a in range(n) for b in range(a + 1, n)]
+        for p, (a, b) in enumerate(pairs):
+            for cc, d in pairs[p:]:
+                c.progress(f"frame riemann {self.frame_key(a, b, cc, d)}", 0, 1)
+                shown = self.frame_expr(self.contract(c.full_lowered, (a, b, cc, d)), (a, b, cc, d))
+                if shown != 0:
+                    riemann[self.frame_key(a, b, cc, d)] = shown
+        c.results["frame_riemann"] = riemann
+        c.record(id="frame_riemann", kind="frame components",
+                 annotation="Riemann tensor in the orthonormal frame, for a < b, c < d, (a,b) <= (c,d) in frame order; "
+                            "the others follow from the symmetries of R_abcd (components not listed vanish).",
+                 formula=FORMULAS["frame_riemann"], uses=("frame", "riemann_lowered"), result=riemann)
+
+    def density_and_pressures(self) -> None:
+        c, n = self.c, self.n
+        off = [(a, b) for a in range(n) for b in range(a + 1, n) if not c.is_zero(self.F[a, b])]
+        self.rho = self.F[0, 0] / self.N[0]
+        self.p = [self.F[k, k] / self.N[k] for k in range(1, n)]
+        self.type_one = not off
+        result = {"energy_density": self.physical(self.rho),
+                  "pressures": {self.name(self.labels[k]): self.physical(self.p[k - 1]) for k in range(1, n)}}
+        if off:
+            a, b = off[0]
+            result["diagonal"] = False
+            note = (f"The frame components are not diagonal (T_({self.frame_key(a)})({self.frame_key(b)}) is not zero), "
+                    "so the diagonal entries are listed but are not the principal pressures; stepper does not "
+                    "diagonalise T, and the energy conditions are not decided from them.")
+        else:
+            result["diagonal"] = True
+            note = ("The frame components are diagonal, so rho and the p_(k) are the energy density and the "
+                    "principal pressures measured by the frame's observers.")
+        c.results["energy_density"] = result["energy_density"]
+        c.results["pressures"] = result["pressures"]
+        c.record(id="density_and_pressures", kind="matter", annotation=note,
+                 formula=FORMULAS["density_and_pressures"], uses=("frame_stress_energy",), result=result)
+
+    # tests on the matter ----------------------------------------------------
+    def perfect_fluid(self) -> None:
+        c, n = self.c, self.n
+        statement = ("Perfect fluid at rest in the frame: T_ij = (rho + p) u_i u_j + p g_ij with u the "
+                     "frame's 4-velocity e_(0).")
+        if not self.frame_built:
+            verdict = Verdict(statement, None, "not decided: no orthonormal frame was built (" +
+                              c.results["frame"]["reason"] + ")")
+        else:
+            residues = {f"T_({self.frame_key(a)})({self.frame_key(b)})": self.F[a, b]
+                        for a in range(n) for b in range(a + 1, n)}
+            residues.update({f"p_({self.frame_key(k)}) - p_({self.frame_key(1)})": self.p[k - 1] - self.p[0]
+                             for k in range(2, n)})
+            verdict = self.residue_verdict(statement, residues)
+            if verdict.holds:
+                u = c.results["frame"]["vectors"][self.name(self.labels[0])]
+                verdict = Verdict(statement, True, verdict.evidence +
+                                  f"; density rho = {self.physical(self.rho)}, pressure p = {self.physical(self.p[0])}, "
+                                  f"4-velocity u^i = e_(0)^i = {u}")
+                c.results["perfect_fluid"] = {"density": self.physical(self.rho), "pressure": self.physical(self.p[0]),
+                                              "velocity": u}
+            elif verdict.holds is False:
+                verdict = Verdict(statement, False, verdict.evidence +
+                                  "; a fluid moving relative to these observers is not tested")
+        c.results.setdefault("verdicts", {})["perfect_fluid"] = {"holds": verdict.holds, "evidence": verdict.evidence}
+        c.record(id="verdict/perfect_fluid", kind="verdict", annotation=statement, formula=FORMULAS["perfect_fluid"],
+                 uses=("density_and_pressures",) if self.frame_built else ("frame",), result=verdict)
+
+    def residue_verdict(self, statement: str, residues: dict) -> Verdict:
+        for key, element in residues.items():
+            test = self.A.zero_test(element)
+            if test.vanishes is False:
+                return Verdict(statement, False, f"{key} is not zero")
+            if test.vanishes is None:
+                return Verdict(statement, None, f"{key}: {test.evidence}")
+        return Verdict(statement, True, f"each of the {len(residues)} conditions checked vanishes exactly")
+
+    def energy_conditions(self) -> None:
+        c, n = self.c, self.n
+        names = {"null": "Null energy condition", "weak": "Weak energy condition",
+                 "strong": "Strong energy condition", "dominant": "Dominant energy condition"}
+        table = {}
+        if not self.frame_built or not self.type_one:
+            why = ("no orthonormal frame was built" if not self.frame_built else
+                   "the stress-energy tensor is not diagonal in the frame, so its energy density and principal "
+                   "pressures are not read off; stepper does not diagonalise it")
+            for key, title in names.items():
+                verdict = Verdict(f"{title}: {_inequality_words(key, n)}.", None, f"not decided: {why}")
+                table[key] = {"holds": None, "evidence": verdict.evidence, "inequalities": {}}
+                c.record(id=f"energy_conditions/{key}", kind="energy condition", annotation=verdict.statement,
+                         formula=FORMULAS[key], uses=("frame",), result=verdict, params={"inequalities": {}})
+            c.results["energy_conditions"] = table
+            return
+        decider = _Decider(self, self.request.region)
+        rho, p = self.rho, self.p
+        labels = [self.frame_key(k) for k in range(1, n)]
+        inequalities = {
+            "null": [(f"rho + p_({l})", rho + pk) for l, pk in zip(labels, p)],
+            "weak": [("rho", rho)] + [(f"rho + p_({l})", rho + pk) for l, pk in zip(labels, p)],
+            "strong": [(f"rho + p_({l})", rho + pk) for l, pk in zip(labels, p)]
+            + [(f"{n - 3}*rho + sum p" if n != 4 else "rho + sum p", rho * (n - 3) + sum(p, self.A.zero))],
+            "dominant": [("rho", rho)] + [(f"rho - p_({l})", rho - pk) for l, pk in zip(labels, p)]
+            + [(f"rho + p_({l})", rho + pk) for l, pk in zip(labels, p)],
+        }
+        for key, title in names.items():
+            rows = {}
+            outcome: bool | None = True
+            first_failure = first_undecided = ""
+            for label, element in inequalities[key]:
+                holds, evidence = decider.decide(label, element)
+                rows[label] = {"value": self.physical(element), "holds": holds, "evidence": evidence}
+                if holds is False and not first_failure:
+                    first_failure = f"{label} >= 0 fails: {evidence}"
+                if holds is None and not first_undecided:
+                    first_undecided = f"{label} >= 0 is not decided: {evidence}"
+                if holds is False:
+                    outcome = False
+                elif holds is None and outcome is True:
+                    outcome = None
+            if outcome is False:
+                evidence = "violated: " + first_failure
+            elif outcome is None:
+                evidence = first_undecided
+            else:
+                evidence = "holds: every inequality is proven (" + "; ".join(
+                    f"{label}: {row['evidence']}" for label, row in rows.items()) + ")"
+            verdict = Verdict(f"{title}: {_inequality_words(key, n)}.", outcome, evidence)
+            table[key] = {"holds": outcome, "evidence": evidence, "inequalities": rows}
+            c.record(id=f"energy_conditions/{key}", kind="energy condition", annotation=verdict.statement,
+                     formula=FORMULAS[key], uses=("density_and_pressures",), result=verdict,
+                     params={"inequalities": rows,
+                             "region": {s.name: [lo, hi] for s, lo, hi in self.request.region}})
+        c.results["energy_conditions"] = table
+
+
+def _inequality_words(key: str, n: int) -> str:
+    strong_sum = "rho + sum of p_k >= 0" if n == 4 else f"({n} - 3) rho + sum of p_k >= 0"
+    return {"null": "rho + p_k >= 0 for every principal pressure p_k",
+            "weak": "rho >= 0 and rho + p_k >= 0 for every k",
+            "strong": f"rho + p_k >= 0 for every k and {strong_sum}",
+            "dominant": "rho >= |p_k| for every k"}[key]
+
+
+def _inverse_square_root(value: sympy.Expr) -> sympy.Expr:
+    """1/sqrt(N) written as sqrt(denominator)/sqrt(numerator), equal to it wherever N > 0."""
+    numerator, denominator = sympy.fraction(sympy.factor(value))
+    return sympy.sqrt(denominator) / sympy.sqrt(numerator)
+
+
+def _stable(expr: sympy.Expr) -> sympy.Expr:
+    from .algebra import printer_stable
+    return printer_stable(expr)
+
+
+class _Decider:
+    """Decides f >= 0 for kappa-scaled elements: by the declared signs where
+    sympy's assumptions settle it, otherwise by exact evaluation at points of
+    the user's region (a negative value there disproves it; non-negative
+    values everywhere sampled are evidence, not proof)."""
+
+    def __init__(self, matter: _Matter, region):
+        self.m = matter
+        self.region = {s: (lo, hi) for s, lo, hi in region}
+        self.cache: dict = {}
+        self._points = None
+
+    def decide(self, label: str, element) -> tuple[bool | None, str]:
+        key = self.m.A.pack(element) if hasattr(self.m.A, "pack") else element
+        key = repr(key)
+        if key not in self.cache:
+            self.cache[key] = self._decide(element)
+        return self.cache[key]
+
+    def _decide(self, element) -> tuple[bool | None, str]:
+        c = self.m.c
+        if c.is_zero(element):
+            return True, "it is identically 0"
+        expr = sympy.factor(c.expr(element))
+        if expr.has(sympy.core.function.AppliedUndef, sympy.Derivative):
+            return None, ("it depends on free functions, whose signs are not known; "
+                          f"its value is {self.m.physical(element)}")
+        if expr.is_nonnegative:
+            return True, "non-negative for all values allowed by the declared signs (sympy's assumptions)"
+        if expr.is_negative:
+            return False, ("negative for all values allowed by the declared signs (sympy's assumptions): "
+                           f"it equals {self.m.physical(element)}")
+        return self._sample(expr)
+
+    def points(self) -> list[dict]:
+        """Exact rational points of the region where the frame exists."""
+        if self._points is not None:
+            return self._points
+        rng = random.Random(SAMPLE_SEED)
+        symbols = sorted(self.region, key=lambda s: s.name)
+        norms = [sympy.factor(self.m.c.expr(N)) for N in self.m.N]
+        points = []
+        for _ in range(SAMPLE_POINTS):
+            point = {}
+            for s in symbols:
+                lo, hi = self.region[s]
+                share = sympy.Rational(rng.randint(0, 10**6), 10**6)
+                point[s] = lo + (hi - lo) * share
+            try:
+                values = [N.subs(point) for N in norms]
+            except (ZeroDivisionError, TypeError):
+                continue
+            if all(v.is_number and v.is_positive for v in values):
+                points.append(point)
+        self._points = points
+        return points
+
+    def _sample(self, expr: sympy.Expr) -> tuple[bool | None, str]:
+        missing = sorted(s.name for s in expr.free_symbols if s not in self.region)
+        if missing:
+            return None, (f"the declared signs do not settle its sign, and [matter.region] gives no range for "
+                          f"{', '.join(missing)} to sample")
+        points = self.points()
+        if not points:
+            return None, "no point of the region lies where the frame exists (every N > 0)"
+        used = 0
+        for point in points:
+            value = expr.subs(point)
+            if not value.is_number or value.has(sympy.zoo, sympy.nan):
+                continue
+            used += 1
+            if value.is_negative:
+                where = ", ".join(f"{s} = {v}" for s, v in sorted(point.items(), key=lambda kv: kv[0].name))
+                return False, (f"at the point {where} of the region it equals {_short(value / self.m.kappa)} < 0 "
+                               "(exact value)")
+        ranges = ", ".join(f"{s} in [{lo}, {hi}]" for s, (lo, hi) in sorted(self.region.items(), key=lambda kv: kv[0].name))
+        return None, (f"the declared signs do not settle its sign; it is >= 0 at all {used} exact points sampled "
+                      f"from {ranges} where the frame exists: evidence, not proof")
+
+
+def _short(value: sympy.Expr) -> str:
+    exact = str(value)
+    return exact if len(exact) <= 40 else f"{sympy.N(value, 6)}"
