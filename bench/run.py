@@ -5,7 +5,9 @@
     python3 bench/run.py --baseline-limit 300 --repeats 3
 
 For each metric it times, in fresh processes:
-  * the baseline (bench/baseline.py: Christoffel, Ricci by contracting Riemann, simplify() on each component),
+  * the baseline (bench/baseline.py: Christoffel, Ricci by contracting Riemann, simplify() on each component;
+    for the files asking for matter or an ansatz, bench/baseline_beyond.py: also the Einstein tensor, T^i_j
+    and the ansatz solved with dsolve),
   * `stepper derive --formats trace` (the whole chain with the trace),
   * `stepper derive --formats trace,pdf,notebook` (with the PDF and the notebook),
 and prints a table: metric, dimension, baseline seconds, stepper seconds (trace; with PDF and notebook),
@@ -39,7 +41,16 @@ NAMED = [
     ("Kerr-Newman", BENCH_METRICS / "charged_rotating_black_hole.toml"),
     ("5-d Tangherlini", EXAMPLES / "five_dimensional_black_hole.toml"),
 ]
-SLOW_BASELINES = {"Kerr", "Kerr-Newman"}
+SLOW_BASELINES = {"Kerr", "Kerr-Newman", "Kerr, with [matter]"}
+
+#: Metric files asking for more than curvature, timed against bench/baseline_beyond.py.
+BEYOND = [
+    ("wormhole, with [matter]", EXAMPLES / "wormhole_passage.toml"),
+    ("static closed universe, [matter]", EXAMPLES / "closed_static_universe.toml"),
+    ("Schwarzschild, [matter]+[orbit]", EXAMPLES / "compact_star_exterior.toml"),
+    ("static ansatz, [ansatz]", EXAMPLES / "exterior_from_ansatz.toml"),
+    ("Kerr, with [matter]", BENCH_METRICS / "spinning_black_hole_matter.toml"),
+]
 
 
 def sphere_file(n: int, folder: Path) -> Path:
@@ -103,12 +114,12 @@ def stepper_command(path: Path, formats: str, out: Path) -> list[str]:
     return [sys.executable, "-m", "stepper", "derive", str(path), "-o", str(out), "--quiet", "--formats", formats]
 
 
-def measure(label: str, path: Path, dimension: int, args, out: Path) -> dict:
+def measure(label: str, path: Path, dimension: int, args, out: Path, script: str = "baseline.py") -> dict:
     row = {"metric": label, "n": dimension}
     if args.no_baseline or (args.quick and label in SLOW_BASELINES):
         row["baseline"] = None
     else:
-        row["baseline"] = run_measured([sys.executable, str(ROOT / "bench" / "baseline.py"), str(path)],
+        row["baseline"] = run_measured([sys.executable, str(ROOT / "bench" / script), str(path)],
                                        limit=args.baseline_limit)
     trace_times = [run_measured(stepper_command(path, "trace", out)) for _ in range(args.repeats)]
     full_times = [run_measured(stepper_command(path, "trace,pdf,notebook", out)) for _ in range(args.repeats)]
@@ -148,14 +159,15 @@ def main() -> None:
     parser.add_argument("--baseline-limit", type=float, default=1800, help="seconds before a baseline is stopped")
     parser.add_argument("--repeats", type=int, default=3, help="runs per stepper measurement (median)")
     parser.add_argument("--largest", type=int, default=8, help="largest dimension of the growing families")
-    parser.add_argument("--only", choices=("named", "families"), help="run only the named metrics or only the families")
+    parser.add_argument("--only", choices=("named", "families", "beyond"),
+                        help="run only the named metrics, the families, or the files asking for more than curvature")
     args = parser.parse_args()
     rows = []
     with tempfile.TemporaryDirectory(prefix="stepper-bench-") as folder:
         folder = Path(folder)
         out = folder / "out"
-        jobs = [] if args.only == "families" else [(label, path) for label, path in NAMED]
-        if args.only != "named":
+        jobs = [] if args.only in ("families", "beyond") else [(label, path) for label, path in NAMED]
+        if args.only in (None, "families"):
             jobs += [(f"round {n}-sphere", sphere_file(n, folder)) for n in range(2, args.largest + 1)]
             jobs += [(f"{n - 1} free scale factors", scale_factor_file(n, folder))
                      for n in range(2, args.largest + 1)]
@@ -163,10 +175,15 @@ def main() -> None:
               f"baseline limit {args.baseline_limit:.0f} s", flush=True)
         print(HEADER)
         print("-" * len(HEADER), flush=True)
+        beyond = [(label, path) for label, path in BEYOND] if args.only in (None, "beyond") else []
+        from stepper import load_metric  # the dimension, read the same way stepper reads it
         for label, path in jobs:
-            from stepper import load_metric  # the dimension, read the same way stepper reads it
-            dimension = load_metric(path).dimension
-            rows.append(measure(label, path, dimension, args, out))
+            rows.append(measure(label, path, load_metric(path).dimension, args, out))
+            print(table_row(rows[-1], args.baseline_limit), flush=True)
+        if beyond:
+            print("beyond curvature (baseline: bench/baseline_beyond.py)", flush=True)
+        for label, path in beyond:
+            rows.append(measure(label, path, load_metric(path).dimension, args, out, "baseline_beyond.py"))
             print(table_row(rows[-1], args.baseline_limit), flush=True)
 
 

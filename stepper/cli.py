@@ -107,16 +107,47 @@ def summary(derivation: Derivation, out_dir: Path, written: Sequence[str]) -> st
                      f"at {len(numeric['points'])} random points")
     labels = {"ricci_flat": "Ricci-flat", "einstein_space": "Einstein manifold",
               "constant_curvature": "constant curvature", "conformally_flat": "conformally flat",
-              "bianchi": "contracted Bianchi identity"}
+              "bianchi": "contracted Bianchi identity", "trace_free": "trace-free stress-energy",
+              "perfect_fluid": "perfect fluid at rest in the frame"}
     for key, verdict in derivation.results.get("verdicts", {}).items():
         word = {True: "yes", False: "no", None: "undecided"}[verdict["holds"]]
         evidence = verdict["evidence"]
         if len(evidence) > 110:
             evidence = evidence[:107] + "..."
         lines.append(f"  {labels.get(key, key)}: {word} ({evidence})")
+    lines += _matter_lines(derivation.results)
     lines.append(f"  {len(derivation.steps)} steps recorded in {derivation.seconds:.2f} s")
     lines.append(f"  written to {out_dir}: {', '.join(written) if written else 'nothing'}")
     return "\n".join(lines)
+
+
+def _short(text: str, limit: int = 110) -> str:
+    return text if len(text) <= limit else text[:limit - 3] + "..."
+
+
+def _matter_lines(results: dict) -> list[str]:
+    """Summary lines for the energy density and pressures, energy conditions and the ansatz."""
+    lines = []
+    if "energy_density" in results:
+        lines.append(f"  energy density rho = {results['energy_density']}")
+        for direction, p in results.get("pressures", {}).items():
+            lines.append(f"  pressure along {direction} = {p}")
+    frame = results.get("frame")
+    if frame and not frame.get("built"):
+        lines.append(f"  frame: {frame.get('reason')}")
+    for name, row in results.get("energy_conditions", {}).items():
+        word = {True: "holds", False: "violated", None: "not decided"}[row["holds"]]
+        lines.append(f"  {name} energy condition: {word} ({_short(row['evidence'])})")
+    ansatz = results.get("ansatz")
+    if ansatz:
+        for unknown, value in ansatz.get("solution", {}).items():
+            lines.append(f"  ansatz solution {unknown} = {value}")
+        if "unsolved" in ansatz:
+            lines.append(f"  ansatz not fully solved: {ansatz['unsolved']}")
+        if "check" in ansatz:
+            word = {True: "holds", False: "FAILS", None: "not decided"}[ansatz["check"]["holds"]]
+            lines.append(f"  solution substituted into every field equation: {word}")
+    return lines
 
 
 def run_derive(args: argparse.Namespace) -> int:
