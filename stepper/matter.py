@@ -390,8 +390,7 @@ class _Matter:
         statement = ("Perfect fluid at rest in the frame: T_ij = (rho + p) u_i u_j + p g_ij with u the "
                      "frame's 4-velocity e_(0).")
         if not self.frame_built:
-            verdict = Verdict(statement, None, "not decided: no orthonormal frame was built (" +
-                              c.results["frame"]["reason"] + ")")
+            verdict = Verdict(statement, None, "not decided: " + c.results["frame"]["reason"])
         else:
             residues = {f"T_({self.frame_key(a)})({self.frame_key(b)})": self.F[a, b]
                         for a in range(n) for b in range(a + 1, n)}
@@ -522,14 +521,19 @@ class _Decider:
         if c.is_zero(element):
             return True, "it is identically 0"
         expr = sympy.factor(c.expr(element))
-        if expr.has(sympy.core.function.AppliedUndef, sympy.Derivative):
-            return None, ("it depends on free functions, whose signs are not known; "
+        functions = expr.has(sympy.core.function.AppliedUndef)
+        numerator, denominator = sympy.fraction(expr)
+        signs = _real_functions(numerator * denominator)  # the sign of n/d wherever d != 0
+        if signs.is_nonnegative:
+            return True, ("non-negative for all values allowed by the declared signs (sympy's assumptions"
+                          + (", free functions and their derivatives taken as real" if functions else "") + ")")
+        if signs.is_negative:
+            return False, ("negative for all values allowed by the declared signs (sympy's assumptions"
+                           + (", free functions and their derivatives taken as real" if functions else "")
+                           + f"): it equals {self.m.physical(element)}")
+        if functions:
+            return None, ("it depends on free functions, and its sign is not fixed by the declared signs; "
                           f"its value is {self.m.physical(element)}")
-        if expr.is_nonnegative:
-            return True, "non-negative for all values allowed by the declared signs (sympy's assumptions)"
-        if expr.is_negative:
-            return False, ("negative for all values allowed by the declared signs (sympy's assumptions): "
-                           f"it equals {self.m.physical(element)}")
         return self._sample(expr)
 
     def points(self) -> list[dict]:
@@ -577,6 +581,15 @@ class _Decider:
         ranges = ", ".join(f"{s} in [{lo}, {hi}]" for s, (lo, hi) in sorted(self.region.items(), key=lambda kv: kv[0].name))
         return None, (f"the declared signs do not settle its sign; it is >= 0 at all {used} exact points sampled "
                       f"from {ranges} where the frame exists: evidence, not proof")
+
+
+def _real_functions(expr: sympy.Expr) -> sympy.Expr:
+    """``expr`` with each free function and derivative replaced by a real symbol (a metric is real)."""
+    derivatives = sorted(expr.atoms(sympy.Derivative), key=sympy.default_sort_key)
+    mapping = {d: sympy.Dummy(f"d{k}", real=True) for k, d in enumerate(derivatives)}
+    expr = expr.xreplace(mapping)
+    functions = sorted(expr.atoms(sympy.core.function.AppliedUndef), key=sympy.default_sort_key)
+    return expr.xreplace({f: sympy.Dummy(f"f{k}", real=True) for k, f in enumerate(functions)})
 
 
 def _short(value: sympy.Expr) -> str:
