@@ -4,9 +4,9 @@ where sympy can, to their solution, checked by substitution.
 The field equations E_ij = G_ij + Lambda g_ij = 0 (vacuum, or an Einstein
 space R_ij = 2 Lambda g_ij / (n - 2) when Lambda is not 0) are reduced one
 by one: each component's numerator is factored, and factors that cannot
-vanish (those free of the unknowns, assumed non-zero, and powers of an
-unknown that divides the determinant of the non-degenerate metric) are
-dropped.  Components that are a multiple of another by a factor free of the
+vanish (those free of the unknowns, assumed non-zero, powers of an
+unknown that divides the determinant of the non-degenerate metric, and
+exponentials) are dropped.  Components that are a multiple of another by a factor free of the
 unknowns are duplicates.  The contracted Bianchi identity
 g^ac (d_c E_ab - Gamma^e_ca E_eb - Gamma^e_cb E_ae) = 0, an identity for any
 metric, is a linear relation among the E_ij and their derivatives; where an
@@ -109,6 +109,8 @@ class _Ansatz:
                 dropped.append(factor)
             elif isinstance(factor, AppliedUndef) and factor in det_factors:
                 dropped.append(factor)
+            elif isinstance(factor, sympy.exp) or (factor.is_Pow and isinstance(factor.base, sympy.exp)):
+                dropped.append(factor)  # exp of a real quantity never vanishes
             else:
                 kept.append(factor)
         return printer_stable(sympy.Mul(*kept)), dropped
@@ -236,6 +238,10 @@ class _Ansatz:
                 break
             solutions = solutions if isinstance(solutions, list) else [solutions]
             explicit = [s.rhs for s in solutions if s.lhs == f and not s.rhs.has(f) and s.rhs != 0]
+            how = "dsolve"
+            if not explicit:
+                explicit = _solve_implicit([s for s in solutions if not (s.lhs == f and not s.rhs.has(f))], f)
+                how = "dsolve, then solve() on its implicit solution"
             if not explicit:
                 failure = f"sympy's dsolve gave no explicit non-zero solution of E_{c.key(*ij)} for {f}"
                 break
@@ -245,11 +251,12 @@ class _Ansatz:
             step_id = f"ansatz/solve/{number}"
             c.record(id=step_id, kind="ode solution",
                      annotation=f"Solve E_{c.key(*ij)} = 0 (after the earlier solutions are substituted) for {f} "
-                                "with sympy's dsolve" + (f"; {len(explicit) - 1} other branch(es) not followed"
+                                f"with sympy's {how}" + (f"; {len(explicit) - 1} other branch(es) not followed"
                                                          if len(explicit) > 1 else "") + ".",
                      formula=FORMULAS["solve"], uses=(last,),
                      result={"equation": eq, "unknown": f, "solution": value},
-                     params={"component": c.key(*ij), "other_branches": [printer_stable(s) for s in explicit[1:]]})
+                     params={"component": c.key(*ij), "method": how,
+                             "other_branches": [printer_stable(s) for s in explicit[1:]]})
             last = step_id
         c.results["ansatz"]["solution"] = {str(f): v for f, v in solved.items()}
         c.results["ansatz"]["constants"] = [s.name for s in self.constants]
@@ -322,6 +329,25 @@ class _Ansatz:
                 continue
             entry = sympy.factor(matrix[i, i])
             scale, rest = entry.as_independent(C, as_Add=False)
-            if rest.is_Pow and rest.base == C or rest == C:
+            if rest.free_symbols == {C}:
                 out[C.name] = f"{x[i].name}: {x[i].name} -> {x[i].name} / sqrt(|{rest}|)"
         return out
+
+
+def _solve_implicit(equations: list, f: sympy.Expr) -> list[sympy.Expr]:
+    """Explicit forms of implicit solutions F(f, x) = C: solve() on F - C, or on exp(k (F - C)) - 1
+    when the logarithms in F keep solve() from it."""
+    found = []
+    for eq in equations:
+        difference = eq.lhs - eq.rhs
+        for attempt in (difference, sympy.powsimp(sympy.expand_power_exp(sympy.exp(2 * difference))) - 1,
+                        sympy.powsimp(sympy.expand_power_exp(sympy.exp(difference))) - 1):
+            try:
+                roots = sympy.solve(attempt, f)
+            except (NotImplementedError, ValueError, TypeError):
+                continue
+            roots = [root for root in roots if not root.has(f) and root != 0]
+            if roots:
+                found += roots
+                break
+    return found

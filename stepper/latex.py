@@ -82,9 +82,18 @@ class ExpressionWriter:
             return f"{lhs} = {short}", False
         return f"{lhs} = {self.breakable(expr)}", True
 
-    def breakable(self, expr: sympy.Expr) -> str:
-        """LaTeX in which TeX may break lines after a top-level + or -."""
-        return self._breakable(self.abbreviate(expr))
+    def breakable(self, expr: sympy.Expr, short_denominator: int = SHORT_DENOMINATOR) -> str:
+        """LaTeX in which TeX may break lines after a top-level + or -.
+
+        Fractions whose numerator or denominator is longer than ``short_denominator``
+        characters are written as a product with a factor to the power -1, which
+        can break; narrow table cells pass a smaller width."""
+        return self._breakable(self.abbreviate(expr), short_denominator)
+
+    def fits(self, expr: sympy.Expr, width: int) -> str:
+        """Plain LaTeX when it is at most ``width`` characters long, otherwise the breakable form."""
+        text = self.inline(expr)
+        return text if len(text) <= width else self.breakable(expr, max(width // 2, 12))
 
     def symbol(self, name: str) -> str:
         return self._printer.doprint(sympy.Symbol(name))
@@ -120,13 +129,13 @@ class ExpressionWriter:
         return f"{self.symbol(name)} = {self._printer.doprint(value)}"
 
     # breaking -----------------------------------------------------------
-    def _breakable(self, expr: sympy.Expr) -> str:
+    def _breakable(self, expr: sympy.Expr, short: int = SHORT_DENOMINATOR) -> str:
         p = self._printer
         if isinstance(expr, sympy.Add):
-            return self._sum(expr.as_ordered_terms())
+            return self._sum(expr.as_ordered_terms(), short)
         if isinstance(expr, sympy.Derivative) and not isinstance(expr.expr, AppliedUndef):
             variables = "".join(p.doprint(v) * int(n) for v, n in expr.variable_count)
-            return rf"\partial_{{{variables}}}\bigl(" + self._breakable(expr.expr) + r"\bigr)"
+            return rf"\partial_{{{variables}}}\bigl(" + self._breakable(expr.expr, short) + r"\bigr)"
         if not isinstance(expr, sympy.Mul):
             return p.doprint(expr)
         coefficient, rest = expr.as_coeff_Mul()
@@ -149,27 +158,27 @@ class ExpressionWriter:
         parts = []
         if bottom != 1:
             bottom_tex = p.doprint(bottom)
-            if len(bottom_tex) <= SHORT_DENOMINATOR and len(top_tex) <= SHORT_DENOMINATOR:
+            if len(bottom_tex) <= short and len(top_tex) <= short:
                 parts.append(rf"\frac{{{top_tex}}}{{{bottom_tex}}}")
             else:
                 if top != 1:
-                    parts.append(self._breakable(top))
-                parts.append(r"\bigl(" + self._breakable(bottom) + r"\bigr)^{-1}")
+                    parts.append(self._breakable(top, short))
+                parts.append(r"\bigl(" + self._breakable(bottom, short) + r"\bigr)^{-1}")
         elif top != 1 or not sums:
             parts.append(top_tex)
         for factor in sums:
             if isinstance(factor, sympy.Derivative):
-                parts.append(self._breakable(factor))
+                parts.append(self._breakable(factor, short))
                 continue
             base, exponent = factor.as_base_exp()
-            inner = r"\bigl(" + self._sum(base.as_ordered_terms()) + r"\bigr)"
+            inner = r"\bigl(" + self._sum(base.as_ordered_terms(), short) + r"\bigr)"
             parts.append(inner if exponent == 1 else inner + f"^{{{p.doprint(exponent)}}}")
         return sign + r"\,".join(parts)
 
-    def _sum(self, terms: Iterable[sympy.Expr]) -> str:
+    def _sum(self, terms: Iterable[sympy.Expr], short: int = SHORT_DENOMINATOR) -> str:
         out = []
         for i, term in enumerate(terms):
-            text = (self._breakable(term) if isinstance(term, (sympy.Mul, sympy.Derivative))
+            text = (self._breakable(term, short) if isinstance(term, (sympy.Mul, sympy.Derivative))
                     else self._printer.doprint(term))
             if text.startswith("-"):
                 out.append(("- " if i else "-") + text[1:].lstrip())
@@ -201,11 +210,35 @@ _COMPONENT_SYMBOLS = {
     "einstein": ("G", 0),
     "metric": ("g", 0),
     "inverse_metric": ("g", 2),
+    "stress_energy": ("T", 0),
+    "stress_energy_mixed": ("T", 1),
+    "stress_energy_up": ("T", 2),
+    "field_equation": ("E", 0),
 }
+
+#: Components in the orthonormal frame: indices in parentheses, named after coordinates.
+_FRAME_SYMBOLS = {
+    "frame_stress_energy": "T",
+    "frame_ricci": "R",
+    "frame_riemann": "R",
+}
+
+
+def frame_index(name: str, writer: ExpressionWriter) -> str:
+    """A frame index named after a coordinate, e.g. (\theta)."""
+    return "{(" + writer.symbol(name) + ")}"
 
 
 def component_symbol(quantity: str, names: Sequence[str], writer: ExpressionWriter) -> str:
     """The LaTeX symbol of a component, e.g. Gamma^r_{tt} for ("christoffel", ["r", "t", "t"])."""
+    if quantity in _FRAME_SYMBOLS:
+        return _FRAME_SYMBOLS[quantity] + "_{" + "".join(frame_index(n, writer) for n in names) + "}"
+    if quantity == "pressure":
+        return "p_" + frame_index(names[0], writer)
+    if quantity == "energy_density":
+        return r"\rho"
+    if quantity == "geodesic_acceleration":
+        return r"\frac{d" + writer.symbol(f"u_{names[0]}") + r"}{d\tau}"
     head, upper = _COMPONENT_SYMBOLS[quantity]
     tex = ["{" + writer.symbol(n) + "}" for n in names]
     up, down = "".join(tex[:upper]), "".join(tex[upper:])
@@ -213,8 +246,13 @@ def component_symbol(quantity: str, names: Sequence[str], writer: ExpressionWrit
         return rf"{head}^{{{up}}}"
     if not up:
         return rf"{head}_{{{down}}}"
-    spacer = "{}" if head == "R" else ""  # R^a{}_{bcd}: the lower indices start after the upper one
+    spacer = "" if head == r"\Gamma" else "{}"  # R^a{}_{bcd}: the lower indices start after the upper ones
     return rf"{head}^{{{up}}}{spacer}_{{{down}}}"
+
+
+def has_component_symbol(quantity: str) -> bool:
+    return quantity in _COMPONENT_SYMBOLS or quantity in _FRAME_SYMBOLS or quantity in (
+        "pressure", "energy_density", "geodesic_acceleration")
 
 
 def mapping_lines(mapping: Mapping[str, sympy.Expr], quantity: str, writer: ExpressionWriter) -> list[tuple[str, bool]]:
