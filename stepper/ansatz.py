@@ -64,6 +64,7 @@ class _Ansatz:
         lam = A.from_expr(self.lam) if self.lam != 0 else A.zero
         self.E = {(i, j): c.G[i][j] + lam * c.g[i][j] for i in range(n) for j in range(i, n)}
         det_factors = {f for f, _ in sympy.factor_list(sympy.numer(sympy.together(c.expr(c.det))))[1]}
+        self.det_factors = det_factors
         self.reduced, dropped, self.duplicates, zero = {}, {}, {}, []
         representatives: list[tuple[int, int]] = []
         for ij, element in self.E.items():
@@ -147,6 +148,8 @@ class _Ansatz:
             candidates.sort(key=lambda ij: (self.order_of(self.reduced[ij]), self.order.index(ij)))
             for ij in reversed(candidates):
                 others = present - {ij}
+                if not self.never_vanishes(c.expr(alg[ij])):
+                    continue  # a coefficient that may vanish on solutions says nothing there
                 if others and others <= set(kept) - {ij}:
                     kept.remove(ij)
                     follows[c.key(*ij)] = {
@@ -168,6 +171,19 @@ class _Ansatz:
                  formula=FORMULAS["dependence"], uses=("ansatz/equations", "verdict/bianchi"),
                  result={"independent": [c.key(*ij) for ij in kept], "follows": follows},
                  params={"relations": relations})
+
+    def never_vanishes(self, coefficient: sympy.Expr) -> bool:
+        """True when every factor is free of the unknowns, an exponential, or an unknown dividing det g."""
+        _, factors = sympy.factor_list(sympy.numer(sympy.together(coefficient)))
+        for factor, _power in factors:
+            if not self.has_unknowns(factor):
+                continue
+            if isinstance(factor, sympy.exp) or (factor.is_Pow and isinstance(factor.base, sympy.exp)):
+                continue
+            if isinstance(factor, AppliedUndef) and factor in self.det_factors:
+                continue
+            return False
+        return True
 
     def fold_duplicates(self, alg: dict, der: dict) -> tuple[dict, dict]:
         """Write each duplicate E_k = q E_rep in terms of its representative."""
@@ -278,7 +294,7 @@ class _Ansatz:
         rescaled = self.absorbable(matrix)
         c.results["ansatz"]["metric"] = components
         c.results["ansatz"]["rescalings"] = rescaled
-        note = "; ".join(f"{k} can be set to 1 by rescaling {v}" for k, v in rescaled.items())
+        note = "; ".join(f"{k} is removed by rescaling {v}" for k, v in rescaled.items())
         c.record(id="ansatz/solution", kind="ansatz",
                  annotation="The metric with the solution put in, with integration constants "
                             f"{', '.join(s.name for s in self.constants) or 'none'}"
@@ -330,7 +346,8 @@ class _Ansatz:
             entry = sympy.factor(matrix[i, i])
             scale, rest = entry.as_independent(C, as_Add=False)
             if rest.free_symbols == {C}:
-                out[C.name] = f"{x[i].name}: {x[i].name} -> {x[i].name} / sqrt(|{rest}|)"
+                out[C.name] = (f"{x[i].name}: {x[i].name} -> {x[i].name} / sqrt(|{rest}|) sets it to +1 or -1, "
+                              "the sign being fixed by the signature")
         return out
 
 

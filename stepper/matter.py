@@ -489,6 +489,8 @@ def _inequality_words(key: str, n: int) -> str:
 def _inverse_square_root(value: sympy.Expr) -> sympy.Expr:
     """1/sqrt(N) written as sqrt(denominator)/sqrt(numerator), equal to it wherever N > 0."""
     numerator, denominator = sympy.fraction(sympy.factor(value))
+    if numerator.could_extract_minus_sign():  # N > 0: both negative, so take both positive
+        numerator, denominator = sympy.factor(-numerator), sympy.factor(-denominator)
     return sympy.sqrt(denominator) / sympy.sqrt(numerator)
 
 

@@ -245,6 +245,9 @@ def _matter_request(table: dict, coordinates, symbols: dict, functions: dict) ->
                 raise InputError(f"matter.units = \"physical\" needs '{name}' for a constant, "
                                  "but it is already a coordinate or function")
             symbols.setdefault(name, sympy.Symbol(name, positive=True))
+            if not symbols[name].is_positive:
+                raise InputError(f"matter.units = \"physical\": '{name}' must be declared positive "
+                                 "(or left undeclared, when stepper takes it positive)")
         newton, light = symbols["G"], symbols["c"]
     lam = _constant_expression(table, "cosmological_constant", symbols, "matter", coordinates)
     region = []
@@ -311,7 +314,14 @@ def _orbit_request(table: dict, coordinates, symbols: dict, functions: dict, use
     time = coordinates[0]
     return OrbitRequest(time=time, kind=kind, values=numbers("values", parameters),
                         start=numbers("start", names), velocity=numbers("velocity", names[1:]),
-                        span=_number(table.get("span", "100"), symbols, "orbit.span"))
+                        span=_positive_span(table))
+
+
+def _positive_span(table: dict) -> sympy.Expr:
+    span = _number(table.get("span", "100"), {}, "orbit.span")
+    if not span.is_positive:
+        raise InputError(f"orbit.span must be positive, not {span}")
+    return span
 
 
 _NAME = re.compile(r"[A-Za-z_][A-Za-z0-9_]*")
