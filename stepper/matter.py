@@ -29,6 +29,7 @@ import itertools
 import random
 from collections import Counter
 
+import mpmath
 import sympy
 
 from .metric import MatterRequest
@@ -76,6 +77,7 @@ CONVENTIONS_LATEX = {
 #: Points drawn from the region when the algebra cannot decide an inequality.
 SAMPLE_POINTS = 200
 SAMPLE_SEED = 20261202
+SAMPLE_DIGITS = 30
 
 
 def record_matter(chain, request: MatterRequest) -> None:
@@ -538,28 +540,33 @@ class _Decider:
                           f"its value is {self.m.physical(element)}")
         return self._sample(expr)
 
-    def points(self) -> list[dict]:
-        """Exact rational points of the region where the frame exists."""
+    def points(self) -> list[tuple[dict, list]]:
+        """Exact rational points of the region where the frame exists, each with its
+        coordinates as 30-digit numbers (in the order of the region's sorted symbols)."""
         if self._points is not None:
             return self._points
         rng = random.Random(SAMPLE_SEED)
-        symbols = sorted(self.region, key=lambda s: s.name)
-        norms = [sympy.factor(self.m.c.expr(N)) for N in self.m.N]
+        self.symbols = sorted(self.region, key=lambda s: s.name)
+        norms = [self.numeric(sympy.factor(self.m.c.expr(N))) for N in self.m.N]
         points = []
         for _ in range(SAMPLE_POINTS):
             point = {}
-            for s in symbols:
+            for s in self.symbols:
                 lo, hi = self.region[s]
                 share = sympy.Rational(rng.randint(0, 10**6), 10**6)
                 point[s] = lo + (hi - lo) * share
-            try:
-                values = [N.subs(point) for N in norms]
-            except (ZeroDivisionError, TypeError):
+            values = [mpmath.mpf(str(sympy.N(point[s], SAMPLE_DIGITS + 5))) for s in self.symbols]
+            if norms and not all(_positive(N, values) for N in norms):
                 continue
-            if all(v.is_number and v.is_positive for v in values):
-                points.append(point)
+            points.append((point, values))
         self._points = points
         return points
+
+    def numeric(self, expr: sympy.Expr):
+        """``expr`` as a function of the region's symbols, evaluated with mpmath (None if it needs others)."""
+        if not expr.free_symbols <= set(self.symbols):
+            return None
+        return sympy.lambdify(self.symbols, expr, modules="mpmath")
 
     def _sample(self, expr: sympy.Expr) -> tuple[bool | None, str]:
         missing = sorted(s.name for s in expr.free_symbols if s not in self.region)
@@ -569,20 +576,41 @@ class _Decider:
         points = self.points()
         if not points:
             return None, "no point of the region lies where the frame exists (every N > 0)"
+        evaluate = self.numeric(expr)
         used = 0
-        for point in points:
-            value = expr.subs(point)
-            if not value.is_number or value.has(sympy.zoo, sympy.nan):
-                continue
-            used += 1
-            if value.is_negative:
-                where = ", ".join(f"{s} = {v}" for s, v in sorted(point.items(), key=lambda kv: kv[0].name)
-                                  if s in expr.free_symbols)
-                return False, (f"at the point {where} of the region it equals {_short(value / self.m.kappa)} < 0 "
-                               "(exact value)")
+        with mpmath.workdps(SAMPLE_DIGITS):
+            for point, values in points:
+                approximate = _real_value(evaluate, values)
+                if approximate is None:
+                    continue
+                used += 1
+                if approximate >= 0:
+                    continue
+                value = expr.subs(point)  # confirm a negative value exactly
+                if value.is_number and value.is_negative:
+                    where = ", ".join(f"{s} = {v}" for s, v in sorted(point.items(), key=lambda kv: kv[0].name)
+                                      if s in expr.free_symbols)
+                    return False, (f"at the point {where} of the region it equals {_short(value / self.m.kappa)} "
+                                   "< 0 (exact value)")
         ranges = ", ".join(f"{s} in [{lo}, {hi}]" for s, (lo, hi) in sorted(self.region.items(), key=lambda kv: kv[0].name))
         return None, (f"the declared signs do not settle its sign; it is >= 0 at all {used} exact points sampled "
-                      f"from {ranges} where the frame exists: evidence, not proof")
+                      f"from {ranges} where the frame exists (evaluated to {SAMPLE_DIGITS} digits): "
+                      "evidence, not proof")
+
+
+def _real_value(function, values: list):
+    """The function's value as an mpmath real, or None where it is undefined or not real."""
+    with mpmath.workdps(SAMPLE_DIGITS):
+        try:
+            value = mpmath.mpmathify(function(*values))
+        except (ZeroDivisionError, ValueError, TypeError):
+            return None
+    return value if isinstance(value, mpmath.mpf) and mpmath.isfinite(value) else None
+
+
+def _positive(function, values: list) -> bool:
+    value = _real_value(function, values)
+    return value is not None and value > 0
 
 
 def _real_functions(expr: sympy.Expr) -> sympy.Expr:
