@@ -5,13 +5,26 @@ A claims file is TOML::
     metric = "compact_star_exterior.toml"   # the metric file, relative to this file
     title = "Checking the notes for Tuesday's seminar"   # optional
 
+    constants = ["M"]            # optional: integration constants the claims use
+                                 #   (C1, C2, ... are always known)
+
     [[claim]]
     quantity = "christoffel"     # one of QUANTITIES
-    component = "r,t,t"          # coordinate names; omit for scalars
+    component = "r,t,t"          # coordinate names; omit for scalars; for a pressure the
+                                 # frame direction, for ansatz_solution the unknown function
     value = "M*(r - 2*M)/r^3"    # stepper's plain syntax ...
     # latex = "\\frac{M(r-2M)}{r^{3}}"   # ... or LaTeX as printed in a paper (TOML literal strings
     #                                    #     '...' need no doubled backslashes)
     label = "my notes, eq. 4"    # optional, shown in the report
+
+Matter quantities (stress_energy, ..., pressure) need a [matter] table in the
+metric file, ansatz_solution an [ansatz] table; without them the claims are
+audited as "cannot be decided".  A geodesic acceleration du^a/dtau is written
+with the velocity symbols u_<coordinate> (u_r for dr/dtau), which claims of
+that quantity may use.  Frame components are named by the coordinate each
+frame vector starts from ("t,t" is T_(t)(t)).  An ansatz solution agrees when
+it is stepper's general solution for some values of the integration
+constants, the same values for every claim of the file.
 
 Every text is read by stepper's own parsers; nothing is evaluated as code.
 A claim that cannot be read is kept, with the reason, and audited as
@@ -29,7 +42,7 @@ from .errors import InputError
 from .latex_input import parse_latex
 from .metric import Metric
 from .metricfile import load_metric, read_toml
-from .parse import Vocabulary, parse_expression
+from .parse import Vocabulary, check_identifier, parse_expression
 
 #: Quantity name -> number of indices (0 for a scalar).
 QUANTITIES = {
@@ -43,9 +56,25 @@ QUANTITIES = {
     "einstein": 2,
     "kretschmann": 0,
     "weyl": 4,
+    "stress_energy": 2,
+    "stress_energy_mixed": 2,
+    "stress_energy_up": 2,
+    "frame_stress_energy": 2,
+    "frame_ricci": 2,
+    "energy_density": 0,
+    "pressure": 1,
+    "geodesic_acceleration": 1,
+    "ansatz_solution": 1,
 }
 
+#: Quantities whose component names a function of the metric rather than coordinates.
+FUNCTION_COMPONENTS = frozenset({"ansatz_solution"})
+
+#: Integration constants a claim may always use (the names stepper gives them).
+DEFAULT_CONSTANTS = tuple(f"C{k}" for k in range(1, 10))
+
 CLAIM_KEYS = ("quantity", "component", "value", "latex", "label")
+FILE_KEYS = ("metric", "title", "constants", "claim")
 
 
 @dataclass(frozen=True)
@@ -68,19 +97,46 @@ class Claim:
 
 
 def metric_vocabulary(metric: Metric) -> Vocabulary:
-    """The names a claim about ``metric`` may use: those its file declared."""
+    """The names a claim about ``metric`` may use: those its file declared (with the symbols its
+    [matter] and [ansatz] tables bring in, such as Lambda, G and c)."""
     symbols = {s.name: s for s in tuple(metric.coordinates) + tuple(metric.parameters)}
+    for s in getattr(metric, "extra_symbols", ()):
+        symbols.setdefault(s.name, s)
     functions = {f.func.__name__: f for f in metric.functions}
     return Vocabulary(symbols, functions, dict(metric.abbreviations))
+
+
+def velocity_symbols(metric: Metric) -> dict[str, sympy.Symbol]:
+    """u_x standing for dx/dtau, as the geodesic equations write them."""
+    from .geodesics import velocity_symbols as symbols_for
+    return {s.name: s for s in symbols_for(metric.coordinates)}
+
+
+def constant_symbols(metric: Metric, names: tuple[str, ...] = ()) -> dict[str, sympy.Symbol]:
+    """Integration constants: C1, ..., C9 and the names a claims file lists, unless the metric declares them."""
+    taken = set(metric_vocabulary(metric).symbols) | {f.func.__name__ for f in metric.functions} | \
+        {name for name, _ in metric.abbreviations}
+    return {name: sympy.Symbol(name, real=True) for name in DEFAULT_CONSTANTS + tuple(names) if name not in taken}
+
+
+def claim_vocabulary(metric: Metric, quantity: str, constants: tuple[str, ...] = ()) -> Vocabulary:
+    """The names a claim of ``quantity`` may use: the metric's, plus the velocity symbols u_x for a
+    geodesic acceleration and integration constants for an ansatz solution."""
+    base = metric_vocabulary(metric)
+    if quantity == "geodesic_acceleration":
+        return Vocabulary({**base.symbols, **velocity_symbols(metric)}, base.functions, base.abbreviations)
+    if quantity == "ansatz_solution":
+        return Vocabulary({**constant_symbols(metric, constants), **base.symbols}, base.functions, base.abbreviations)
+    return base
 
 
 def load_claims(path: str | Path) -> tuple[Metric, str, list[Claim]]:
     """The metric the claims are about, the title, and the claims."""
     path = Path(path)
     data = read_toml(path)
-    unknown = [k for k in data if k not in ("metric", "title", "claim")]
+    unknown = [k for k in data if k not in FILE_KEYS]
     if unknown:
-        raise InputError(f"unknown key '{unknown[0]}' in {path.name} (known keys: metric, title, claim)")
+        raise InputError(f"unknown key '{unknown[0]}' in {path.name} (known keys: {', '.join(FILE_KEYS)})")
     metric_name = data.get("metric")
     if not isinstance(metric_name, str) or not metric_name:
         raise InputError(f"{path.name} must name its metric file, e.g. metric = \"my_metric.toml\"")
@@ -88,16 +144,26 @@ def load_claims(path: str | Path) -> tuple[Metric, str, list[Claim]]:
     title = data.get("title", f"Claims in {path.name}")
     if not isinstance(title, str):
         raise InputError("'title' must be text")
+    constants = data.get("constants", [])
+    if not isinstance(constants, list) or not all(isinstance(c, str) for c in constants):
+        raise InputError("'constants' must be a list of names, e.g. constants = [\"M\"]")
+    declared = metric_vocabulary(metric)
+    for name in constants:
+        check_identifier(name, "constants")
+        if name in declared.symbols or name in declared.functions or name in declared.abbreviations:
+            raise InputError(f"constants: '{name}' is already declared by the metric file")
     entries = data.get("claim", [])
     if not isinstance(entries, list) or not all(isinstance(e, dict) for e in entries) or not entries:
         raise InputError(f"{path.name} has no claims: add [[claim]] tables")
-    vocabulary = metric_vocabulary(metric)
-    return metric, title, [read_claim(number, entry, metric, vocabulary)
+    return metric, title, [read_claim(number, entry, metric, None, tuple(constants))
                            for number, entry in enumerate(entries, start=1)]
 
 
-def read_claim(number: int, entry: dict, metric: Metric, vocabulary: Vocabulary) -> Claim:
-    """One [[claim]] table; structural mistakes are errors, unreadable expressions are kept."""
+def read_claim(number: int, entry: dict, metric: Metric, vocabulary: Vocabulary | None = None,
+               constants: tuple[str, ...] = ()) -> Claim:
+    """One [[claim]] table; structural mistakes are errors, unreadable expressions are kept.
+
+    ``vocabulary`` None means the one :func:`claim_vocabulary` gives for the claim's quantity."""
     where = f"claim {number}"
     unknown = [k for k in entry if k not in CLAIM_KEYS]
     if unknown:
@@ -112,9 +178,18 @@ def read_claim(number: int, entry: dict, metric: Metric, vocabulary: Vocabulary)
     parts = [p.strip() for p in component.split(",")] if component.strip() else []
     if len(parts) != rank:
         raise InputError(f"{where}: {quantity} needs {rank} coordinate names in 'component', got {len(parts)}")
-    for part in parts:
-        if part not in metric.names:
-            raise InputError(f"{where}: '{part}' in component is not a coordinate ({', '.join(metric.names)})")
+    if quantity in FUNCTION_COMPONENTS:
+        functions = [f.func.__name__ for f in metric.functions]
+        if parts and parts[0] not in functions:
+            raise InputError(f"{where}: '{parts[0]}' in component is not a declared function "
+                             f"({', '.join(functions) or 'the metric has none'})")
+    else:
+        for part in parts:
+            if part not in metric.names:
+                raise InputError(f"{where}: '{part}' in component is not a coordinate ({', '.join(metric.names)})")
+    if quantity == "pressure" and metric.matter is not None and parts[0] == metric.matter.time.name:
+        raise InputError(f"{where}: a pressure is along a spatial frame direction; '{parts[0]}' is the time "
+                         "of the frame (claim the energy_density instead)")
     label = entry.get("label", "")
     if not isinstance(label, str):
         raise InputError(f"{where}: label must be text")
@@ -127,6 +202,8 @@ def read_claim(number: int, entry: dict, metric: Metric, vocabulary: Vocabulary)
         text = str(text) if isinstance(text, int) and not isinstance(text, bool) else None
     if text is None:
         raise InputError(f"{where}: the claimed value must be text")
+    if vocabulary is None:
+        vocabulary = claim_vocabulary(metric, quantity, constants)
     reader = parse_expression if syntax == "plain" else parse_latex
     try:
         expr = reader(text, vocabulary, where)

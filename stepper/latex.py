@@ -149,7 +149,9 @@ class ExpressionWriter:
         sign = "-" if coefficient < 0 else ""
         coefficient = abs(coefficient)
         def breaks(f):
-            return isinstance(f.as_base_exp()[0], sympy.Add) or isinstance(f, sympy.Derivative)
+            base = f.as_base_exp()[0]
+            return (isinstance(base, sympy.Add) or isinstance(f, sympy.Derivative)
+                    or (isinstance(base, sympy.Abs) and isinstance(base.args[0], sympy.Add)))
         simple = [f for f in numerator if not breaks(f)]
         sums = [f for f in numerator if breaks(f)]
         top = sympy.Mul(coefficient.p, *simple)
@@ -171,7 +173,10 @@ class ExpressionWriter:
                 parts.append(self._breakable(factor, short))
                 continue
             base, exponent = factor.as_base_exp()
-            inner = r"\bigl(" + self._sum(base.as_ordered_terms(), short) + r"\bigr)"
+            if isinstance(base, sympy.Abs):  # |a + b|: TeX may break inside \bigl| \bigr| but not \left| \right|
+                inner = r"\bigl|" + self._sum(base.args[0].as_ordered_terms(), short) + r"\bigr|"
+            else:
+                inner = r"\bigl(" + self._sum(base.as_ordered_terms(), short) + r"\bigr)"
             parts.append(inner if exponent == 1 else inner + f"^{{{p.doprint(exponent)}}}")
         return sign + r"\,".join(parts)
 

@@ -248,7 +248,7 @@ class _Matter:
         frame_result = {}
         for a, (vec, norm) in enumerate(zip(vectors, norms)):
             inverse_root = _inverse_square_root(c.expr(norm))
-            frame_result[self.name(labels[a])] = {self.name(i): _stable(c.expr(vi) * inverse_root)
+            frame_result[self.name(labels[a])] = {self.name(i): _tidy(c.expr(vi) * inverse_root)
                                                  for i, vi in enumerate(vec) if not c.is_zero(vi)}
         norms_result = {self.name(labels[a]): c.expr(norm) for a, norm in enumerate(norms)}
         c.results["frame"].update({"vectors": frame_result, "squared_norms": norms_result,
@@ -296,7 +296,7 @@ class _Matter:
             return sympy.Integer(0)
         value = self.c.expr(rational) / scale
         if odd != self.A.one and not (odd == 1):
-            value = value * _inverse_square_root(self.c.expr(odd))
+            value = _tidy(value * _inverse_square_root(self.c.expr(odd)))
         return _stable(value)
 
     def contract(self, tensor, frame_indices: tuple[int, ...]):
@@ -401,9 +401,12 @@ class _Matter:
             verdict = self.residue_verdict(statement, residues)
             if verdict.holds:
                 u = c.results["frame"]["vectors"][self.name(self.labels[0])]
-                verdict = Verdict(statement, True, verdict.evidence +
-                                  f"; density rho = {self.physical(self.rho)}, pressure p = {self.physical(self.p[0])}, "
-                                  f"4-velocity u^i = e_(0)^i = {u}")
+                vacuum = all(c.is_zero(self.S[i][j]) for i in range(n) for j in range(n))
+                velocity = ", ".join(f"u^{x} = {value}" for x, value in u.items())
+                verdict = Verdict(statement, True, (
+                    "trivially: T_ij vanishes (vacuum), a perfect fluid with rho = p = 0" if vacuum else
+                    verdict.evidence + f"; density rho = {self.physical(self.rho)}, pressure p = "
+                    f"{self.physical(self.p[0])}, 4-velocity e_(0): {velocity}"))
                 c.results["perfect_fluid"] = {"density": self.physical(self.rho), "pressure": self.physical(self.p[0]),
                                               "velocity": u}
             elif verdict.holds is False:
@@ -494,6 +497,18 @@ def _inverse_square_root(value: sympy.Expr) -> sympy.Expr:
     if numerator.could_extract_minus_sign():  # N > 0: both negative, so take both positive
         numerator, denominator = sympy.factor(-numerator), sympy.factor(-denominator)
     return sympy.sqrt(denominator) / sympy.sqrt(numerator)
+
+
+#: Expressions with square roots longer than this (in sympy operations) are not factored for display.
+TIDY_OPERATIONS_LIMIT = 300
+
+
+def _tidy(expr: sympy.Expr) -> sympy.Expr:
+    """Cancel a rational factor against a square root (r/(r - 2M) * sqrt(r - 2M)/sqrt(r) becomes
+    sqrt(r)/sqrt(r - 2M)) by factoring, when the expression is short."""
+    if sympy.count_ops(expr) <= TIDY_OPERATIONS_LIMIT:
+        expr = sympy.factor(expr)
+    return _stable(expr)
 
 
 def _stable(expr: sympy.Expr) -> sympy.Expr:

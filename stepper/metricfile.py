@@ -24,6 +24,7 @@ Optional requests beyond curvature::
     cosmological_constant = "0"
     [orbit]                      # a geodesic integrated numerically in the notebook
     kind = "timelike"            # or "null"
+    time = "t"                   # its rate follows from the normalisation (default: first coordinate)
     values = { M = "1" }
     start = { t = "0", r = "10", theta = "pi/2", phi = "0" }
     velocity = { r = "0", theta = "0", phi = "1/30" }
@@ -57,7 +58,7 @@ KNOWN_KEYS = ("title", "notes", "coordinates", "line_element", "components", "sy
               "abbreviations", "matter", "ansatz", "orbit")
 MATTER_KEYS = ("units", "cosmological_constant", "time", "region")
 ANSATZ_KEYS = ("unknowns", "cosmological_constant")
-ORBIT_KEYS = ("kind", "values", "start", "velocity", "span")
+ORBIT_KEYS = ("kind", "time", "values", "start", "velocity", "span")
 UNITS = ("geometric", "physical")
 
 
@@ -311,9 +312,9 @@ def _orbit_request(table: dict, coordinates, symbols: dict, functions: dict, use
             raise InputError(f"orbit.{key} is missing '{missing[0]}' (it needs {', '.join(wanted)})")
         return tuple((symbols[w], _number(given[w], symbols, f"orbit.{key}.{w}")) for w in wanted)
 
-    time = coordinates[0]
+    time = _coordinate(table, "time", coordinates, "orbit")
     return OrbitRequest(time=time, kind=kind, values=numbers("values", parameters),
-                        start=numbers("start", names), velocity=numbers("velocity", names[1:]),
+                        start=numbers("start", names), velocity=numbers("velocity", [n for n in names if n != time.name]),
                         span=_positive_span(table))
 
 

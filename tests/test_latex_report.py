@@ -161,3 +161,99 @@ def test_abbreviation_matches_a_factor_and_its_negative():
     assert writer.abbreviate(-r**2 - a**2 * sp.cos(th) ** 2) == -sp.Symbol("Sigma")
     # sin^2 = 1 - cos^2 is recognised (common practice).
     assert writer.abbreviate(r**2 + a**2 - a**2 * sp.sin(th) ** 2) == sp.Symbol("Sigma")
+
+
+# The matter, energy conditions, ansatz and geodesic sections ---------------------------------------
+
+NEW_SECTIONS = {
+    "wormhole_passage": ["Matter required by the metric", "Energy conditions", "Geodesic equations"],
+    "closed_static_universe": ["Matter required by the metric", "Energy conditions", "Geodesic equations"],
+    "compact_star_exterior": ["Matter required by the metric", "Energy conditions", "Geodesic equations"],
+    "exterior_from_ansatz": ["Solving the ansatz", "Geodesic equations"],
+}
+
+
+def section_text(tex: str, title: str) -> str:
+    return tex.split(rf"\section{{{title}}}")[1].split(r"\section{")[0]
+
+
+@pytest.mark.parametrize("name", sorted(NEW_SECTIONS))
+def test_new_stages_have_their_own_sections_with_every_step(name):
+    d = derived(name)
+    tex = ReportExporter().export(d)
+    for title in NEW_SECTIONS[name]:
+        assert rf"\section{{{title}}}" in tex
+    # Every step still has its anchor, and no result is printed as a Python value (common practice:
+    # a reader should see typeset mathematics, not dictionaries or sympy's string printer).
+    for number, step in enumerate(d.steps, start=1):
+        assert rf"\hypertarget{{step{number}}}{{}}\textbf{{Step {number}}}" in tex
+    for title in NEW_SECTIONS[name]:
+        body = section_text(tex, title)
+        for repr_mark in ("{'", "Derivative(", "**", "Verdict(", "u\\_r"):
+            assert repr_mark not in body, (title, repr_mark)
+
+
+def test_energy_conditions_are_tables_with_words_for_each_outcome():
+    tex = ReportExporter().export(derived("closed_static_universe"))
+    body = section_text(tex, "Energy conditions")
+    assert body.count(r"\begin{tabular}") == 4
+    # The closed static universe with 0 <= Lambda <= 1 and 1 <= a <= 3 (examples/closed_static_universe.toml):
+    # rho + p_k = 1/(4 pi a^2) > 0 is proven from the signs; rho = (3 - Lambda a^2)/(8 pi a^2) is negative at
+    # a sampled point (a^2 Lambda > 3 is inside the region); rho + sum p = Lambda/(4 pi) has an undeclared sign
+    # and is only sampled (Einstein's static universe, Carroll sec. 8.3, from memory).
+    assert r"\textbf{proven}" in body
+    assert r"\textbf{violated}: at the point" in body
+    assert "evidence, not proof" in body and r"\textbf{not decided}" in body
+    assert r"\textbf{Outcome: violated}" in body and r"\textbf{Outcome: not decided}" in body
+
+
+def test_frame_density_and_orbit_are_typeset():
+    tex = ReportExporter().export(derived("compact_star_exterior"))
+    matter = section_text(tex, "Matter required by the metric")
+    assert r"e_{(r)} = " in matter and r"\partial_{r}" in matter and r"N_{(\theta)} = r^{2}" in matter
+    assert r"\rho = 0" in matter
+    geodesics = section_text(tex, "Geodesic equations")
+    # The orbit of examples/compact_star_exterior.toml: r = 10, u_phi = 3/80, proper time up to 1000.
+    assert r"r = 10" in geodesics and r"u_{\phi} = \frac{3}{80}" in geodesics and "1000" in geodesics
+    assert r"\frac{du_{r}}{d\tau}" in geodesics
+
+
+def test_ansatz_section_shows_reduced_equations_dependence_and_solutions():
+    tex = ReportExporter().export(derived("exterior_from_ansatz"))
+    body = section_text(tex, "Solving the ansatz")
+    assert "Factors removed because they cannot vanish" in body
+    assert r"E_{{\phi}{\phi}} = \sin^{2}{\left(\theta \right)}\," in body  # a duplicate of E_thetatheta
+    assert "follows from" in body and "Independent equations" in body
+    # Birkhoff's theorem (Carroll, sec. 5.2, from memory): the solution is Schwarzschild, here
+    # B = r/(C1 + r) and A = C2 (1 + C1/r) with C1 = -2M.
+    assert r"B = \frac{r}{C_{1} + r}" in body
+    summary = section_text(tex, "Summary")
+    assert "The solution of the ansatz" in summary and "satisfies every field equation" in summary
+
+
+def test_summary_lists_the_new_verdicts_with_their_evidence():
+    tex = ReportExporter().export(derived("wormhole_passage"))
+    summary = section_text(tex, "Summary")
+    for label in ("Trace-free stress-energy", "Perfect fluid at rest in the frame", "Null energy condition",
+                  "Weak energy condition", "Strong energy condition", "Dominant energy condition"):
+        assert rf"\textbf{{{label}}}" in summary
+    # Morris & Thorne 1988, eq. (14) (from memory): rho = -b0^2/(8 pi r^4) < 0 everywhere, so the weak
+    # condition fails for every value of the parameters, not just at a sampled point.
+    assert r"\(\rho \ge 0\) fails everywhere" in summary
+    assert r"\rho = - \frac{b_{0}^{2}}{8 \pi r^{4}}" in summary
+
+
+def test_same_input_gives_identical_tex_with_matter():
+    d1 = derive(load_metric(EXAMPLES / "closed_static_universe.toml"))
+    d2 = derive(load_metric(EXAMPLES / "closed_static_universe.toml"))
+    assert ReportExporter().export(d1) == ReportExporter().export(d2)
+
+
+@needs_tex
+def test_fragment_with_matter_tables_compiles_inside_a_minimal_article():
+    fragment = AppendixExporter().export(derived("wormhole_passage"))
+    document = ("\\documentclass{article}\n\\usepackage{amsmath}\n\\usepackage{hyperref}\n\\begin{document}\n"
+                "\\appendix\n\\input{appendix.tex}\n\\end{document}\n")
+    pdf, log = compile_with_file(document, {"appendix.tex": fragment})
+    assert pdf.startswith(b"%PDF-")
+    assert "Undefined control sequence" not in log

@@ -147,6 +147,34 @@ def inflating_universe(x, p):
     return mpmath.diag([-1, e, e, e])
 
 
+def closed_static_universe(x, p):
+    _t, chi, th, _ph = x
+    a = p["a"]
+    sc, st = mpmath.sin(chi), mpmath.sin(th)
+    return mpmath.diag([-1, a ** 2, a ** 2 * sc ** 2, a ** 2 * sc ** 2 * st ** 2])
+
+
+def wormhole_passage(x, p):
+    _t, r, th, _ph = x
+    b0 = p["b0"]
+    return mpmath.diag([-1, 1 / (1 - b0 ** 2 / r ** 2), r ** 2, r ** 2 * mpmath.sin(th) ** 2])
+
+
+def exterior_from_ansatz_A(t, r, th, ph):
+    """The concrete A(r) used for the free function of exterior_from_ansatz (positive on the box)."""
+    return 1 + r / 3 + r ** 2 / 7
+
+
+def exterior_from_ansatz_B(t, r, th, ph):
+    return 2 + r ** 2 / 5
+
+
+def exterior_from_ansatz(x, p):
+    t, r, th, ph = x
+    return mpmath.diag([-exterior_from_ansatz_A(t, r, th, ph), exterior_from_ansatz_B(t, r, th, ph),
+                        r ** 2, r ** 2 * mpmath.sin(th) ** 2])
+
+
 # name -> metric callable, parameter values, coordinate boxes for the random
 # points, and sympy replacements for free functions (name -> function of the
 # coordinate symbols).  Parameter values respect the declared assumptions
@@ -184,6 +212,18 @@ CASES = {
     "inflating_universe": dict(
         metric=inflating_universe, params={"H": Fraction(3, 5)},
         boxes=[(-1.0, 1.0), (-2.0, 2.0), (-2.0, 2.0), (-2.0, 2.0)]),
+    "closed_static_universe": dict(
+        metric=closed_static_universe, params={"a": Fraction(3, 2)},
+        boxes=[(-1.0, 1.0), (0.3, 2.8), THETA, PHI]),
+    "wormhole_passage": dict(
+        # outside the throat r = b0 = 1.1, where 1 - b0^2/r^2 > 0
+        metric=wormhole_passage, params={"b0": Fraction(11, 10)},
+        boxes=[(-1.0, 1.0), (2.0, 6.0), THETA, PHI]),
+    "exterior_from_ansatz": dict(
+        metric=exterior_from_ansatz, params={},
+        boxes=[(-1.0, 1.0), (1.0, 4.0), THETA, PHI],
+        functions={"A": lambda t, r, th, ph: 1 + r / 3 + r ** 2 / 7,
+                   "B": lambda t, r, th, ph: 2 + r ** 2 / 5}),
 }
 
 
@@ -323,6 +363,9 @@ def _coordinate_names(name):
         "five_dimensional_black_hole": ["t", "r", "chi", "theta", "phi"],
         "twisted_vacuum": ["t", "r", "theta", "phi"],
         "inflating_universe": ["t", "x", "y", "z"],
+        "closed_static_universe": ["t", "chi", "theta", "phi"],
+        "wormhole_passage": ["t", "r", "theta", "phi"],
+        "exterior_from_ansatz": ["t", "r", "theta", "phi"],
     }[name]
 
 
