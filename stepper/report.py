@@ -580,7 +580,7 @@ class _Model:
                    + (" " + escape_text(m.group(2).strip()) if m.group(2) else "") + ": evidence, not proof")
             return "not decided", why, "is not decided: " + why
         if evidence.startswith("it depends on free functions"):
-            why = "it depends on free functions, whose signs are not known"
+            why = "it depends on free functions, and the declared signs do not fix its sign"
             return "not decided", why, "is not decided: " + why
         return "not decided", breakable_text(evidence), "is not decided: " + breakable_text(evidence)
 

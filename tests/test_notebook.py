@@ -210,12 +210,17 @@ def test_every_step_has_a_markdown_and_a_recomputing_code_cell(name):
     d = derived(name)
     nb = nbformat.reads(exported(name), as_version=4)
     for step in d.steps:
-        cells = [c for c in nb.cells if c.metadata.get("stepper", {}).get("step") == step.id]
+        cells = [c for c in nb.cells if c.metadata.get("stepper", {}).get("step") == step.id
+                 and "part" not in c.metadata["stepper"]]
         assert [c.cell_type for c in cells] == ["markdown", "code"], step.id
         assert step.id in cells[0].source
         assert "not recomputed" not in cells[1].source, step.id
+    # An orbit asked for in the metric file gets one more pair of cells, after the geodesic equations.
+    orbit = [c for c in nb.cells if c.metadata.get("stepper", {}).get("part") == "orbit"]
+    asks_for_orbit = d.metric.orbit is not None
+    assert [c.cell_type for c in orbit] == (["markdown", "code"] if asks_for_orbit else [])
     # Only sympy, mpmath (which sympy itself requires) and the standard library's itertools are
-    # imported, never stepper.
+    # imported, never stepper; the orbit cell alone imports numpy and scipy.
     imported = set()
     for cell in code_cells(nb):
         for node in ast.walk(ast.parse(cell.source)):
@@ -223,7 +228,7 @@ def test_every_step_has_a_markdown_and_a_recomputing_code_cell(name):
                 imported |= {alias.name for alias in node.names}
             elif isinstance(node, ast.ImportFrom):
                 imported.add(node.module)
-    assert imported == {"itertools", "sympy", "mpmath"}
+    assert imported == {"itertools", "sympy", "mpmath"} | ({"numpy", "scipy.integrate"} if asks_for_orbit else set())
 
 
 class _TopLevelNames(ast.NodeVisitor):
@@ -266,9 +271,13 @@ def test_top_level_names_cannot_shadow_metric_symbols(name):
     cells = code_cells(nbformat.reads(exported(name), as_version=4))
     metric_names = {s.name for s in d.metric.coordinates + d.metric.parameters} | \
                    {f.func.__name__ for f in d.metric.functions}
+    # Symbols the derivation introduced (integration constants, velocity components u_x, a Lambda used only
+    # by [matter]) are defined once in the setup cell too, each under its own variable.
+    introduced = {variable for variable, _ in _Source(d).others}
     setup = top_level_names(cells[0].source)
     assert not metric_names & _NOTEBOOK_NAMES
-    assert setup - metric_names - _NOTEBOOK_NAMES <= set(sp.__all__)   # the imported sympy names
+    assert not introduced & (_NOTEBOOK_NAMES | metric_names)
+    assert setup - metric_names - introduced - _NOTEBOOK_NAMES <= set(sp.__all__)   # the imported sympy names
     for cell in cells[1:]:
         assert top_level_names(cell.source) <= _NOTEBOOK_NAMES, cell.id
 
