@@ -5,9 +5,9 @@ The field equations E_ij = G_ij + Lambda g_ij = 0 (vacuum, or an Einstein
 space R_ij = 2 Lambda g_ij / (n - 2) when Lambda is not 0) are reduced one
 by one: each component's numerator is factored, and factors that cannot
 vanish (those free of the unknowns, assumed non-zero, powers of an
-unknown that divides the determinant of the non-degenerate metric, and
-exponentials) are dropped.  Components that are a multiple of another by a factor free of the
-unknowns are duplicates.  The contracted Bianchi identity
+unknown that divides the determinant or a diagonal component (numerator or
+denominator) of the non-degenerate metric, and exponentials) are dropped.  Components whose reduced equations are multiples of each other by a factor
+free of the unknowns are duplicates.  The contracted Bianchi identity
 g^ac (d_c E_ab - Gamma^e_ca E_eb - Gamma^e_cb E_ae) = 0, an identity for any
 metric, is a linear relation among the E_ij and their derivatives; where an
 equation enters one component of it only undifferentiated, with a non-zero
@@ -63,7 +63,7 @@ class _Ansatz:
         c, n, A = self.c, self.n, self.A
         lam = A.from_expr(self.lam) if self.lam != 0 else A.zero
         self.E = {(i, j): c.G[i][j] + lam * c.g[i][j] for i in range(n) for j in range(i, n)}
-        det_factors = {f for f, _ in sympy.factor_list(sympy.numer(sympy.together(c.expr(c.det))))[1]}
+        det_factors = self.nonvanishing_unknowns()
         self.det_factors = det_factors
         self.reduced, dropped, self.duplicates, zero = {}, {}, {}, []
         representatives: list[tuple[int, int]] = []
@@ -71,14 +71,15 @@ class _Ansatz:
             if c.is_zero(element):
                 zero.append(c.key(*ij))
                 continue
+            reduced, removed = self.reduce(c.expr(element), det_factors)
             for rep in representatives:
-                ratio = element / self.E[rep]
-                if not self.has_unknowns(c.expr(ratio)):
-                    self.duplicates[ij] = (rep, ratio)
+                # the same equation once the factors that cannot vanish are removed
+                if not self.has_unknowns(sympy.cancel(reduced / self.reduced[rep])):
+                    self.duplicates[ij] = (rep, element / self.E[rep])
                     break
             else:
                 representatives.append(ij)
-                self.reduced[ij], dropped[ij] = self.reduce(c.expr(element), det_factors)
+                self.reduced[ij], dropped[ij] = reduced, removed
         self.order = representatives
         eqs = {c.key(*ij): self.reduced[ij] for ij in representatives}
         c.results["ansatz"] = {"equations": eqs}
@@ -94,12 +95,24 @@ class _Ansatz:
         c.record(id="ansatz/equations", kind="ansatz",
                  annotation=f"Field equations E_ij = G_ij + Lambda g_ij = 0{lam_words} for the unknowns "
                             f"{', '.join(str(f) for f in self.unknowns)}: each listed component's numerator, with "
-                            "the factors that cannot vanish removed; duplicates (a multiple of another component "
-                            "by a factor free of the unknowns) and identically vanishing components are named.",
+                            "the factors that cannot vanish removed; duplicates (once reduced, a multiple of another "
+                            "equation by a factor free of the unknowns) and identically vanishing components are named.",
                  formula=FORMULAS["equations"],
                  uses=("einstein", "metric") + tuple(f"einstein/{c.key(*ij)}" for ij in self.E
                                                      if f"einstein/{c.key(*ij)}" in c.tracer),
                  result=eqs, params=params)
+
+    def nonvanishing_unknowns(self) -> set:
+        """Factors of the determinant and of the diagonal components (numerators and denominators):
+        none can vanish identically in a non-degenerate metric with finite components."""
+        c = self.c
+        found = set()
+        sources = [c.expr(c.det)] + [c.expr(c.g[i][i]) for i in range(self.n) if not c.is_zero(c.g[i][i])]
+        for expr in sources:
+            numerator, denominator = sympy.fraction(sympy.together(expr))
+            for part in (numerator, denominator):
+                found |= {f for f, _ in sympy.factor_list(part)[1]}
+        return found
 
     def reduce(self, expr: sympy.Expr, det_factors: set) -> tuple[sympy.Expr, list]:
         numerator = sympy.numer(sympy.together(expr))

@@ -447,7 +447,8 @@ class Auditor:
         names = self.m.names
         a = claim.component
         gamma = self.d.results.get("christoffel", {})
-        u = {x: sympy.Symbol(f"u_{x}", real=True) for x in names}
+        from .geodesics import velocity_symbols
+        u = dict(zip(names, velocity_symbols(self.m)))
         once = sympy.Integer(0)
         for i, b in enumerate(names):
             for c in names[i:]:

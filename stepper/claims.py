@@ -109,7 +109,7 @@ def metric_vocabulary(metric: Metric) -> Vocabulary:
 def velocity_symbols(metric: Metric) -> dict[str, sympy.Symbol]:
     """u_x standing for dx/dtau, as the geodesic equations write them."""
     from .geodesics import velocity_symbols as symbols_for
-    return {s.name: s for s in symbols_for(metric.coordinates)}
+    return {s.name: s for s in symbols_for(metric)}
 
 
 def constant_symbols(metric: Metric, names: tuple[str, ...] = ()) -> dict[str, sympy.Symbol]:

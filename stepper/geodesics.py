@@ -6,7 +6,7 @@ parameter for a null one)::
     dx^a/dtau = u^a,    du^a/dtau = -Gamma^a_bc u^b u^c.
 
 The velocity components are the symbols ``u_<coordinate>`` (``u_r`` for
-dr/dtau).  The orbit request, when given, is recorded with the equations;
+dr/dtau; ``uu_r`` if the metric already uses the name ``u_r``).  The orbit request, when given, is recorded with the equations;
 the notebook integrates it with scipy and checks that g_ab u^a u^b stays
 constant along it.
 """
@@ -21,21 +21,28 @@ from .metric import OrbitRequest
 FORMULA = (r"\frac{dx^a}{d\tau} = u^a,\qquad \frac{du^a}{d\tau} = -\Gamma^a_{bc}\, u^b u^c")
 
 
-def velocity_symbols(coordinates) -> list[sympy.Symbol]:
-    """The symbols u_x standing for dx/dtau."""
-    return [sympy.Symbol(f"u_{x.name}", real=True) for x in coordinates]
+def velocity_symbols(metric) -> list[sympy.Symbol]:
+    """The symbols u_x standing for dx/dtau, one per coordinate; a name the metric already uses
+    gets more u's in front (uu_x) so that the two never mix."""
+    used = {s.name for s in metric.coordinates} | {s.name for s in metric.parameters} \
+        | {s.name for s in metric.extra_symbols} | {f.func.__name__ for f in metric.functions} \
+        | {name for name, _ in metric.abbreviations}
+    out = []
+    for x in metric.coordinates:
+        name = f"u_{x.name}"
+        while name in used:
+            name = "u" + name
+        used.add(name)
+        out.append(sympy.Symbol(name, real=True))
+    return out
 
 
 def record_geodesics(chain, orbit: OrbitRequest | None) -> None:
     """Record the geodesic equations (and the orbit to integrate, if one was asked for)."""
     n, x = chain.n, chain.x
-    u = velocity_symbols(x)
-    taken = {s.name for s in chain.metric.parameters} | {c.name for c in x}
-    clash = [s.name for s in u if s.name in taken]
-    if clash:
-        note = f"; the name {clash[0]} is also a declared symbol, so read it here as the velocity component"
-    else:
-        note = ""
+    u = velocity_symbols(chain.metric)
+    renamed = [f"{s.name} for d{c.name}/dtau" for s, c in zip(u, x) if s.name != f"u_{c.name}"]
+    note = f" (the metric already uses a name u_x, so the velocity is written {', '.join(renamed)})" if renamed else ""
     acceleration = {}
     for a in range(n):
         total = sympy.Integer(0)

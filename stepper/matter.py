@@ -458,7 +458,8 @@ class _Matter:
             first_failure = first_undecided = ""
             for label, element in inequalities[key]:
                 holds, evidence = decider.decide(label, element)
-                rows[label] = {"value": self.physical(element), "holds": holds, "evidence": evidence}
+                rows[label] = {"value": self.physical(element), "holds": holds, "evidence": evidence,
+                               "method": _method(holds, evidence)}
                 if holds is False and not first_failure:
                     first_failure = f"{label} >= 0 fails: {evidence}"
                 if holds is None and not first_undecided:
@@ -481,6 +482,19 @@ class _Matter:
                      params={"inequalities": rows,
                              "region": {s.name: [lo, hi] for s, lo, hi in self.request.region}})
         c.results["energy_conditions"] = table
+
+
+def _method(holds: bool | None, evidence: str) -> str:
+    """How an inequality was decided, in one word for programs reading the trace."""
+    if evidence == "it is identically 0":
+        return "identically zero"
+    if evidence.startswith(("non-negative for all values", "negative for all values")):
+        return "declared signs"
+    if holds is False:
+        return "exact point"
+    if " exact points sampled " in evidence:
+        return "sampled"
+    return "undecided"
 
 
 def _inequality_words(key: str, n: int) -> str:

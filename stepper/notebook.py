@@ -1018,12 +1018,14 @@ def involves_unknowns(expr):
 
 def cannot_vanish(factor):
     """Whether a factor that involves the unknowns cannot vanish: an unknown function that divides the
-    numerator of the recorded determinant (the metric is non-degenerate), or an exponential (of a real
-    quantity)."""
+    numerator or denominator of the recorded determinant or of a diagonal metric component (the metric is
+    non-degenerate and finite), or an exponential (of a real quantity)."""
     if isinstance(factor, sp.exp) or (factor.is_Pow and isinstance(factor.base, sp.exp)):
         return True
-    numerator = sp.numer(sp.together(metric_determinant))
-    return factor in ansatz_unknowns and factor in [f for f, _ in sp.factor_list(numerator)[1]]
+    sources = [metric_determinant] + [component(metric, x, x) for x in index_names]
+    divisors = [f for source in sources if not vanishes(source)
+                for part in sp.fraction(sp.together(source)) for f, _ in sp.factor_list(part)[1]]
+    return factor in ansatz_unknowns and factor in divisors
 
 
 def check_nonzero_multiple(step, recorded, expression, part):
@@ -1049,8 +1051,11 @@ def check_ansatz_equations(step, recorded, zero):
     for key, equation in recorded.items():
         check_nonzero_multiple(step, equation, sp.numer(sp.together(field_equation(*key))), part=f"E_{key}")
     for key, (representative, factor) in ansatz_duplicates.items():
-        if involves_unknowns(factor) or vanishes(factor):
-            raise AssertionError(f"step {step}: the factor of E_{key} must be free of the unknowns and not zero")
+        if vanishes(factor) or any(involves_unknowns(f) and not cannot_vanish(f)
+                                   for part in sp.fraction(sp.factor(sp.sympify(factor)))
+                                   for f, _ in sp.factor_list(part)[1]):
+            raise AssertionError(f"step {step}: the factor of E_{key} must be a product of factors that cannot "
+                                 "vanish")
         check(step, factor * field_equation(*representative), field_equation(*key), part=f"E_{key} as a duplicate")
     for key in zero:
         check(step, 0, field_equation(*key), part=f"E_{key}")
