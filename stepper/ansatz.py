@@ -5,8 +5,9 @@ The field equations E_ij = G_ij + Lambda g_ij = 0 (vacuum, or an Einstein
 space R_ij = 2 Lambda g_ij / (n - 2) when Lambda is not 0) are reduced one
 by one: each component's numerator is factored, and factors that cannot
 vanish (those free of the unknowns, assumed non-zero, powers of an
-unknown that divides the determinant or a diagonal component (numerator or
-denominator) of the non-degenerate metric, and exponentials) are dropped.  Components whose reduced equations are multiples of each other by a factor
+unknown that divides the determinant or, for a diagonal metric, a diagonal
+component (numerator or denominator) of the non-degenerate metric, and
+exponentials) are dropped.  Components whose reduced equations are multiples of each other by a factor
 free of the unknowns are duplicates.  The contracted Bianchi identity
 g^ac (d_c E_ab - Gamma^e_ca E_eb - Gamma^e_cb E_ae) = 0, an identity for any
 metric, is a linear relation among the E_ij and their derivatives; where an
@@ -103,11 +104,13 @@ class _Ansatz:
                  result=eqs, params=params)
 
     def nonvanishing_unknowns(self) -> set:
-        """Factors of the determinant and of the diagonal components (numerators and denominators):
-        none can vanish identically in a non-degenerate metric with finite components."""
+        """Factors of the determinant and, for a diagonal metric, of the diagonal components (numerators
+        and denominators): none can vanish identically in a non-degenerate metric with finite components."""
         c = self.c
         found = set()
-        sources = [c.expr(c.det)] + [c.expr(c.g[i][i]) for i in range(self.n) if not c.is_zero(c.g[i][i])]
+        diagonal = all(len(block) == 1 for block in c.blocks)
+        sources = [c.expr(c.det)] + ([c.expr(c.g[i][i]) for i in range(self.n) if not c.is_zero(c.g[i][i])]
+                                     if diagonal else [])
         for expr in sources:
             numerator, denominator = sympy.fraction(sympy.together(expr))
             for part in (numerator, denominator):
@@ -219,19 +222,19 @@ class _Ansatz:
 
     # 3. solving ------------------------------------------------------------------
     def fresh_constants(self, solution: sympy.Expr) -> sympy.Expr:
-        taken = {s.name for s in self.c.metric.parameters} | {s.name for s in self.lam.free_symbols} \
-            | {x.name for x in self.c.x} | {s.name for s in self.constants}
+        """Name dsolve's integration constants C1, C2, ... in order, skipping names already in use."""
+        known = set(self.c.metric.parameters) | set(self.c.x) | set(self.lam.free_symbols) | set(self.constants)
+        taken = {s.name for s in known} | {f.func.__name__ for f in self.c.metric.functions} \
+            | {name for name, _ in self.c.metric.abbreviations}
         mapping = {}
-        for s in sorted(solution.free_symbols, key=lambda s: s.name):
-            if s.name.startswith("C") and s.name[1:].isdigit() and s not in self.constants and \
-                    s.name not in {p.name for p in self.c.metric.parameters}:
-                k = 1
-                while f"C{k}" in taken:
-                    k += 1
-                new = sympy.Symbol(f"C{k}", real=True)
-                taken.add(new.name)
-                self.constants.append(new)
-                mapping[s] = new
+        for s in sorted(solution.free_symbols - known, key=lambda s: s.name):
+            k = 1
+            while f"C{k}" in taken:
+                k += 1
+            new = sympy.Symbol(f"C{k}", real=True)
+            taken.add(new.name)
+            self.constants.append(new)
+            mapping[s] = new
         return solution.xreplace(mapping)
 
     def solve(self) -> None:
@@ -241,6 +244,7 @@ class _Ansatz:
         pending = {ij: self.reduced[ij] for ij in self.independent}
         last = "ansatz/dependence"
         number = 0
+        branches = 0
         failure = ""
         while len(solved) < len(self.unknowns):
             current = {}
@@ -271,11 +275,17 @@ class _Ansatz:
             if not explicit:
                 explicit = _solve_implicit([s for s in solutions if not (s.lhs == f and not s.rhs.has(f))], f)
                 how = "dsolve, then solve() on its implicit solution"
+            complex_branches = [e for e in explicit if e.has(sympy.I)]
+            explicit = [e for e in explicit if not e.has(sympy.I)]
             if not explicit:
-                failure = f"sympy's dsolve gave no explicit non-zero solution of E_{c.key(*ij)} for {f}"
+                failure = (f"sympy's dsolve gave no explicit real non-zero solution of E_{c.key(*ij)} for {f}"
+                           + (f" (its {len(complex_branches)} branch(es) contain the imaginary unit)"
+                              if complex_branches else ""))
                 break
+            c.check_time(f"solving the ansatz ({len(solved) + 1} of {len(self.unknowns)} unknowns)")
             value = printer_stable(self.fresh_constants(explicit[0]))
             solved[f] = value
+            branches += len(explicit) - 1
             number += 1
             step_id = f"ansatz/solve/{number}"
             c.record(id=step_id, kind="ode solution",
@@ -289,6 +299,13 @@ class _Ansatz:
             last = step_id
         c.results["ansatz"]["solution"] = {str(f): v for f, v in solved.items()}
         c.results["ansatz"]["constants"] = [s.name for s in self.constants]
+        c.results["ansatz"]["other_branches"] = branches
+        if not self.reduced:
+            statement = "Every field equation E_ij vanishes identically: any choice of the unknowns is a solution."
+            c.results["ansatz"]["check"] = {"holds": True, "evidence": statement}
+            c.record(id="ansatz/solution", kind="ansatz", annotation=statement, formula=FORMULAS["solution"],
+                     uses=(last,), result=Verdict("The ansatz equations are solved.", True, statement))
+            return
         if failure:
             c.results["ansatz"]["unsolved"] = failure
         if not solved:
@@ -318,26 +335,35 @@ class _Ansatz:
         entries = list(matrix) + list(self.constants)
         check = choose_arithmetic(c.x, entries, tuple(c.metric.parameters) + tuple(self.constants)
                                   + tuple(self.lam.free_symbols))
-        for ij, element in self.E.items():
-            value = c.expr(element).subs(solved).doit()
+        keys = list(self.E)
+        for ij in keys:
+            value = c.expr(self.E[ij]).subs(solved).doit()
             residues.append(check.from_expr(value))
         undecided = []
         holds = True
-        for r in residues:
+        offending = ""
+        for ij, r in zip(keys, residues):
             test = check.zero_test(r)
             if test.vanishes is False:
                 holds = False
+                offending = f"E_{c.key(*ij)} = {check.to_expr(r)} after substitution"
                 break
             if test.vanishes is None:
-                undecided.append(test.evidence)
+                undecided.append(f"E_{c.key(*ij)}: {test.evidence}")
         if holds and undecided:
             holds = None
         how = {True: f"all {len(residues)} components E_ij vanish after substitution ("
                      + ("canonical rational form 0" if check.name == "field" else "sympy reduces them to 0") + ")",
-               False: "a component E_ij does not vanish after substitution",
+               False: f"{offending}, which is not zero",
                None: f"not proven symbolically: {undecided[0] if undecided else ''}"}[holds]
-        if failure and holds:
-            how += f"; the unknowns not solved remain free ({failure})"
+        if failure:
+            free = ", ".join(str(f) for f in self.unknowns if f not in solved)
+            if holds is True:
+                how += f"; the unknowns {free} remain free ({failure})"
+            else:
+                holds = None
+                how = (f"not decided: only part of the system is solved ({failure}), so the unknowns {free} "
+                       f"remain free; with them free, {how}")
         verdict = Verdict("The solution satisfies every field equation E_ij = 0.", holds, how)
         c.results["ansatz"]["check"] = {"holds": holds, "evidence": how}
         c.record(id="ansatz/check", kind="check",
@@ -360,7 +386,8 @@ class _Ansatz:
             scale, rest = entry.as_independent(C, as_Add=False)
             if rest.free_symbols == {C}:
                 out[C.name] = (f"{x[i].name}: {x[i].name} -> {x[i].name} / sqrt(|{rest}|) sets it to +1 or -1, "
-                              "the sign being fixed by the signature")
+                              "the sign being fixed by the signature (a local change of coordinates: if "
+                              f"{x[i].name} is periodic, its period changes)")
         return out
 
 

@@ -128,10 +128,13 @@ def _short(text: str, limit: int = 110) -> str:
 def _matter_lines(results: dict) -> list[str]:
     """Summary lines for the energy density and pressures, energy conditions and the ansatz."""
     lines = []
-    if "energy_density" in results:
+    if "energy_density" in results and results.get("frame_diagonal", True):
         lines.append(f"  energy density rho = {results['energy_density']}")
         for direction, p in results.get("pressures", {}).items():
             lines.append(f"  pressure along {direction} = {p}")
+    elif "energy_density" in results:
+        lines.append("  the stress-energy tensor is not diagonal in the frame: its diagonal entries are not the "
+                     "energy density and principal pressures")
     frame = results.get("frame")
     if frame and not frame.get("built"):
         lines.append(f"  frame: {frame.get('reason')}")
@@ -142,11 +145,15 @@ def _matter_lines(results: dict) -> list[str]:
     if ansatz:
         for unknown, value in ansatz.get("solution", {}).items():
             lines.append(f"  ansatz solution {unknown} = {value}")
+        if ansatz.get("other_branches"):
+            lines.append(f"  (dsolve also gave {ansatz['other_branches']} other branch(es), not followed; "
+                         "see the ansatz/solve steps)")
         if "unsolved" in ansatz:
             lines.append(f"  ansatz not fully solved: {ansatz['unsolved']}")
         if "check" in ansatz:
             word = {True: "holds", False: "FAILS", None: "not decided"}[ansatz["check"]["holds"]]
-            lines.append(f"  solution substituted into every field equation: {word}")
+            lines.append(f"  solution substituted into every field equation: {word} "
+                         f"({_short(ansatz['check']['evidence'])})")
     return lines
 
 

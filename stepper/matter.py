@@ -121,6 +121,9 @@ class _Matter:
         r = self.request
         units = ("geometric units, G = c = 1, so kappa = 8 pi" if r.units == "geometric"
                  else "physical units: G and c kept as symbols, kappa = 8 pi G / c^4")
+        if self.n == 2:
+            units += ("; in two dimensions G_ij vanishes identically, so every metric requires "
+                      "T_ij = Lambda g_ij / kappa")
         result = {"kappa": self.kappa, "cosmological_constant": self.lam}
         self.c.results["field_equations"] = {**result, "units": r.units}
         self.c.record(id="field_equations", kind="field equations",
@@ -236,6 +239,8 @@ class _Matter:
             vectors.append(w)
             norms.append(norm)
             labels.append(k)
+        if not reason:
+            reason, self.norm_signs = self.norm_signs_or_reason(norms, labels)
         self.frame_built = not reason
         c.results["frame"] = {"built": not reason}
         if reason:
@@ -256,10 +261,16 @@ class _Matter:
         diagonal = all(len(b) == 1 for b in c.blocks)
         how = ("the metric is diagonal, so each frame vector is a coordinate direction divided by its length"
                if diagonal else "Gram-Schmidt within the blocks of the metric")
+        undecided = [x for x, word in self.norm_signs.items() if word != "positive"]
+        where = ("every squared norm N is positive for all values the declared signs allow"
+                 if not undecided else
+                 f"the declared signs do not fix the sign of N for {', '.join(undecided)}: the frame exists "
+                 "where every N > 0, and every statement below holds there")
+        c.results["frame"]["where"] = where
         c.record(id="frame", kind="frame",
                  annotation=f"Orthonormal frame of the observers normal to {time_name} = const ({how}). "
                             f"Frame vector e_(x) starts from the coordinate direction x; "
-                            "its squared norm N is listed, and the frame exists where every N > 0.",
+                            f"its squared norm N is listed; {where}.",
                  formula=FORMULAS["frame"], uses=("inverse_metric", "metric"),
                  result={"vectors": frame_result, "squared_norms": norms_result},
                  params={"time": time_name, "order": [self.name(k) for k in labels],
@@ -277,6 +288,28 @@ class _Matter:
                  result=c.identity_verdict("g(e_a, e_b) = eta_ab", residues,
                                            "g(w_a, w_b) - eta_ab N_a for the unnormalised vectors"))
         return True
+
+    def norm_signs_or_reason(self, norms: list, labels: list) -> tuple[str, dict]:
+        """The sign of each squared norm from the declared signs; a reason when one is never positive."""
+        signs = {}
+        time_name = self.name(self.t)
+        for norm, k in zip(norms, labels):
+            expr = sympy.factor(self.c.expr(norm))
+            numerator, denominator = sympy.fraction(expr)
+            product = _real_functions(numerator * denominator)
+            if product.is_positive:
+                signs[self.name(k)] = "positive"
+            elif product.is_nonpositive:
+                what = (f"-g^{time_name}{time_name} = {expr}" if k == self.t
+                        else f"the squared norm {expr} of the direction {self.name(k)}")
+                consequence = (f"{time_name} = const is not a spacelike hypersurface" if k == self.t
+                               else f"the direction {self.name(k)} is not spacelike within {time_name} = const")
+                return (f"no frame is built: {what} is never positive for the declared signs, so {consequence} "
+                        "(stepper's frame needs the signature (-, +, ..., +) with the time coordinate timelike; "
+                        "set [matter] time, or write the metric with that signature)"), {}
+            else:
+                signs[self.name(k)] = "undecided"
+        return "", signs
 
     def frame_value(self, numerator, frame_indices: tuple[int, ...]) -> tuple[object, sympy.Expr]:
         """(rational part, odd product of norms): the frame component is rational / sqrt(odd)."""
@@ -383,6 +416,7 @@ class _Matter:
                     "principal pressures measured by the frame's observers.")
         c.results["energy_density"] = result["energy_density"]
         c.results["pressures"] = result["pressures"]
+        c.results["frame_diagonal"] = result["diagonal"]
         c.record(id="density_and_pressures", kind="matter", annotation=note,
                  formula=FORMULAS["density_and_pressures"], uses=("frame_stress_energy",), result=result)
 
@@ -417,12 +451,15 @@ class _Matter:
                  uses=("density_and_pressures",) if self.frame_built else ("frame",), result=verdict)
 
     def residue_verdict(self, statement: str, residues: dict) -> Verdict:
+        undecided = ""
         for key, element in residues.items():
             test = self.A.zero_test(element)
             if test.vanishes is False:
                 return Verdict(statement, False, f"{key} is not zero")
-            if test.vanishes is None:
-                return Verdict(statement, None, f"{key}: {test.evidence}")
+            if test.vanishes is None and not undecided:
+                undecided = f"{key}: {test.evidence}"
+        if undecided:
+            return Verdict(statement, None, undecided)
         return Verdict(statement, True, f"each of the {len(residues)} conditions checked vanishes exactly")
 
     def energy_conditions(self) -> None:
@@ -447,12 +484,21 @@ class _Matter:
         inequalities = {
             "null": [(f"rho + p_({l})", rho + pk) for l, pk in zip(labels, p)],
             "weak": [("rho", rho)] + [(f"rho + p_({l})", rho + pk) for l, pk in zip(labels, p)],
-            "strong": [(f"rho + p_({l})", rho + pk) for l, pk in zip(labels, p)]
+            "strong": [] if n == 2 else [(f"rho + p_({l})", rho + pk) for l, pk in zip(labels, p)]
             + [(f"{n - 3}*rho + sum p" if n != 4 else "rho + sum p", rho * (n - 3) + sum(p, self.A.zero))],
             "dominant": [("rho", rho)] + [(f"rho - p_({l})", rho - pk) for l, pk in zip(labels, p)]
             + [(f"rho + p_({l})", rho + pk) for l, pk in zip(labels, p)],
         }
         for key, title in names.items():
+            if not inequalities[key]:
+                why = ("not decided: the strong condition (T_ab - T g_ab/(n-2)) t^a t^b >= 0 is not defined "
+                       "in two dimensions")
+                verdict = Verdict(f"{title}.", None, why)
+                table[key] = {"holds": None, "evidence": why, "inequalities": {}}
+                c.record(id=f"energy_conditions/{key}", kind="energy condition", annotation=verdict.statement,
+                         formula=FORMULAS[key], uses=("density_and_pressures",), result=verdict,
+                         params={"inequalities": {}})
+                continue
             rows = {}
             outcome: bool | None = True
             first_failure = first_undecided = ""
@@ -598,10 +644,13 @@ class _Decider:
         return sympy.lambdify(self.symbols, expr, modules="mpmath")
 
     def _sample(self, expr: sympy.Expr) -> tuple[bool | None, str]:
-        missing = sorted(s.name for s in expr.free_symbols if s not in self.region)
+        needed = set(expr.free_symbols)
+        for N in self.m.N:
+            needed |= self.m.c.expr(N).free_symbols
+        missing = sorted(s.name for s in needed if s not in self.region)
         if missing:
             return None, (f"the declared signs do not settle its sign, and [matter.region] gives no range for "
-                          f"{', '.join(missing)} to sample")
+                          f"{', '.join(missing)} to sample it (with the frame's squared norms) at")
         points = self.points()
         if not points:
             return None, "no point of the region lies where the frame exists (every N > 0)"
@@ -609,6 +658,7 @@ class _Decider:
         used = 0
         with mpmath.workdps(SAMPLE_DIGITS):
             for point, values in points:
+                self.m.c.check_time("energy conditions, sampling the region")
                 approximate = _real_value(evaluate, values)
                 if approximate is None:
                     continue
@@ -619,8 +669,11 @@ class _Decider:
                 if value.is_number and value.is_negative:
                     where = ", ".join(f"{s} = {v}" for s, v in sorted(point.items(), key=lambda kv: kv[0].name)
                                       if s in expr.free_symbols)
-                    return False, (f"at the point {where} of the region it equals {_short(value / self.m.kappa)} "
-                                   "< 0 (exact value)")
+                    shown = value / self.m.kappa
+                    exact = len(str(shown)) <= 60
+                    return False, (f"at the point {where} of the region it equals "
+                                   f"{shown if exact else sympy.N(shown, 6)} < 0 "
+                                   + ("(exact value)" if exact else "(to 6 digits; its exact value is negative)"))
         ranges = ", ".join(f"{s} in [{lo}, {hi}]" for s, (lo, hi) in sorted(self.region.items(), key=lambda kv: kv[0].name))
         return None, (f"the declared signs do not settle its sign; it is >= 0 at all {used} exact points sampled "
                       f"from {ranges} where the frame exists (evaluated to {SAMPLE_DIGITS} digits): "
@@ -649,8 +702,3 @@ def _real_functions(expr: sympy.Expr) -> sympy.Expr:
     expr = expr.xreplace(mapping)
     functions = sorted(expr.atoms(sympy.core.function.AppliedUndef), key=sympy.default_sort_key)
     return expr.xreplace({f: sympy.Dummy(f"f{k}", real=True) for k, f in enumerate(functions)})
-
-
-def _short(value: sympy.Expr) -> str:
-    exact = str(value)
-    return exact if len(exact) <= 40 else f"{sympy.N(value, 6)}"

@@ -226,8 +226,9 @@ def _constant_expression(table: dict, key: str, symbols: dict, where: str, coord
 
 
 def _coordinate(table: dict, key: str, coordinates, where: str) -> sympy.Symbol:
+    """The named coordinate; by default the one called t, else the first."""
     names = [c.name for c in coordinates]
-    name = table.get(key, names[0])
+    name = table.get(key, "t" if "t" in names else names[0])
     if not isinstance(name, str) or name not in names:
         raise InputError(f"'{where}.{key}' must be one of the coordinates ({', '.join(names)})")
     return coordinates[names.index(name)]
@@ -266,15 +267,25 @@ def _matter_request(table: dict, coordinates, symbols: dict, functions: dict) ->
                          cosmological_constant=lam, newton=newton, light=light, region=tuple(region))
 
 
+#: Region bounds and orbit values: a rational or a rational multiple of pi, at most this large.
+NUMBER_MAGNITUDE_LIMIT = 10**6
+NUMBER_DIGITS_LIMIT = 30
+
+
 def _number(text, symbols: dict, where: str) -> sympy.Expr:
-    """An exact real number such as "3", "1/2" or "pi/2" (no symbols)."""
+    """An exact real number: a rational such as "3", "-1/2", "0.25", or a rational multiple of pi
+    such as "pi/2", at most a million in size."""
     if isinstance(text, (int, float)) and not isinstance(text, bool):
         text = repr(text)
     if not isinstance(text, str):
         raise InputError(f"{where} must be a number in quotes, e.g. \"1/2\"")
     value = parse_expression(text, Vocabulary({}, {}, {}), where)
-    if not value.is_real or not value.is_number:
-        raise InputError(f"{where} must be a real number, not {text!r}")
+    coefficient, rest = value.as_coeff_Mul()
+    if not coefficient.is_Rational or rest not in (sympy.Integer(1), sympy.pi):
+        raise InputError(f"{where} must be a rational number or a rational multiple of pi, not {text!r}")
+    if len(str(abs(coefficient.p))) > NUMBER_DIGITS_LIMIT or len(str(coefficient.q)) > NUMBER_DIGITS_LIMIT \
+            or abs(coefficient) * (4 if rest == sympy.pi else 1) > NUMBER_MAGNITUDE_LIMIT:
+        raise InputError(f"{where} is too large: at most a million in size and {NUMBER_DIGITS_LIMIT} digits")
     return value
 
 

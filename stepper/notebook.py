@@ -1018,11 +1018,12 @@ def involves_unknowns(expr):
 
 def cannot_vanish(factor):
     """Whether a factor that involves the unknowns cannot vanish: an unknown function that divides the
-    numerator or denominator of the recorded determinant or of a diagonal metric component (the metric is
-    non-degenerate and finite), or an exponential (of a real quantity)."""
+    numerator or denominator of the recorded determinant or, for a diagonal metric, of a diagonal component
+    (the metric is non-degenerate and finite), or an exponential (of a real quantity)."""
     if isinstance(factor, sp.exp) or (factor.is_Pow and isinstance(factor.base, sp.exp)):
         return True
-    sources = [metric_determinant] + [component(metric, x, x) for x in index_names]
+    diagonal = all(vanishes(component(metric, i, j)) for i, j in index_pairs(strict=True))
+    sources = [metric_determinant] + ([component(metric, x, x) for x in index_names] if diagonal else [])
     divisors = [f for source in sources if not vanishes(source)
                 for part in sp.fraction(sp.together(source)) for f, _ in sp.factor_list(part)[1]]
     return factor in ansatz_unknowns and factor in divisors

@@ -855,6 +855,9 @@ class _Model:
                 "tolerance": escape_text(numeric["tolerance"]), "link": self.link("numeric_verification")}
         matter_intro = ("The matter the metric requires, a perfect fluid at rest in the frame:" if fluid else
                         "The matter the metric requires, as measured in the orthonormal frame:")
+        if not fluid and not r.get("frame_diagonal", True):
+            matter_intro = ("The stress-energy tensor is not diagonal in the orthonormal frame, so its diagonal "
+                            "entries below are not the energy density and principal pressures:")
         if "stress_energy" in r and not r["stress_energy"]:
             matter = [self.line("T_{ij} = 0")]
             matter_intro = "The metric requires no matter: every component of the stress-energy tensor vanishes (vacuum)."
