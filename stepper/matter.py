@@ -347,19 +347,23 @@ class _Matter:
             total = total + term
         return total
 
-    def frame_stress_energy(self) -> None:
-        c, n = self.c, self.n
-        self.F = {}
-        comps = {}
+    def symmetric_frame_components(self, tensor, scale: sympy.Expr = sympy.Integer(1)) -> tuple[dict, dict]:
+        """X_(a)(b) = e_(a)^i e_(b)^j X_ij for a symmetric tensor: the unnormalised contractions by (a, b),
+        and the non-zero components for display (divided by ``scale``) keyed by frame index names."""
+        n = self.n
+        contractions, shown = {}, {}
         for a in range(n):
             for b in range(a, n):
-                value = self.contract(lambda i, j: self.S[i][j], (a, b))
-                self.F[a, b] = self.F[b, a] = value
-                shown = self.frame_expr(value, (a, b), self.kappa)
-                if shown != 0:
-                    comps[self.frame_key(a, b)] = shown
-                    if a != b:
-                        comps[self.frame_key(b, a)] = shown
+                value = self.contract(tensor, (a, b))
+                contractions[a, b] = contractions[b, a] = value
+                display = self.frame_expr(value, (a, b), scale)
+                if display != 0:
+                    shown[self.frame_key(a, b)] = shown[self.frame_key(b, a)] = display
+        return contractions, shown
+
+    def frame_stress_energy(self) -> None:
+        c = self.c
+        self.F, comps = self.symmetric_frame_components(lambda i, j: self.S[i][j], self.kappa)
         c.results["frame_stress_energy"] = comps
         c.record(id="frame_stress_energy", kind="frame components",
                  annotation="Stress-energy tensor in the orthonormal frame (components not listed vanish).",
@@ -370,14 +374,7 @@ class _Matter:
 
     def frame_curvature(self) -> None:
         c, n = self.c, self.n
-        ricci = {}
-        for a in range(n):
-            for b in range(a, n):
-                shown = self.frame_expr(self.contract(lambda i, j: c.ric[i][j], (a, b)), (a, b))
-                if shown != 0:
-                    ricci[self.frame_key(a, b)] = shown
-                    if a != b:
-                        ricci[self.frame_key(b, a)] = shown
+        _, ricci = self.symmetric_frame_components(lambda i, j: c.ric[i][j])
         c.results["frame_ricci"] = ricci
         c.record(id="frame_ricci", kind="frame components",
                  annotation="Ricci tensor in the orthonormal frame (components not listed vanish).",
