@@ -1835,6 +1835,13 @@ print("verdict/perfect_fluid: undecided for lack of a frame, as recorded")"""
         if name not in ("null", "weak", "strong", "dominant"):
             raise NotebookError(f"unknown energy condition {name!r}")
         rows = step.params.get("inequalities", {})
+        if not rows and name == "strong" and len(self.s.coordinate_names) == 2:
+            code = f"""{self._holds(step)}
+# The strong condition divides by n - 2: it is not defined in two dimensions, so it must be undecided.
+if recorded_holds is not None or dimension != 2:
+    raise AssertionError("step {step.id}: in two dimensions the strong condition should be undecided")
+print("{step.id}: undecided in two dimensions, as recorded")"""
+            return "energy_condition_undecided", code
         if not rows:
             code = f"""{self._holds(step)}
 # No inequality was decided: there is no frame, or T is not diagonal in it.
@@ -1951,6 +1958,16 @@ ansatz_solution[recorded["unknown"]] = recorded["solution"]
         return "ansatz_solve", code
 
     def ansatz_solution(self, step):
+        if isinstance(step.result, Verdict) and step.result.holds is True:
+            code = f"""{self._holds(step)}
+# Recorded: every field equation vanishes identically, so any choice of the unknowns solves them.
+if not recorded_holds or ansatz_solution:
+    raise AssertionError("step ansatz/solution: recorded as solved by anything, but solutions were recorded")
+for i, j in index_pairs():
+    if not vanishes(sp.numer(sp.together(field_equation(i, j)))):
+        raise AssertionError(f"step ansatz/solution: E_{{i}},{{j}} does not vanish identically")
+print("ansatz/solution: every E_ij vanishes identically, as recorded")"""
+            return "ansatz_identically_solved", code
         if isinstance(step.result, Verdict):
             code = f"""{self._holds(step)}
 # Nothing was solved: there is no solution to put in.

@@ -353,3 +353,27 @@ def test_velocity_symbols_must_not_be_metric_symbols(tmp_path):
     velocities = set(d.step("geodesic_equations").result["position"].values())
     collides = bool(velocities & (set(d.metric.coordinates) | set(d.metric.parameters)))
     assert failing_step(d) == ("geodesic_equations" if collides else None)
+
+
+def test_two_dimensions_ansatz_and_strong_condition(tmp_path):
+    # In two dimensions G_ij = R_ij - R g_ij / 2 vanishes identically (R_ij = (R/2) g_ij there; common
+    # practice), so every field equation of an ansatz holds for any unknown, and the strong energy
+    # condition, which divides by n - 2 (Hawking & Ellis 1973, sec. 4.3, from memory), is undefined.
+    d = from_file(tmp_path, "two", '''
+        title = "two-dimensional ansatz"
+        coordinates = ["t", "x"]
+        line_element = "-F(x)*dt^2 + dx^2"
+        [functions]
+        F = ["x"]
+        [ansatz]
+        [matter]
+        ''')
+    assert d.results["ansatz"]["check"]["holds"] is True
+    assert d.results["energy_conditions"]["strong"]["holds"] is None
+    assert "not defined in two dimensions" in d.results["energy_conditions"]["strong"]["evidence"]
+    assert failing_step(d) is None
+    # a recorded "holds" for the strong condition is caught in its own cell
+    steps = [dataclasses.replace(s, result=dataclasses.replace(s.result, holds=True))
+             if s.id == "energy_conditions/strong" else s for s in d.steps]
+    broken = type(d)(d.metric, steps, d.results, d.arithmetic, d.seconds)
+    assert failing_step(broken) == "energy_conditions/strong"
