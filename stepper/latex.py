@@ -63,8 +63,14 @@ class _Printer(LatexPrinter):
 class ExpressionWriter:
     """Writes expressions for a report, with the metric's abbreviations."""
 
-    def __init__(self, abbreviations: Sequence[tuple[str, sympy.Expr]] = (), coordinates: Sequence[sympy.Symbol] = ()):
-        self._printer = _Printer({"mul_symbol": None})
+    def __init__(self, abbreviations: Sequence[tuple[str, sympy.Expr]] = (), coordinates: Sequence[sympy.Symbol] = (),
+                 velocities: dict[str, tuple[sympy.Symbol, str]] | None = None):
+        """``velocities`` maps a coordinate name to the symbol standing for its rate d x/d tau and the
+        LaTeX to print for it (u_{r_{s}} for the symbol u_r_s)."""
+        velocities = dict(velocities or {})
+        self.velocities = {name: tex for name, (_, tex) in velocities.items()}
+        self._printer = _Printer({"mul_symbol": None,
+                                  "symbol_names": {symbol: tex for symbol, tex in velocities.values()}})
         self._abbreviations = [(sympy.Symbol(name), _trig_normal(sympy.expand(value)))
                                for name, value in abbreviations
                                if sympy.expand(value).is_Add and _is_polynomial_like(value)]
@@ -243,7 +249,8 @@ def component_symbol(quantity: str, names: Sequence[str], writer: ExpressionWrit
     if quantity == "energy_density":
         return r"\rho"
     if quantity == "geodesic_acceleration":
-        return r"\frac{d" + writer.symbol(f"u_{names[0]}") + r"}{d\tau}"
+        velocity = writer.velocities.get(names[0]) or writer.symbol(f"u_{names[0]}")
+        return r"\frac{d" + velocity + r"}{d\tau}"
     head, upper = _COMPONENT_SYMBOLS[quantity]
     tex = ["{" + writer.symbol(n) + "}" for n in names]
     up, down = "".join(tex[:upper]), "".join(tex[upper:])

@@ -148,8 +148,10 @@ class _Model:
     def __init__(self, derivation: Derivation):
         self.d = derivation
         m = derivation.metric
-        self.writer = ExpressionWriter(m.abbreviations, m.coordinates)
         self.number = {s.id: n for n, s in enumerate(derivation.steps, start=1)}
+        self.writer = ExpressionWriter(m.abbreviations, m.coordinates)  # velocity_tex needs it for coordinates
+        velocities = {x: (sympy.Symbol(self.velocity_name(x), real=True), self.velocity_tex(x)) for x in m.names}
+        self.writer = ExpressionWriter(m.abbreviations, m.coordinates, velocities)
         self.formula_first_shown: dict[str, int] = {}
 
     # small pieces ---------------------------------------------------------
@@ -316,13 +318,26 @@ class _Model:
             lines.append(self.eq(self.writer.inline(f) if f is not None else escape_text(name), value))
         return self.pack(lines) + [{"tex": tex, "long": long} for tex, long in mapping_lines(result, "metric", self.writer)]
 
+    def velocity_name(self, coordinate: str) -> str:
+        """The name the geodesic step recorded for d(coordinate)/dtau: u_r, or uu_r on a clash."""
+        for step in self.d.steps:
+            if step.id == "geodesic_equations":
+                return str(step.params.get("velocity_symbols", {}).get(coordinate, f"u_{coordinate}"))
+        return f"u_{coordinate}"
+
+    def velocity_tex(self, coordinate: str) -> str:
+        """LaTeX for d(coordinate)/dtau: u_{r}, or uu_{r} when the metric already used the name u_r;
+        the subscript is the coordinate as typeset elsewhere."""
+        name = self.velocity_name(coordinate)
+        prefix = name[:len(name) - len(coordinate) - 1] if name.endswith("_" + coordinate) else "u"
+        return f"{prefix}_{{{self.sym(coordinate)}}}"
+
     def geodesic_lines(self, result: dict) -> list[dict]:
         lines = []
         positions = result.get("position", {})
         for name, acceleration in result.get("velocity", {}).items():
             x = self.sym(name)
-            u = positions.get(name, sympy.Symbol(f"u_{name}"))
-            first = rf"\frac{{d{x}}}{{d\tau}} = {self.writer.inline(u)},\qquad "
+            first = rf"\frac{{d{x}}}{{d\tau}} = {self.velocity_tex(name)},\qquad "
             lhs = component_symbol("geodesic_acceleration", [name], self.writer)
             tex, long = self.writer.equation(lhs, acceleration)
             if long or len(first) + len(tex) > SHORT_LATEX:
@@ -420,11 +435,11 @@ class _Model:
         w = self.writer
 
         def pairs(values: dict, velocity: bool = False) -> str:
-            return ", ".join(rf"\({w.inline(sympy.Symbol('u_' + k)) if velocity else self.sym(k)} = {w.inline(v)}\)"
+            return ", ".join(rf"\({self.velocity_tex(k) if velocity else self.sym(k)} = {w.inline(v)}\)"
                              for k, v in values.items())
         timelike = orbit.get("kind") == "timelike"
         time = orbit.get("time", "")
-        u_time = w.inline(sympy.Symbol(f"u_{time}"))
+        u_time = self.velocity_tex(time)
         parts = [f"An orbit for the notebook to integrate numerically: a {escape_text(orbit.get('kind', ''))} geodesic"]
         if orbit.get("values"):
             parts.append("with " + pairs(orbit["values"]))
@@ -766,7 +781,7 @@ class _Model:
                      r"solved one unknown at a time, and the solution is put back into every component.")]
         if key == "geodesics":
             example = self.d.metric.names[min(1, len(self.d.metric.names) - 1)]
-            return [(rf"The velocity components are written \({self.writer.inline(sympy.Symbol('u_' + example))}\) "
+            return [(rf"The velocity components are written \({self.velocity_tex(example)}\) "
                      rf"for \(d{self.sym(example)}/d\tau\) and so on (the subscript names the coordinate; these are "
                      r"the contravariant components \(u^a\)), the names a claims file uses for them. \(\tau\) is the "
                      r"proper time along a timelike geodesic, an affine parameter along a null one.")]
