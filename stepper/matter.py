@@ -32,6 +32,7 @@ from collections import Counter
 import mpmath
 import sympy
 
+from .algebra import printer_stable
 from .metric import MatterRequest
 from .tracer import Verdict
 
@@ -110,7 +111,6 @@ class _Matter:
     # helpers ------------------------------------------------------------
     def physical(self, element) -> sympy.Expr:
         """A kappa-scaled element divided by kappa, for display."""
-        from .algebra import printer_stable
         return printer_stable(self.c.expr(element) / self.kappa)
 
     def name(self, i: int) -> str:
@@ -569,7 +569,6 @@ def _tidy(expr: sympy.Expr) -> sympy.Expr:
 
 
 def _stable(expr: sympy.Expr) -> sympy.Expr:
-    from .algebra import printer_stable
     return printer_stable(expr)
 
 
