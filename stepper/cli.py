@@ -19,6 +19,10 @@ from .metricfile import load_metric
 from .trace import write_atomically
 
 
+#: Exit status of a bug in stepper (distinct from 1, a disagreement, and 2, bad input).
+INTERNAL_ERROR = 4
+
+
 class _ArgumentParser(argparse.ArgumentParser):
     def error(self, message: str) -> None:  # one line, status 2
         self.exit(2, f"stepper: error: {message} (see 'stepper --help')\n")
@@ -295,9 +299,9 @@ def main(argv: Sequence[str] | None = None) -> int:
         sys.stderr.write("stepper: interrupted; nothing was written\n")
         return 130
     except Exception as err:  # a bug in stepper, not in the input: one line, no traceback
-        sys.stderr.write(f"stepper: internal error: {type(err).__name__}: {' '.join(str(err).split())[:300]} "
-                         "(please report it with the input file)\n")
-        return 1
+        sys.stderr.write(f"stepper: internal error while working on {args.file}: {type(err).__name__}: "
+                         f"{' '.join(str(err).split())[:300]} (please report it with that file)\n")
+        return INTERNAL_ERROR
 
 
 if __name__ == "__main__":

@@ -1492,26 +1492,16 @@ verdict({self._id(step)}, recorded_holds, residues)"""
     def claim(self, step):
         p = step.params
         number = int(p["number"])
-        scalars = {"determinant": "metric_determinant", "scalar": "scalar_curvature",
-                   "kretschmann": "kretschmann_scalar"}
         quantity = p["quantity"]
-        if quantity in scalars:
-            derived = scalars[quantity]
-        elif quantity == "weyl":
-            derived = f"weyl_from_lowered({self.s.names(p['component'])})"
-        else:
-            tables = {"inverse_metric", "christoffel", "riemann", "riemann_lowered", "ricci", "einstein"}
-            if quantity not in tables:
-                raise NotebookError(f"claim {number}: unknown quantity {quantity!r}")
-            derived = f"component({quantity}, {self.s.names(p['component'])})"
         outcome = p["outcome"]
-        if quantity not in self.d.results:
-            code = (f"# Claim {number} is about a quantity this derivation did not compute; nothing to check.\n"
-                    f'print("claim {number}: {outcome}, not checked here")')
-            return "claim", code
         if "claimed" not in p:
             code = (f"# Claim {number} could not be read (see the text above); there is nothing to check.\n"
                     f'print("claim {number}: unreadable, not checked")')
+            return "claim", code
+        derived = self._derived_for_claim(number, quantity, p)
+        if derived is None:
+            code = (f"# Claim {number} is about a quantity this derivation did not compute; nothing to check.\n"
+                    f'print("claim {number}: {outcome}, not checked here")')
             return "claim", code
         expected = {"agrees": "True", "differs": "False"}.get(outcome)
         check = (f"""if claim_agrees != {expected}:
@@ -1524,6 +1514,49 @@ derived = {derived}
 claim_agrees = vanishes(claimed - derived)
 {check}"""
         return "claim", code
+
+    def _derived_for_claim(self, number: int, quantity: str, p: dict) -> str | None:
+        """Python source for the notebook's own value of a claimed quantity; None when this derivation
+        did not compute it."""
+        results = self.d.results
+        scalars = {"determinant": "metric_determinant", "scalar": "scalar_curvature",
+                   "kretschmann": "kretschmann_scalar"}
+        tables = {"inverse_metric", "christoffel", "riemann", "riemann_lowered", "ricci", "einstein",
+                  "stress_energy", "stress_energy_mixed", "stress_energy_up", "frame_stress_energy", "frame_ricci"}
+        component = p.get("component", "")
+        if quantity in scalars:
+            return scalars[quantity] if quantity in results else None
+        if quantity == "weyl":
+            return f"weyl_from_lowered({self.s.names(component)})" if "weyl" in results else None
+        if quantity in tables:
+            return f"component({quantity}, {self.s.names(component)})" if quantity in results else None
+        if quantity == "energy_density":
+            return "energy_density" if "energy_density" in results else None
+        if quantity == "pressure":
+            return f"pressures[{self.s.name(component)}]" if component in results.get("pressures", {}) else None
+        if quantity == "geodesic_acceleration":
+            return (f"geodesic_acceleration[{self.s.name(component)}]"
+                    if "geodesic_equations" in results else None)
+        if quantity == "ansatz_solution":
+            return self._derived_ansatz_solution(number, component, p)
+        raise NotebookError(f"claim {number}: unknown quantity {quantity!r}")
+
+    def _derived_ansatz_solution(self, number: int, function_name: str, p: dict) -> str | None:
+        """The recorded general solution for one unknown with the integration constants the audit fitted."""
+        request = self.d.metric.ansatz
+        unknown = next((u for u in (request.unknowns if request is not None else ())
+                        if u.func.__name__ == function_name), None)
+        solution = self.d.results.get("ansatz", {}).get("solution", {})
+        if unknown is None or str(unknown) not in solution:
+            return None
+        constants = {s.name: s for _, s in self.s.others}
+        values = []
+        for name, value in p.get("constants", {}).items():
+            if name not in constants:
+                raise NotebookError(f"claim {number}: unknown integration constant {name!r}")
+            values.append(f"{self.s.expr(constants[name])}: {self.s.expr(value)}")
+        derived = f"ansatz_solution[{self.s.expr(unknown)}]"
+        return f"{derived}.subs({{{', '.join(values)}}})" if values else derived
 
     def first_bianchi(self, step):
         code = f"""{self._holds(step)}
