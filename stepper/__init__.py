@@ -5,9 +5,10 @@
     >>> derivation.results["christoffel"]["r,t,t"]
 """
 
-__version__ = "0.1.0"
+from .version import __version__  # noqa: E402
 
-from .chain import Derivation, derive  # noqa: E402
+from .chain import derive  # noqa: E402
+from .record import Derivation  # noqa: E402
 from .errors import InputError  # noqa: E402
 from .metric import Metric  # noqa: E402
 

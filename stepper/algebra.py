@@ -33,6 +33,7 @@ import sympy
 from sympy.core.function import AppliedUndef
 from sympy.polys.rings import PolyElement, ring
 
+from .record import as_expression  # noqa: F401  (re-exported for the engine)
 from .sampling import signed_sample
 
 #: How many orders of derivatives of free functions the field holds beyond
@@ -94,15 +95,6 @@ def printer_stable(expr: sympy.Expr) -> sympy.Expr:
     if (p, q) == (coefficient.p, coefficient.q):
         return rebuilt
     return printer_stable(sympy.Mul(sympy.Rational(p, q), *numerator, *denominator))
-
-
-def as_expression(value) -> sympy.Expr:
-    """A sympy expression from a sympy object or a Python number; text is refused."""
-    if isinstance(value, sympy.Basic):
-        return value
-    if isinstance(value, int):
-        return sympy.Integer(value)
-    raise TypeError(f"expected a sympy expression, got {type(value).__name__}")
 
 
 # --------------------------------------------------------------------------

@@ -24,8 +24,8 @@ import sympy
 from sympy.core.function import AppliedUndef
 
 from .algebra import choose_arithmetic, printer_stable
-from .metric import AnsatzRequest
-from .tracer import Verdict
+from .record import AnsatzRequest
+from .record import Verdict
 
 FORMULAS = {
     "equations": r"E_{ij} \equiv G_{ij} + \Lambda g_{ij} = 0",
@@ -362,7 +362,7 @@ class _Ansatz:
                 how += f"; the unknowns {free} remain free ({failure})"
             else:
                 holds = None
-                how = (f"not decided: only part of the system is solved ({failure}), so the unknowns {free} "
+                how = (f"only part of the system is solved ({failure}), so the unknowns {free} "
                        f"remain free; with them free, {how}")
         verdict = Verdict("The solution satisfies every field equation E_ij = 0.", holds, how)
         c.results["ansatz"]["check"] = {"holds": holds, "evidence": how}

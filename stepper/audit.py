@@ -28,30 +28,23 @@ import sympy
 from sympy.core.function import AppliedUndef
 
 from .algebra import choose_arithmetic, printer_stable
-from .chain import Derivation, canonical_lowered
-from .claims import QUANTITIES, Claim
-from .tracer import Step, Verdict
+from .chain import canonical_lowered
+from .record import Derivation
+from .claims import Claim
+from .quantities import QUANTITIES, claimable
+from .record import Step, Verdict
 
-SCALARS = {"determinant", "scalar", "kretschmann", "energy_density"}
 AGREES, DIFFERS, UNDECIDED, UNREADABLE = "agrees", "differs", "cannot be decided", "unreadable"
 
+_CLAIMABLE = claimable()
+SCALARS = frozenset(name for name, q in _CLAIMABLE.items() if q.rank == 0)
 #: Quantities of the matter stage: computed only when the metric file has a [matter] table.
-MATTER_QUANTITIES = frozenset({"stress_energy", "stress_energy_mixed", "stress_energy_up", "frame_stress_energy",
-                               "frame_ricci", "energy_density", "pressure"})
+MATTER_QUANTITIES = frozenset(name for name, q in _CLAIMABLE.items() if q.requires == "matter")
 #: Matter quantities that carry 1/kappa.
-KAPPA_SCALED = MATTER_QUANTITIES - {"frame_ricci"}
+KAPPA_SCALED = frozenset(name for name, q in _CLAIMABLE.items() if q.kappa_scaled)
 #: Quantities read in the orthonormal frame.
-FRAME_QUANTITIES = frozenset({"frame_stress_energy", "frame_ricci", "energy_density", "pressure"})
-#: Where a quantity's values are kept in the results, when the key differs from its name.
-RESULT_KEYS = {"pressure": "pressures", "geodesic_acceleration": "geodesic_equations", "ansatz_solution": "ansatz"}
-#: Quantities in words, for the reasons a claim cannot be decided.
-QUANTITY_WORDS = {"stress_energy": "stress-energy tensor", "stress_energy_mixed": "stress-energy tensor T^i_j",
-                  "stress_energy_up": "stress-energy tensor T^ij",
-                  "frame_stress_energy": "stress-energy tensor in the orthonormal frame",
-                  "frame_ricci": "Ricci tensor in the orthonormal frame", "pressure": "pressures"}
-#: The step that holds a whole quantity, when it is not named after it.
-QUANTITY_STEPS = {"energy_density": "density_and_pressures", "pressure": "density_and_pressures",
-                  "geodesic_acceleration": "geodesic_equations"}
+FRAME_QUANTITIES = frozenset(name for name, q in _CLAIMABLE.items()
+                             if q.in_frame or q.step_id == "density_and_pressures")
 
 
 #: pi as an indeterminate, so that the exact field can hold it: pi is transcendental, so a rational
@@ -112,13 +105,13 @@ def _recorded(derivation: Derivation, quantity: str, component: str) -> tuple[sy
     parts = component.split(",")
     index = tuple(names.index(p) for p in parts)
     key = lambda idx: ",".join(names[i] for i in idx)
-    table = results.get(RESULT_KEYS.get(quantity, quantity), {})
+    table = results.get(QUANTITIES[quantity].key, {})
     if quantity in ("riemann_lowered", "weyl"):
         sign, canonical = canonical_lowered(index)
         value = sign * table.get(key(canonical), sympy.Integer(0)) if sign else sympy.Integer(0)
         return printer_stable(value), quantity
     value = table.get(component, sympy.Integer(0))
-    step_id = QUANTITY_STEPS.get(quantity, quantity)
+    step_id = QUANTITIES[quantity].step_id
     if quantity == "christoffel":
         a, b, c = index
         step_id = f"christoffel/{key((a, min(b, c), max(b, c)))}"
@@ -135,7 +128,7 @@ def _recorded(derivation: Derivation, quantity: str, component: str) -> tuple[sy
 def unavailable(derivation: Derivation, quantity: str, component: str) -> str:
     """Why the derivation holds no value for this claim ('' when it does)."""
     r = derivation.results
-    what = QUANTITY_WORDS.get(quantity, quantity.replace("_", " "))
+    what = QUANTITIES[quantity].words
     if quantity in MATTER_QUANTITIES:
         if "field_equations" not in r:
             return (f"the derivation did not compute the {what}: the metric file has no [matter] table "
@@ -169,7 +162,7 @@ def unavailable(derivation: Derivation, quantity: str, component: str) -> str:
             why = ansatz.get("unsolved", "the equations were not solved for it")
             return f"stepper did not solve for {f}: {why}"
         return ""
-    key = RESULT_KEYS.get(quantity, quantity)
+    key = QUANTITIES[quantity].key
     if key not in r:
         return f"the derivation did not compute the {what} (it was run with --skip-invariants)"
     return ""
@@ -206,7 +199,7 @@ class Auditor:
         return A.to_expr(A.from_expr(expr)).xreplace({PI: sympy.pi})
 
     def check(self, claim: Claim) -> ClaimVerdict:
-        component = "" if QUANTITIES[claim.quantity] == 0 else claim.component
+        component = "" if QUANTITIES[claim.quantity].rank == 0 else claim.component
         correct, step_id = correct_value(self.d, claim.quantity, component)
         missing = unavailable(self.d, claim.quantity, component)
         if missing:
@@ -479,7 +472,7 @@ class Auditor:
 
     def other_direction(self, claim: Claim) -> str:
         """A pressure or acceleration that belongs to another direction."""
-        table = self.d.results.get(RESULT_KEYS[claim.quantity], {})
+        table = self.d.results.get(QUANTITIES[claim.quantity].key, {})
         for name, value in table.items():
             if name == claim.component or self.vanishes(value)[0]:
                 continue
@@ -613,9 +606,10 @@ def audit(derivation: Derivation, claims: list[Claim]) -> tuple[list[ClaimVerdic
     return verdicts, earliest_wrong(derivation, verdicts)
 
 
-def record_audit(derivation: Derivation, title: str, verdicts: list[ClaimVerdict], earliest: list[int]) -> None:
-    """Add a step per claim and an ``audit`` entry to the results (the trace then carries them)."""
+def record_audit(derivation: Derivation, title: str, verdicts: list[ClaimVerdict], earliest: list[int]) -> Derivation:
+    """A new derivation: this one with a step per claim and an ``audit`` entry in the results."""
     rows = []
+    steps = []
     for v in verdicts:
         c = v.claim
         holds = {AGREES: True, DIFFERS: False}.get(v.outcome)
@@ -633,7 +627,7 @@ def record_audit(derivation: Derivation, title: str, verdicts: list[ClaimVerdict
             params["difference"] = v.difference
         if v.constants:
             params["constants"] = dict(v.constants)
-        derivation.steps.append(Step(
+        steps.append(Step(
             id=f"claim/{c.number}", kind="claim",
             annotation=f"{c.name[0].upper()}{c.name[1:]}" + (f", {c.label}" if c.label else "") + f": {v.outcome}.",
             formula=r"X_{\text{claimed}} - X_{\text{derived}} = 0", uses=(v.checked_against,),
@@ -644,9 +638,9 @@ def record_audit(derivation: Derivation, title: str, verdicts: list[ClaimVerdict
                      **({"claimed": printer_stable(c.expr)} if c.expr is not None else {}),
                      **({"correct": v.correct} if v.correct is not None else {}),
                      **({"difference": v.difference} if v.difference is not None else {})})
-    derivation.results["audit"] = {
+    return derivation.with_steps(tuple(steps), {"audit": {
         "title": title,
         "all_agree": all(v.outcome == AGREES for v in verdicts),
         "earliest_wrong": earliest,
         "claims": rows,
-    }
+    }})

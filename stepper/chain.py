@@ -29,7 +29,9 @@ import sympy
 from .algebra import choose_arithmetic, printer_stable
 from .errors import InputError
 from .metric import LINE_ELEMENT_CONVENTION, Metric
-from .tracer import Simplification, Step, Tracer, Verdict
+from .quantities import QUANTITIES, formula
+from .record import Derivation, Simplification, Step, Verdict
+from .tracer import Tracer
 from .verify import numeric_check
 from .matter import CONVENTIONS as MATTER_CONVENTIONS, CONVENTIONS_LATEX as MATTER_CONVENTIONS_LATEX, record_matter
 from .ansatz import record_ansatz
@@ -62,31 +64,6 @@ CONVENTIONS_LATEX = {
                     r"+ \frac{R\,(g_{ac}g_{bd} - g_{ad}g_{bc})}{(n-1)(n-2)}$, for $n \ge 4$."),
 }
 
-FORMULAS = {
-    "metric": r"ds^2 = g_{ij}\,dx^i\,dx^j",
-    "metric_derivatives": r"\partial_k g_{ij}",
-    "determinant": r"g = \det(g_{ij})",
-    "inverse_metric": r"g^{ik} g_{kj} = \delta^i_j",
-    "christoffel": r"\Gamma^a_{bc} = \tfrac12 g^{ad}\left(\partial_b g_{dc} + \partial_c g_{db} - \partial_d g_{bc}\right)",
-    "contracted_christoffel": r"\Gamma^l_{li} = \partial_i \ln\sqrt{|g|} = \frac{\partial_i g}{2g}",
-    "riemann": (r"R^a{}_{bcd} = \partial_c \Gamma^a_{db} - \partial_d \Gamma^a_{cb} "
-                r"+ \Gamma^a_{ce}\Gamma^e_{db} - \Gamma^a_{de}\Gamma^e_{cb}"),
-    "ricci": r"R_{bd} = R^a{}_{bad}",
-    "ricci_by_trace_identity": (r"R_{ij} = \partial_l \Gamma^l_{ij} - \partial_i\partial_j \ln\sqrt{|g|} "
-                                r"+ \Gamma^a_{ij}\,\partial_a \ln\sqrt{|g|} - \Gamma^l_{ia}\Gamma^a_{jl}"),
-    "scalar": r"R = g^{ij} R_{ij}",
-    "einstein": r"G_{ij} = R_{ij} - \tfrac12 R\, g_{ij}",
-    "riemann_lowered": r"R_{abcd} = g_{ae} R^e{}_{bcd}",
-    "kretschmann": r"K = R_{abcd} R^{abcd}",
-    "weyl": (r"C_{abcd} = R_{abcd} - \frac{g_{ac}R_{bd} - g_{ad}R_{bc} - g_{bc}R_{ad} + g_{bd}R_{ac}}{n-2} "
-             r"+ \frac{R\,(g_{ac}g_{bd} - g_{ad}g_{bc})}{(n-1)(n-2)}"),
-    "bianchi": r"\nabla^a G_{ab} = g^{ac}\left(\partial_c G_{ab} - \Gamma^e_{ca} G_{eb} - \Gamma^e_{cb} G_{ae}\right) = 0",
-    "ricci_flat": r"R_{ij} = 0",
-    "einstein_space": r"R_{ij} = \lambda g_{ij},\quad \lambda = R/n",
-    "constant_curvature": r"R_{abcd} = k\,(g_{ac}g_{bd} - g_{ad}g_{bc}),\quad k = \frac{R}{n(n-1)} \text{ constant}",
-    "conformally_flat": r"C_{abcd} = 0",
-}
-
 #: Below this many polynomial terms in the Christoffel symbols, starting worker
 #: processes costs more than it saves (measured: the flat expanding universe has
 #: 73, the twisted vacuum 225, the rotating black hole 451).
@@ -101,27 +78,6 @@ Progress = Callable[[str, int, int], None]
 
 def _no_progress(label: str, done: int, total: int) -> None:
     return None
-
-
-class Derivation:
-    """What a run of the chain produced: the metric, conventions, the steps and
-    the final results keyed by quantity and by coordinate-named indices."""
-
-    def __init__(self, metric: Metric, steps: list[Step], results: dict, arithmetic: str, seconds: float):
-        self.metric = metric
-        self.steps = steps
-        self.results = results
-        self.arithmetic = arithmetic
-        self.arithmetic_description = ""
-        self.seconds = seconds
-        self.conventions = dict(CONVENTIONS)
-        self.conventions_latex = dict(CONVENTIONS_LATEX)
-
-    def step(self, step_id: str) -> Step:
-        for s in self.steps:
-            if s.id == step_id:
-                return s
-        raise KeyError(step_id)
 
 
 def derive(metric: Metric, progress: Progress | None = None, arithmetic=None,
@@ -270,7 +226,7 @@ class _Chain:
         start = time.perf_counter()
         stages = [self.metric_step, self.metric_derivatives, self.determinant, self.inverse_metric,
                   self.christoffel, self.contracted_christoffel, self.riemann, self.ricci,
-                  self.ricci_by_trace_identity, self.scalar, self.einstein, self.verdict_ricci_flat,
+                  self.ricci_by_trace_identity, self.scalar, self.einstein, self.mixed_tensors, self.verdict_ricci_flat,
                   self.verdict_einstein_space, self.riemann_lowered, self.verdict_constant_curvature]
         if self.invariants:
             stages += [self.kretschmann, self.weyl]
@@ -285,13 +241,13 @@ class _Chain:
             self.progress(stage.__name__, number, len(stages))
             stage()
         self.progress("done", len(stages), len(stages))
-        derivation = Derivation(self.metric, self.tracer.steps, self.results, self.A.name,
-                                time.perf_counter() - start)
-        derivation.arithmetic_description = self.A.description
+        conventions, conventions_latex = dict(CONVENTIONS), dict(CONVENTIONS_LATEX)
         if self.metric.matter is not None:
-            derivation.conventions.update(MATTER_CONVENTIONS)
-            derivation.conventions_latex.update(MATTER_CONVENTIONS_LATEX)
-        return derivation
+            conventions.update(MATTER_CONVENTIONS)
+            conventions_latex.update(MATTER_CONVENTIONS_LATEX)
+        return Derivation(self.metric, tuple(self.tracer.steps), self.results, self.A.name,
+                          arithmetic_description=self.A.description, conventions=conventions,
+                          conventions_latex=conventions_latex, seconds=time.perf_counter() - start)
 
     def matter(self) -> None:
         record_matter(self, self.metric.matter)
@@ -309,7 +265,7 @@ class _Chain:
                  if not self.is_zero(self.g[i][j])}
         self.results["metric"] = comps
         self.record(id="metric", kind="input", annotation="The metric components g_ij read from the input.",
-                    formula=FORMULAS["metric"], uses=(), result=comps,
+                    formula=formula("metric"), uses=(), result=comps,
                     params={"coordinates": list(self.metric.names), "arithmetic": self.A.name,
                             "convention": LINE_ELEMENT_CONVENTION})
 
@@ -326,7 +282,7 @@ class _Chain:
         self.record(id="metric_derivatives", kind="derivative",
                     annotation="First partial derivatives d_k g_ij of the metric, keyed 'k:i,j'; "
                                "those not listed vanish, and d_k g_ji = d_k g_ij.",
-                    formula=FORMULAS["metric_derivatives"], uses=("metric",), result=comps)
+                    formula=formula("metric_derivatives"), uses=("metric",), result=comps)
 
     def determinant(self) -> None:
         n, g = self.n, self.g
@@ -349,7 +305,7 @@ class _Chain:
         self.results["determinant"] = value
         raw = (lambda: sympy.Matrix(self.metric.matrix).det(method="berkowitz")) if n <= 4 else None
         self.record(id="determinant", kind="determinant", annotation=f"Determinant of the metric ({method}).",
-                    formula=FORMULAS["determinant"], uses=("metric",), result=value,
+                    formula=formula("determinant"), uses=("metric",), result=value,
                     params={"method": method},
                     simplifications=self.simplification(raw, self.size(g[i][j] for i in range(n) for j in range(n)), det))
 
@@ -391,7 +347,7 @@ class _Chain:
                  if not self.is_zero(ginv[i][j])}
         self.results["inverse_metric"] = comps
         self.record(id="inverse_metric", kind="inverse", annotation=f"Inverse metric g^ij ({method}).",
-                    formula=FORMULAS["inverse_metric"], uses=("metric", "determinant"), result=comps,
+                    formula=formula("inverse_metric"), uses=("metric", "determinant"), result=comps,
                     params={"method": method})
         verdict = self.identity_verdict(
             "g^ik g_kj = delta^i_j",
@@ -425,7 +381,7 @@ class _Chain:
                         id=f"christoffel/{key}", kind="component",
                         annotation=f"Christoffel symbol Gamma^{self.x[a].name}_({self.x[b].name} {self.x[c].name})"
                                    + ("" if b == c else f" (= Gamma^{self.x[a].name}_({self.x[c].name} {self.x[b].name}))"),
-                        formula=FORMULAS["christoffel"], uses=("inverse_metric", "metric_derivatives"),
+                        formula=formula("christoffel"), uses=("inverse_metric", "metric_derivatives"),
                         result=self.expr(value), params={"quantity": "christoffel", "indices": key},
                         substituted=self._christoffel_tex(a, b, c, terms),
                         simplifications=self.simplification(raw, self.size([ginv[a][d] for d in terms] + [
@@ -440,7 +396,7 @@ class _Chain:
                     annotation=f"Christoffel symbols of the second kind: {independent - zero_count} of the "
                                f"{independent} independent components (b <= c) are non-zero; the rest vanish, "
                                "and Gamma^a_cb = Gamma^a_bc.",
-                    formula=FORMULAS["christoffel"],
+                    formula=formula("christoffel"),
                     uses=tuple(s.id for s in self.tracer.steps if s.id.startswith("christoffel/")) or ("inverse_metric",),
                     result=self.results["christoffel"], params={"zero_independent": zero_count})
 
@@ -487,13 +443,13 @@ class _Chain:
                         annotation=f"Trace identity along {name}: the sum Gamma^l_l{name} over l, and d_{name} ln sqrt|g| "
                                    "from the determinant, " + {True: "agree.", False: "DISAGREE.",
                                                                None: "agree numerically (not proven)."}[outcome],
-                        formula=FORMULAS["contracted_christoffel"],
+                        formula=formula("contracted_christoffel"),
                         uses=("christoffel", "determinant"),
                         result={"sum": self.expr(explicit), "from_determinant": self.expr(from_det)},
                         params={"index": name})
         self.record(id="contracted_christoffel", kind="check",
                     annotation="The contracted Christoffel symbols equal the derivative of ln sqrt|g| in every direction.",
-                    formula=FORMULAS["contracted_christoffel"],
+                    formula=formula("contracted_christoffel"),
                     uses=tuple(f"contracted_christoffel/{c.name}" for c in self.x),
                     result=self.identity_verdict("Gamma^l_li = d_i ln sqrt|g| for every i", differences,
                                                  "the differences of the two routes"))
@@ -555,7 +511,7 @@ class _Chain:
                 id=f"riemann/{key}", kind="component",
                 annotation=f"Riemann component R^{self.x[a].name}_({self.x[b].name} {self.x[c].name} {self.x[d].name}) "
                            f"(= -R^{self.x[a].name}_({self.x[b].name} {self.x[d].name} {self.x[c].name}))",
-                formula=FORMULAS["riemann"], uses=tuple(uses) or ("christoffel",), result=self.expr(value),
+                formula=formula("riemann"), uses=tuple(uses) or ("christoffel",), result=self.expr(value),
                 params={"quantity": "riemann", "indices": key},
                 substituted=self._riemann_tex(a, b, c, d),
                 simplifications=self.simplification(
@@ -570,7 +526,7 @@ class _Chain:
         self.record(id="riemann", kind="summary",
                     annotation=f"Riemann tensor: {total - zero_count} of the {total} components with c < d are non-zero; "
                                "the others vanish, and R^a_bdc = -R^a_bcd.",
-                    formula=FORMULAS["riemann"],
+                    formula=formula("riemann"),
                     uses=tuple(s.id for s in self.tracer.steps if s.id.startswith("riemann/")) or ("christoffel",),
                     result=self.results["riemann"], params={"convention": CONVENTIONS["riemann"]})
 
@@ -638,7 +594,7 @@ class _Chain:
                 step = self.record(
                     id=f"ricci/{key}", kind="component",
                     annotation=f"Ricci component R_({self.x[b].name} {self.x[d].name}) by contracting the Riemann tensor",
-                    formula=FORMULAS["ricci"], uses=tuple(used) or ("riemann",), result=self.expr(ric[b][d]),
+                    formula=formula("ricci"), uses=tuple(used) or ("riemann",), result=self.expr(ric[b][d]),
                     params={"quantity": "ricci", "indices": key},
                     substituted=f"R_{{{t[b]}{t[d]}}} = {tex_terms}",
                     simplifications=self.simplification(
@@ -650,7 +606,7 @@ class _Chain:
         self.results["ricci"] = dict(sorted(components.items(), key=lambda kv: self._order(kv[0])))
         self.record(id="ricci", kind="summary",
                     annotation="Ricci tensor from the contraction of the Riemann tensor (components not listed vanish).",
-                    formula=FORMULAS["ricci"],
+                    formula=formula("ricci"),
                     uses=tuple(s.id for s in self.tracer.steps if s.id.startswith("ricci/")) or ("riemann",),
                     result=self.results["ricci"])
         self.record(id="ricci/symmetry", kind="check",
@@ -683,7 +639,7 @@ class _Chain:
         self.record(id="ricci_by_trace_identity", kind="route",
                     annotation="Ricci tensor by the second route, from the Christoffel symbols and ln sqrt|g| "
                                "(independent components i <= j; those not listed vanish).",
-                    formula=FORMULAS["ricci_by_trace_identity"], uses=("christoffel", "contracted_christoffel"),
+                    formula=formula("ricci_by_trace_identity"), uses=("christoffel", "contracted_christoffel"),
                     result=other)
         self.record(id="ricci/agreement", kind="check",
                     annotation="The two routes to the Ricci tensor agree component by component.",
@@ -706,7 +662,7 @@ class _Chain:
         t = self.tex
         self.results["scalar"] = self.expr(value)
         self.record(id="scalar", kind="contraction", annotation="Scalar curvature R = g^ij R_ij.",
-                    formula=FORMULAS["scalar"],
+                    formula=formula("scalar"),
                     uses=("inverse_metric",) + tuple(f"ricci/{self.key(min(i, j), max(i, j))}" for i, j in parts
                                                      if i <= j),
                     result=self.results["scalar"],
@@ -728,7 +684,7 @@ class _Chain:
                 uses = ["scalar", "metric"] + ([f"ricci/{key}"] if f"ricci/{key}" in self.tracer else [])
                 step = self.record(id=f"einstein/{key}", kind="component",
                                    annotation=f"Einstein component G_({self.x[i].name} {self.x[j].name})",
-                                   formula=FORMULAS["einstein"], uses=tuple(uses), result=self.expr(self.G[i][j]),
+                                   formula=formula("einstein"), uses=tuple(uses), result=self.expr(self.G[i][j]),
                                    params={"quantity": "einstein", "indices": key},
                                    simplifications=self.simplification(
                                        lambda i=i, j=j: self.expr(self.ric[i][j]) - half * self.results["scalar"] * self.expr(self.g[i][j]),
@@ -739,9 +695,27 @@ class _Chain:
         self.results["einstein"] = components
         self.record(id="einstein", kind="summary",
                     annotation="Einstein tensor G_ij = R_ij - R g_ij / 2 (components not listed vanish).",
-                    formula=FORMULAS["einstein"],
+                    formula=formula("einstein"),
                     uses=tuple(s.id for s in self.tracer.steps if s.id.startswith("einstein/")) or ("scalar", "metric"),
                     result=components)
+
+    def mixed_tensors(self) -> None:
+        """R^a_b = g^ac R_cb and G^a_b = g^ac G_cb, every ordering listed (those not listed vanish)."""
+        for name, lowered, summary in (("ricci_mixed", self.ric, "ricci"), ("einstein_mixed", self.G, "einstein")):
+            components = {}
+            for a in range(self.n):
+                for b in range(self.n):
+                    value = self.A.zero
+                    for c in range(self.n):
+                        if not self.is_zero(self.ginv[a][c]) and not self.is_zero(lowered[c][b]):
+                            value = value + self.ginv[a][c] * lowered[c][b]
+                    if not self.is_zero(value):
+                        components[self.key(a, b)] = self.expr(value)
+            self.results[name] = components
+            q = QUANTITIES[name]
+            self.record(id=name, kind="raising",
+                        annotation=f"The {q.words}, keyed (a, b) (components not listed vanish).",
+                        formula=q.formula, uses=("inverse_metric", summary), result=components)
 
     # verdicts -----------------------------------------------------------
     def _verdict(self, name: str, statement: str, residues: dict, uses: tuple, extra: str = "") -> Verdict:
@@ -763,7 +737,7 @@ class _Chain:
                 verdict = Verdict(statement, True,
                                   f"each of the {len(residues)} components checked vanishes ({how})" + extra)
         self.results.setdefault("verdicts", {})[name] = {"holds": verdict.holds, "evidence": verdict.evidence}
-        self.record(id=f"verdict/{name}", kind="verdict", annotation=statement, formula=FORMULAS[name],
+        self.record(id=f"verdict/{name}", kind="verdict", annotation=statement, formula=formula(name),
                     uses=uses, result=verdict)
         return verdict
 
@@ -812,7 +786,7 @@ class _Chain:
         self.record(id="riemann_lowered", kind="lowering",
                     annotation="Riemann tensor with all indices down, R_abcd = g_ae R^e_bcd, for a < b, c < d, "
                                "(a,b) <= (c,d); the others follow from R_abcd = -R_bacd = -R_abdc = R_cdab.",
-                    formula=FORMULAS["riemann_lowered"], uses=("metric", "riemann"), result=comps)
+                    formula=formula("riemann_lowered"), uses=("metric", "riemann"), result=comps)
         self.record(id="riemann_lowered/pair_symmetry", kind="check",
                     annotation="Pair exchange symmetry R_abcd = R_cdab holds for the lowered components.",
                     formula=r"R_{abcd} - R_{cdab} = 0", uses=("riemann_lowered",),
@@ -874,7 +848,7 @@ class _Chain:
         self.record(id="kretschmann", kind="invariant",
                     annotation="Kretschmann scalar: the full contraction of the Riemann tensor with itself, "
                                "summed as 4 times the sum over a < b and c < d.",
-                    formula=FORMULAS["kretschmann"], uses=("riemann_lowered", "inverse_metric"),
+                    formula=formula("kretschmann"), uses=("riemann_lowered", "inverse_metric"),
                     result=self.results["kretschmann"], params={"independent_lowered_components": len(indices)})
 
     def weyl(self) -> None:
@@ -883,11 +857,11 @@ class _Chain:
             reason = ("in two dimensions every metric is locally conformally flat (isothermal coordinates exist)"
                       if n == 2 else
                       "in three dimensions the Weyl tensor vanishes identically and conformal flatness is decided by "
-                      "the Cotton tensor, which stepper does not compute; not decided")
+                      "the Cotton tensor, which stepper does not compute")
             verdict = Verdict("Conformally flat.", True if n == 2 else None, reason)
             self.results.setdefault("verdicts", {})["conformally_flat"] = {"holds": verdict.holds, "evidence": reason}
             self.record(id="verdict/conformally_flat", kind="verdict", annotation=verdict.statement,
-                        formula=FORMULAS["conformally_flat"], uses=("metric",), result=verdict)
+                        formula=formula("conformally_flat"), uses=("metric",), result=verdict)
             return
         Rs = self.R_scalar
         comps = {}
@@ -906,7 +880,7 @@ class _Chain:
         self.record(id="weyl", kind="tensor",
                     annotation="Weyl tensor with all indices down, for a < b, c < d, (a,b) <= (c,d); "
                                "components not listed vanish.",
-                    formula=FORMULAS["weyl"], uses=("riemann_lowered", "ricci", "scalar", "metric"), result=comps)
+                    formula=formula("weyl"), uses=("riemann_lowered", "ricci", "scalar", "metric"), result=comps)
         self._verdict("conformally_flat", "Conformally flat: the Weyl tensor vanishes.", residues, ("weyl",))
 
     def numeric_verification(self) -> None:

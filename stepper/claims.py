@@ -9,7 +9,7 @@ A claims file is TOML::
                                  #   (C1, C2, ... are always known)
 
     [[claim]]
-    quantity = "christoffel"     # one of QUANTITIES
+    quantity = "christoffel"     # a claimable quantity of stepper.quantities
     component = "r,t,t"          # coordinate names; omit for scalars; for a pressure the
                                  # frame direction, for ansatz_solution the unknown function
     value = "M*(r - 2*M)/r^3"    # stepper's plain syntax ...
@@ -43,32 +43,7 @@ from .latex_input import parse_latex
 from .metric import Metric
 from .metricfile import load_metric, read_toml
 from .parse import Vocabulary, check_identifier, parse_expression
-
-#: Quantity name -> number of indices (0 for a scalar).
-QUANTITIES = {
-    "determinant": 0,
-    "inverse_metric": 2,
-    "christoffel": 3,
-    "riemann": 4,
-    "riemann_lowered": 4,
-    "ricci": 2,
-    "scalar": 0,
-    "einstein": 2,
-    "kretschmann": 0,
-    "weyl": 4,
-    "stress_energy": 2,
-    "stress_energy_mixed": 2,
-    "stress_energy_up": 2,
-    "frame_stress_energy": 2,
-    "frame_ricci": 2,
-    "energy_density": 0,
-    "pressure": 1,
-    "geodesic_acceleration": 1,
-    "ansatz_solution": 1,
-}
-
-#: Quantities whose component names a function of the metric rather than coordinates.
-FUNCTION_COMPONENTS = frozenset({"ansatz_solution"})
+from .quantities import claimable
 
 #: Integration constants a claim may always use (the names stepper gives them).
 DEFAULT_CONSTANTS = tuple(f"C{k}" for k in range(1, 10))
@@ -169,16 +144,17 @@ def read_claim(number: int, entry: dict, metric: Metric, vocabulary: Vocabulary 
     if unknown:
         raise InputError(f"{where}: unknown key '{unknown[0]}' (known keys: {', '.join(CLAIM_KEYS)})")
     quantity = entry.get("quantity")
-    if quantity not in QUANTITIES:
-        raise InputError(f"{where}: quantity must be one of {', '.join(QUANTITIES)}, not {quantity!r}")
-    rank = QUANTITIES[quantity]
+    known = claimable()
+    if quantity not in known:
+        raise InputError(f"{where}: quantity must be one of {', '.join(known)}, not {quantity!r}")
+    rank = known[quantity].rank
     component = entry.get("component", "")
     if not isinstance(component, str):
         raise InputError(f"{where}: component must be text such as \"r,t,t\"")
     parts = [p.strip() for p in component.split(",")] if component.strip() else []
     if len(parts) != rank:
         raise InputError(f"{where}: {quantity} needs {rank} coordinate names in 'component', got {len(parts)}")
-    if quantity in FUNCTION_COMPONENTS:
+    if known[quantity].positions == "n":  # the component names a free function
         functions = [f.func.__name__ for f in metric.functions]
         if parts and parts[0] not in functions:
             raise InputError(f"{where}: '{parts[0]}' in component is not a declared function "

@@ -1,4 +1,4 @@
-"""Command line: ``stepper derive FILE [-o DIR]``.
+"""Command line: ``stepper derive FILE``, ``stepper audit CLAIMS``, ``stepper render TRACE``.
 
 Bad input prints one line, ``stepper: error: ...``, and exits with status 2;
 nothing is written unless the whole derivation succeeded.
@@ -7,13 +7,16 @@ nothing is written unless the whole derivation succeeded.
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 import time
 from pathlib import Path
 from typing import Sequence
 
-from . import __version__
-from .chain import Derivation, TimeLimitReached, default_jobs, derive
+from .version import __version__
+from .chain import TimeLimitReached, default_jobs, derive
+from .quantities import VERDICTS
+from .record import CONDITION_WORDS, HOLDS_WORDS, Derivation
 from .errors import InputError
 from .metricfile import load_metric
 from .trace import write_atomically
@@ -49,6 +52,17 @@ def build_parser() -> argparse.ArgumentParser:
                     "wrong claim. Exit status 0 only when every claim agrees.")
     check.add_argument("file", metavar="CLAIMS", help="claims file (TOML)")
     _add_output_options(check)
+    render = commands.add_parser(
+        "render", help="write the reports and the notebook of a saved trace.json, computing nothing",
+        description="Read a trace.json written by 'stepper derive' or 'stepper audit' and write its outputs "
+                    "again (the same bytes as the run that wrote it, unless templates are given) into DIR "
+                    "(default: the trace's own folder).")
+    render.add_argument("file", metavar="TRACE", help="trace.json written by stepper")
+    render.add_argument("-o", "--output", metavar="DIR", help="folder for the outputs (default: the trace's folder)")
+    render.add_argument("--quiet", action="store_true", help="print nothing but errors")
+    render.add_argument("--formats", metavar="LIST", help="comma-separated outputs to write (as for derive)")
+    render.add_argument("--templates", metavar="DIR",
+                        help="folder of templates that override the project's templates/ (same file names)")
     return parser
 
 
@@ -109,18 +123,18 @@ def summary(derivation: Derivation, out_dir: Path, written: Sequence[str]) -> st
         deviations = ", ".join(f"{q} {v}" for q, v in numeric["deviations"].items())
         lines.append(f"  numeric verification {word}: largest relative deviations {deviations} "
                      f"at {len(numeric['points'])} random points")
-    labels = {"ricci_flat": "Ricci-flat", "einstein_space": "Einstein manifold",
-              "constant_curvature": "constant curvature", "conformally_flat": "conformally flat",
-              "bianchi": "contracted Bianchi identity", "trace_free": "trace-free stress-energy",
-              "perfect_fluid": "perfect fluid at rest in the frame"}
     for key, verdict in derivation.results.get("verdicts", {}).items():
-        word = {True: "yes", False: "no", None: "undecided"}[verdict["holds"]]
+        word = HOLDS_WORDS[verdict["holds"]]
         evidence = verdict["evidence"]
         if len(evidence) > 110:
             evidence = evidence[:107] + "..."
-        lines.append(f"  {labels.get(key, key)}: {word} ({evidence})")
+        fluid = derivation.results.get("perfect_fluid") if key == "perfect_fluid" and verdict["holds"] else None
+        if fluid and "vacuum" not in evidence:
+            evidence += f"; density rho = {fluid['density']}, pressure p = {fluid['pressure']}"
+        lines.append(f"  {VERDICTS[key].label}: {word} ({evidence})")
     lines += _matter_lines(derivation.results)
-    lines.append(f"  {len(derivation.steps)} steps recorded in {derivation.seconds:.2f} s")
+    lines.append(f"  {len(derivation.steps)} steps recorded" +
+                 (f" in {derivation.seconds:.2f} s" if derivation.seconds else " (read from a saved trace)"))
     lines.append(f"  written to {out_dir}: {', '.join(written) if written else 'nothing'}")
     return "\n".join(lines)
 
@@ -143,7 +157,7 @@ def _matter_lines(results: dict) -> list[str]:
     if frame and not frame.get("built"):
         lines.append(f"  frame: {frame.get('reason')}")
     for name, row in results.get("energy_conditions", {}).items():
-        word = {True: "holds", False: "violated", None: "not decided"}[row["holds"]]
+        word = CONDITION_WORDS[row["holds"]]
         lines.append(f"  {name} energy condition: {word} ({_short(row['evidence'])})")
     ansatz = results.get("ansatz")
     if ansatz:
@@ -155,7 +169,7 @@ def _matter_lines(results: dict) -> list[str]:
         if "unsolved" in ansatz:
             lines.append(f"  ansatz not fully solved: {ansatz['unsolved']}")
         if "check" in ansatz:
-            word = {True: "holds", False: "FAILS", None: "not decided"}[ansatz["check"]["holds"]]
+            word = HOLDS_WORDS[ansatz["check"]["holds"]]
             lines.append(f"  solution substituted into every field equation: {word} "
                          f"({_short(ansatz['check']['evidence'])})")
     return lines
@@ -174,17 +188,29 @@ def run_audit(args: argparse.Namespace) -> int:
     return _derive_and_export(args, metric, out_dir, title=title, claims=claims)
 
 
-def _derive_and_export(args: argparse.Namespace, metric, out_dir: Path, title: str = "", claims=None) -> int:
-    # Imported here so that a run writing only trace.json does not pay for templates and TeX.
-    import jinja2
+def run_render(args: argparse.Namespace) -> int:
+    """Write the outputs of a saved trace, computing nothing."""
+    from .trace import read_trace_file
+    trace_path = Path(args.file)
+    out_dir = Path(args.output) if args.output else trace_path.parent
+    formats, templates = _output_options(args, out_dir)
+    record = read_trace_file(trace_path)
+    status = 1 if "audit" in record.results and not record.results["audit"]["all_agree"] else 0
+    return _export_and_write(args, record, out_dir, formats, templates, status)
 
-    from .exporters import EXPORTERS, TexFailed, TexMissing
+
+def _output_options(args: argparse.Namespace, out_dir: Path) -> tuple[list[str], list[Path]]:
     formats = _formats(args.formats)
     if out_dir.exists() and not out_dir.is_dir():
         raise InputError(f"output folder {out_dir} exists and is not a folder")
     templates = [Path(args.templates)] if args.templates else []
     if templates and not templates[0].is_dir():
         raise InputError(f"template folder {templates[0]} does not exist")
+    return formats, templates
+
+
+def _derive_and_export(args: argparse.Namespace, metric, out_dir: Path, title: str = "", claims=None) -> int:
+    formats, templates = _output_options(args, out_dir)
     if args.jobs is not None and args.jobs < 1:
         raise InputError("--jobs must be at least 1")
     if args.time_limit is not None and args.time_limit <= 0:
@@ -201,15 +227,28 @@ def _derive_and_export(args: argparse.Namespace, metric, out_dir: Path, title: s
     if claims is not None:
         from .audit import audit, record_audit
         verdicts, earliest = audit(derivation, claims)
-        record_audit(derivation, title, verdicts, earliest)
+        derivation = record_audit(derivation, title, verdicts, earliest)
         if not derivation.results["audit"]["all_agree"]:
             status = 1
+    return _export_and_write(args, derivation, out_dir, formats, templates, status)
+
+
+def _export_and_write(args: argparse.Namespace, derivation: Derivation, out_dir: Path, formats: list[str],
+                      templates: list[Path], status: int) -> int:
+    """Write the asked outputs of a derivation, all made from its trace as ``stepper render`` would."""
+    # Imported here so that a run writing only trace.json does not pay for templates and TeX.
+    import jinja2
+
+    from .exporters import EXPORTERS, TexFailed, TexMissing
+    from .trace import load_trace, trace_json
+    text = trace_json(derivation)
+    record = load_trace(text, validate=False)  # every exporter reads what the trace holds, nothing else
     contents: dict[str, str | bytes] = {}
     problems: list[str] = []
     for name in formats:
         exporter = EXPORTERS[name](templates)
         try:
-            contents[exporter.file_name] = exporter.export(derivation)
+            contents[exporter.file_name] = text if name == "trace" else exporter.export(record)
         except TexMissing as err:
             problems.append(f"stepper: warning: no report.pdf: {err}")
             status = 1 if args.formats else status
@@ -235,7 +274,7 @@ def _derive_and_export(args: argparse.Namespace, metric, out_dir: Path, title: s
         written.append(file_name)
     if not args.quiet:
         print(summary(derivation, out_dir, written))
-        if claims is not None:
+        if "audit" in derivation.results:
             print(audit_summary(derivation))
     numeric = derivation.results.get("numeric_verification", {})
     if numeric and numeric["passed"] is False:
@@ -290,11 +329,15 @@ def main(argv: Sequence[str] | None = None) -> int:
         parser.print_help()
         return 2
     try:
-        return run_audit(args) if args.command == "audit" else run_derive(args)
+        return {"audit": run_audit, "render": run_render}.get(args.command, run_derive)(args)
     except InputError as err:
         sys.stderr.write(f"\nstepper: error: {err.message}\n" if sys.stderr.isatty() else
                          f"stepper: error: {err.message}\n")
         return 2
+    except BrokenPipeError:  # the reader of our output went away (stepper ... | head): stop quietly
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+        return 141
     except KeyboardInterrupt:
         sys.stderr.write("stepper: interrupted; nothing was written\n")
         return 130

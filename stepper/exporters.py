@@ -22,7 +22,7 @@ import tempfile
 from pathlib import Path
 from typing import Sequence
 
-from .chain import Derivation
+from .record import Derivation
 from .trace import trace_json
 
 def _project_templates() -> Path:

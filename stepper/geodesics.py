@@ -16,7 +16,7 @@ from __future__ import annotations
 import sympy
 
 from .algebra import printer_stable
-from .metric import OrbitRequest
+from .record import OrbitRequest
 
 FORMULA = (r"\frac{dx^a}{d\tau} = u^a,\qquad \frac{du^a}{d\tau} = -\Gamma^a_{bc}\, u^b u^c")
 

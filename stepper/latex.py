@@ -21,6 +21,8 @@ from pylatex.utils import escape_latex
 from sympy.core.function import AppliedUndef
 from sympy.printing.latex import LatexPrinter
 
+from .quantities import QUANTITIES
+
 #: Results whose LaTeX is shorter than this go into a display equation as is.
 SHORT_LATEX = 90
 #: Denominators longer than this are written as a factor with exponent -1.
@@ -211,60 +213,37 @@ def _trig_normal(expr: sympy.Expr) -> sympy.Expr:
 
 
 #: LaTeX head and index placement per quantity: (symbol, number of upper indices).
-_COMPONENT_SYMBOLS = {
-    "christoffel": (r"\Gamma", 1),
-    "riemann": ("R", 1),
-    "riemann_lowered": ("R", 0),
-    "weyl": ("C", 0),
-    "ricci": ("R", 0),
-    "ricci_by_trace_identity": ("R^{(2)}", 0),
-    "einstein": ("G", 0),
-    "metric": ("g", 0),
-    "inverse_metric": ("g", 2),
-    "stress_energy": ("T", 0),
-    "stress_energy_mixed": ("T", 1),
-    "stress_energy_up": ("T", 2),
-    "field_equation": ("E", 0),
-}
-
-#: Components in the orthonormal frame: indices in parentheses, named after coordinates.
-_FRAME_SYMBOLS = {
-    "frame_stress_energy": "T",
-    "frame_ricci": "R",
-    "frame_riemann": "R",
-}
-
-
 def frame_index(name: str, writer: ExpressionWriter) -> str:
     """A frame index named after a coordinate, e.g. (\theta)."""
     return "{(" + writer.symbol(name) + ")}"
 
 
 def component_symbol(quantity: str, names: Sequence[str], writer: ExpressionWriter) -> str:
-    """The LaTeX symbol of a component, e.g. Gamma^r_{tt} for ("christoffel", ["r", "t", "t"])."""
-    if quantity in _FRAME_SYMBOLS:
-        return _FRAME_SYMBOLS[quantity] + "_{" + "".join(frame_index(n, writer) for n in names) + "}"
-    if quantity == "pressure":
-        return "p_" + frame_index(names[0], writer)
-    if quantity == "energy_density":
-        return r"\rho"
-    if quantity == "geodesic_acceleration":
+    """The LaTeX symbol of a component, e.g. Gamma^r_{tt} for ("christoffel", ["r", "t", "t"]), from the
+    quantity's symbol and index positions in the registry."""
+    q = QUANTITIES[quantity]
+    if q.positions == "v":  # du^a/dtau
         velocity = writer.velocities.get(names[0]) or writer.symbol(f"u_{names[0]}")
         return r"\frac{d" + velocity + r"}{d\tau}"
-    head, upper = _COMPONENT_SYMBOLS[quantity]
+    if q.in_frame and len(names) == 1:
+        return q.symbol + "_" + frame_index(names[0], writer)
+    if q.in_frame:
+        return q.symbol + "_{" + "".join(frame_index(n, writer) for n in names) + "}"
+    if not names:
+        return q.symbol
     tex = ["{" + writer.symbol(n) + "}" for n in names]
-    up, down = "".join(tex[:upper]), "".join(tex[upper:])
+    up, down = "".join(tex[:q.upper]), "".join(tex[q.upper:])
     if not down:
-        return rf"{head}^{{{up}}}"
+        return rf"{q.symbol}^{{{up}}}"
     if not up:
-        return rf"{head}_{{{down}}}"
-    spacer = "" if head == r"\Gamma" else "{}"  # R^a{}_{bcd}: the lower indices start after the upper ones
-    return rf"{head}^{{{up}}}{spacer}_{{{down}}}"
+        return rf"{q.symbol}_{{{down}}}"
+    spacer = "{}" if q.staggered else ""  # R^a{}_{bcd}: the lower indices start after the upper ones
+    return rf"{q.symbol}^{{{up}}}{spacer}_{{{down}}}"
 
 
 def has_component_symbol(quantity: str) -> bool:
-    return quantity in _COMPONENT_SYMBOLS or quantity in _FRAME_SYMBOLS or quantity in (
-        "pressure", "energy_density", "geodesic_acceleration")
+    q = QUANTITIES.get(quantity)
+    return q is not None and q.positions != "n" and quantity != "metric_derivatives"
 
 
 def mapping_lines(mapping: Mapping[str, sympy.Expr], quantity: str, writer: ExpressionWriter) -> list[tuple[str, bool]]:

@@ -33,23 +33,16 @@ import mpmath
 import sympy
 
 from .algebra import printer_stable
-from .metric import MatterRequest
-from .tracer import Verdict
+from .quantities import formula
+from .record import MatterRequest
+from .record import Decision, Method, Verdict
 
 FORMULAS = {
     "field_equations": r"G_{ij} + \Lambda g_{ij} = \kappa T_{ij},\qquad \kappa = \frac{8\pi G}{c^4}",
-    "stress_energy": r"T_{ij} = \frac{1}{\kappa}\left(G_{ij} + \Lambda g_{ij}\right)",
-    "stress_energy_mixed": r"T^i{}_j = g^{ik} T_{kj}",
-    "stress_energy_up": r"T^{ij} = g^{ik} g^{jl} T_{kl}",
-    "trace_free": r"T = T^i{}_i = 0",
     "frame": (r"e_{(0)}{}^i = \frac{-g^{ti}}{\sqrt{-g^{tt}}},\quad e_{(k)} = \frac{w_{(k)}}{\sqrt{g(w_{(k)}, w_{(k)})}},"
               r"\quad w_{(k)} = \partial_k - \sum_{m<k} \frac{g(\partial_k, w_{(m)})}{g(w_{(m)}, w_{(m)})} w_{(m)}"),
     "frame_check": r"g_{ij}\, e_{(a)}{}^i e_{(b)}{}^j = \eta_{(a)(b)} = \operatorname{diag}(-1, 1, \dots, 1)",
-    "frame_stress_energy": r"T_{(a)(b)} = e_{(a)}{}^i e_{(b)}{}^j T_{ij}",
-    "frame_ricci": r"R_{(a)(b)} = e_{(a)}{}^i e_{(b)}{}^j R_{ij}",
-    "frame_riemann": r"R_{(a)(b)(c)(d)} = e_{(a)}{}^i e_{(b)}{}^j e_{(c)}{}^k e_{(d)}{}^l R_{ijkl}",
     "density_and_pressures": r"\rho = T_{(0)(0)},\qquad p_{(k)} = T_{(k)(k)}",
-    "perfect_fluid": r"T_{ij} = (\rho + p)\, u_i u_j + p\, g_{ij}",
     "null": r"\rho + p_{(k)} \ge 0",
     "weak": r"\rho \ge 0,\quad \rho + p_{(k)} \ge 0",
     "strong": r"\rho + p_{(k)} \ge 0,\quad (n-3)\rho + \textstyle\sum_k p_{(k)} \ge 0",
@@ -149,7 +142,7 @@ class _Matter:
                 lam_tex = "" if self.lam == 0 else f" + {sympy.latex(self.lam)}\\, g_{{{t[i]}{t[j]}}}"
                 c.record(id=f"stress_energy/{key}", kind="component",
                          annotation=f"Stress-energy component T_({self.name(i)} {self.name(j)}) required by the metric",
-                         formula=FORMULAS["stress_energy"], uses=tuple(uses), result=value,
+                         formula=formula("stress_energy"), uses=tuple(uses), result=value,
                          params={"quantity": "stress_energy", "indices": key},
                          substituted=f"T_{{{t[i]}{t[j]}}} = \\frac{{1}}{{{kappa_tex}}}\\left(G_{{{t[i]}{t[j]}}}{lam_tex}\\right)")
                 components[key] = value
@@ -158,7 +151,7 @@ class _Matter:
         c.results["stress_energy"] = dict(sorted(components.items(), key=lambda kv: c._order(kv[0])))
         c.record(id="stress_energy", kind="summary",
                  annotation="Stress-energy tensor with indices down (components not listed vanish).",
-                 formula=FORMULAS["stress_energy"],
+                 formula=formula("stress_energy"),
                  uses=tuple(s.id for s in c.tracer.steps if s.id.startswith("stress_energy/")) or ("field_equations",),
                  result=c.results["stress_energy"])
 
@@ -170,22 +163,23 @@ class _Matter:
         up = [[sum((mixed[i][k] * ginv[k][j] for k in range(n) if not c.is_zero(ginv[k][j])), A.zero)
                for j in range(n)] for i in range(n)]
         self.mixed = mixed
-        for name, table, formula, what in (
-                ("stress_energy_mixed", mixed, FORMULAS["stress_energy_mixed"],
+        for name, table, general, what in (
+                ("stress_energy_mixed", mixed, formula("stress_energy_mixed"),
                  "Stress-energy tensor with the first index raised, T^i_j = g^ik T_kj, keyed 'i,j'"),
-                ("stress_energy_up", up, FORMULAS["stress_energy_up"],
+                ("stress_energy_up", up, formula("stress_energy_up"),
                  "Stress-energy tensor with both indices raised, T^ij = g^ik g^jl T_kl")):
             comps = {c.key(i, j): self.physical(table[i][j]) for i in range(n) for j in range(n)
                      if not c.is_zero(table[i][j])}
             c.results[name] = comps
             c.record(id=name, kind="raising", annotation=what + " (components not listed vanish).",
-                     formula=formula, uses=("stress_energy", "inverse_metric"), result=comps)
+                     formula=general, uses=("stress_energy", "inverse_metric"), result=comps)
 
     def trace_free(self) -> None:
         c, n = self.c, self.n
         trace = sum((self.mixed[i][i] for i in range(n)), self.A.zero)
         c.results["stress_energy_trace"] = self.physical(trace)
         test = self.A.zero_test(trace)
+        zero_test = test.evidence or ""
         if test.vanishes is False:
             verdict = Verdict("", False, f"the trace T^i_i = {self.physical(trace)} is not zero")
         elif test.vanishes:
@@ -195,8 +189,9 @@ class _Matter:
         statement = "Trace-free stress-energy (as for an electromagnetic field in four dimensions): T^i_i = 0."
         verdict = Verdict(statement, verdict.holds, verdict.evidence)
         c.results.setdefault("verdicts", {})["trace_free"] = {"holds": verdict.holds, "evidence": verdict.evidence}
-        c.record(id="verdict/trace_free", kind="verdict", annotation=statement, formula=FORMULAS["trace_free"],
-                 uses=("stress_energy_mixed",), result=verdict, params={"trace": self.physical(trace)})
+        c.record(id="verdict/trace_free", kind="verdict", annotation=statement, formula=formula("trace_free"),
+                 uses=("stress_energy_mixed",), result=verdict,
+                 params={"trace": self.physical(trace), "zero_test": zero_test})
 
     # the frame ------------------------------------------------------------
     def inner(self, u: list, v: list):
@@ -286,7 +281,8 @@ class _Matter:
                  annotation="The frame is orthonormal: g(e_(a), e_(b)) = diag(-1, 1, ..., 1).",
                  formula=FORMULAS["frame_check"], uses=("frame",),
                  result=c.identity_verdict("g(e_a, e_b) = eta_ab", residues,
-                                           "g(w_a, w_b) - eta_ab N_a for the unnormalised vectors"))
+                                           "g(w_a, w_b) - eta_ab N_a for the unnormalised vectors"),
+                 params={"residues": "unnormalised frame", "count": len(residues)})
         return True
 
     def norm_signs_or_reason(self, norms: list, labels: list) -> tuple[str, dict]:
@@ -367,7 +363,7 @@ class _Matter:
         c.results["frame_stress_energy"] = comps
         c.record(id="frame_stress_energy", kind="frame components",
                  annotation="Stress-energy tensor in the orthonormal frame (components not listed vanish).",
-                 formula=FORMULAS["frame_stress_energy"], uses=("frame", "stress_energy"), result=comps)
+                 formula=formula("frame_stress_energy"), uses=("frame", "stress_energy"), result=comps)
 
     def frame_key(self, *frame_indices: int) -> str:
         return ",".join(self.name(self.labels[a]) for a in frame_indices)
@@ -378,7 +374,7 @@ class _Matter:
         c.results["frame_ricci"] = ricci
         c.record(id="frame_ricci", kind="frame components",
                  annotation="Ricci tensor in the orthonormal frame (components not listed vanish).",
-                 formula=FORMULAS["frame_ricci"], uses=("frame", "ricci"), result=ricci)
+                 formula=formula("frame_ricci"), uses=("frame", "ricci"), result=ricci)
         riemann = {}
         pairs = [(a, b) for a in range(n) for b in range(a + 1, n)]
         for p, (a, b) in enumerate(pairs):
@@ -391,7 +387,7 @@ class _Matter:
         c.record(id="frame_riemann", kind="frame components",
                  annotation="Riemann tensor in the orthonormal frame, for a < b, c < d, (a,b) <= (c,d) in frame order; "
                             "the others follow from the symmetries of R_abcd (components not listed vanish).",
-                 formula=FORMULAS["frame_riemann"], uses=("frame", "riemann_lowered"), result=riemann)
+                 formula=formula("frame_riemann"), uses=("frame", "riemann_lowered"), result=riemann)
 
     def density_and_pressures(self) -> None:
         c, n = self.c, self.n
@@ -422,42 +418,53 @@ class _Matter:
         c, n = self.c, self.n
         statement = ("Perfect fluid at rest in the frame: T_ij = (rho + p) u_i u_j + p g_ij with u the "
                      "frame's 4-velocity e_(0).")
+        params: dict = {}
         if not self.frame_built:
-            verdict = Verdict(statement, None, "not decided: " + c.results["frame"]["reason"])
+            verdict = Verdict(statement, None, c.results["frame"]["reason"])
         else:
-            residues = {f"T_({self.frame_key(a)})({self.frame_key(b)})": self.F[a, b]
+            residues = {("off-diagonal", self.frame_key(a), self.frame_key(b)): self.F[a, b]
                         for a in range(n) for b in range(a + 1, n)}
-            residues.update({f"p_({self.frame_key(k)}) - p_({self.frame_key(1)})": self.p[k - 1] - self.p[0]
+            residues.update({("pressure difference", self.frame_key(k), self.frame_key(1)): self.p[k - 1] - self.p[0]
                              for k in range(2, n)})
-            verdict = self.residue_verdict(statement, residues)
+            verdict, residue, zero_test = self.residue_verdict(statement, residues)
+            params["checked"] = len(residues)
+            if residue is not None:
+                params["residue"] = {"kind": residue[0], "frame_indices": list(residue[1:])}
+            if zero_test:
+                params["zero_test"] = zero_test
             if verdict.holds:
                 u = c.results["frame"]["vectors"][self.name(self.labels[0])]
                 vacuum = all(c.is_zero(self.S[i][j]) for i in range(n) for j in range(n))
-                velocity = ", ".join(f"u^{x} = {value}" for x, value in u.items())
-                verdict = Verdict(statement, True, (
-                    "trivially: T_ij vanishes (vacuum), a perfect fluid with rho = p = 0" if vacuum else
-                    verdict.evidence + f"; density rho = {self.physical(self.rho)}, pressure p = "
-                    f"{self.physical(self.p[0])}, 4-velocity e_(0): {velocity}"))
+                params["vacuum"] = vacuum
+                if vacuum:
+                    verdict = Verdict(statement, True, "trivially: T_ij vanishes (vacuum), a perfect fluid with "
+                                                       "rho = p = 0")
                 c.results["perfect_fluid"] = {"density": self.physical(self.rho), "pressure": self.physical(self.p[0]),
                                               "velocity": u}
+                params["fluid"] = c.results["perfect_fluid"]
             elif verdict.holds is False:
                 verdict = Verdict(statement, False, verdict.evidence +
                                   "; a fluid moving relative to these observers is not tested")
         c.results.setdefault("verdicts", {})["perfect_fluid"] = {"holds": verdict.holds, "evidence": verdict.evidence}
-        c.record(id="verdict/perfect_fluid", kind="verdict", annotation=statement, formula=FORMULAS["perfect_fluid"],
-                 uses=("density_and_pressures",) if self.frame_built else ("frame",), result=verdict)
+        c.record(id="verdict/perfect_fluid", kind="verdict", annotation=statement, formula=formula("perfect_fluid"),
+                 uses=("density_and_pressures",) if self.frame_built else ("frame",), result=verdict, params=params)
 
-    def residue_verdict(self, statement: str, residues: dict) -> Verdict:
-        undecided = ""
+    def residue_verdict(self, statement: str, residues: dict) -> tuple[Verdict, tuple | None, str]:
+        """(verdict, the residue that decided it or None, the zero test's words when undecided).
+
+        Residues are keyed (kind, frame index, frame index): "off-diagonal" T_(a)(b) or "pressure difference"
+        p_(a) - p_(b)."""
+        undecided = None
         for key, element in residues.items():
             test = self.A.zero_test(element)
             if test.vanishes is False:
-                return Verdict(statement, False, f"{key} is not zero")
-            if test.vanishes is None and not undecided:
-                undecided = f"{key}: {test.evidence}"
-        if undecided:
-            return Verdict(statement, None, undecided)
-        return Verdict(statement, True, f"each of the {len(residues)} conditions checked vanishes exactly")
+                return Verdict(statement, False, f"{residue_label(key)} is not zero"), key, ""
+            if test.vanishes is None and undecided is None:
+                undecided = (key, test.evidence)
+        if undecided is not None:
+            key, words = undecided
+            return Verdict(statement, None, f"{residue_label(key)}: {words}"), key, words
+        return Verdict(statement, True, f"each of the {len(residues)} conditions checked vanishes exactly"), None, ""
 
     def energy_conditions(self) -> None:
         c, n = self.c, self.n
@@ -469,7 +476,7 @@ class _Matter:
                    "the stress-energy tensor is not diagonal in the frame, so its energy density and principal "
                    "pressures are not read off; stepper does not diagonalise it")
             for key, title in names.items():
-                verdict = Verdict(f"{title}: {_inequality_words(key, n)}.", None, f"not decided: {why}")
+                verdict = Verdict(f"{title}: {_inequality_words(key, n)}.", None, why)
                 table[key] = {"holds": None, "evidence": verdict.evidence, "inequalities": {}}
                 c.record(id=f"energy_conditions/{key}", kind="energy condition", annotation=verdict.statement,
                          formula=FORMULAS[key], uses=("frame",), result=verdict, params={"inequalities": {}})
@@ -488,8 +495,7 @@ class _Matter:
         }
         for key, title in names.items():
             if not inequalities[key]:
-                why = ("not decided: the strong condition (T_ab - T g_ab/(n-2)) t^a t^b >= 0 is not defined "
-                       "in two dimensions")
+                why = "the strong condition (T_ab - T g_ab/(n-2)) t^a t^b >= 0 is not defined in two dimensions"
                 verdict = Verdict(f"{title}.", None, why)
                 table[key] = {"holds": None, "evidence": why, "inequalities": {}}
                 c.record(id=f"energy_conditions/{key}", kind="energy condition", annotation=verdict.statement,
@@ -500,13 +506,14 @@ class _Matter:
             outcome: bool | None = True
             first_failure = first_undecided = ""
             for label, element in inequalities[key]:
-                holds, evidence = decider.decide(label, element)
-                rows[label] = {"value": self.physical(element), "holds": holds, "evidence": evidence,
-                               "method": _method(holds, evidence)}
+                decision = decider.decide(label, element)
+                holds, value = decision.holds, self.physical(element)
+                evidence = decision.sentence(value)
+                rows[label] = {"value": value, "holds": holds, "evidence": evidence, "decision": decision.as_data()}
                 if holds is False and not first_failure:
                     first_failure = f"{label} >= 0 fails: {evidence}"
                 if holds is None and not first_undecided:
-                    first_undecided = f"{label} >= 0 is not decided: {evidence}"
+                    first_undecided = f"{label} >= 0 is undecided: {evidence}"
                 if holds is False:
                     outcome = False
                 elif holds is None and outcome is True:
@@ -527,17 +534,10 @@ class _Matter:
         c.results["energy_conditions"] = table
 
 
-def _method(holds: bool | None, evidence: str) -> str:
-    """How an inequality was decided, in one word for programs reading the trace."""
-    if evidence == "it is identically 0":
-        return "identically zero"
-    if evidence.startswith(("non-negative for all values", "negative for all values")):
-        return "declared signs"
-    if holds is False:
-        return "exact point"
-    if " exact points sampled " in evidence:
-        return "sampled"
-    return "undecided"
+def residue_label(key: tuple) -> str:
+    """A perfect-fluid residue in words: T_(a)(b) off the diagonal, or p_(a) - p_(b)."""
+    kind, a, b = key
+    return f"T_({a})({b})" if kind == "off-diagonal" else f"p_({a}) - p_({b})"
 
 
 def _inequality_words(key: str, n: int) -> str:
@@ -584,31 +584,27 @@ class _Decider:
         self.cache: dict = {}
         self._points = None
 
-    def decide(self, label: str, element) -> tuple[bool | None, str]:
+    def decide(self, label: str, element) -> Decision:
         key = self.m.A.pack(element) if hasattr(self.m.A, "pack") else element
         key = repr(key)
         if key not in self.cache:
             self.cache[key] = self._decide(element)
         return self.cache[key]
 
-    def _decide(self, element) -> tuple[bool | None, str]:
+    def _decide(self, element) -> Decision:
         c = self.m.c
         if c.is_zero(element):
-            return True, "it is identically 0"
+            return Decision(Method.IDENTICALLY_ZERO, True)
         expr = sympy.factor(c.expr(element))
         functions = expr.has(sympy.core.function.AppliedUndef)
         numerator, denominator = sympy.fraction(expr)
         signs = _real_functions(numerator * denominator)  # the sign of n/d wherever d != 0
         if signs.is_nonnegative:
-            return True, ("non-negative for all values allowed by the declared signs (sympy's assumptions"
-                          + (", free functions and their derivatives taken as real" if functions else "") + ")")
+            return Decision(Method.DECLARED_SIGNS, True, free_functions=functions)
         if signs.is_negative:
-            return False, ("negative for all values allowed by the declared signs (sympy's assumptions"
-                           + (", free functions and their derivatives taken as real" if functions else "")
-                           + f"): it equals {self.m.physical(element)}")
+            return Decision(Method.DECLARED_SIGNS, False, free_functions=functions)
         if functions:
-            return None, ("it depends on free functions, and its sign is not fixed by the declared signs; "
-                          f"its value is {self.m.physical(element)}")
+            return Decision(Method.FREE_FUNCTIONS, None)
         return self._sample(expr)
 
     def points(self) -> list[tuple[dict, list]]:
@@ -639,17 +635,16 @@ class _Decider:
             return None
         return sympy.lambdify(self.symbols, expr, modules="mpmath")
 
-    def _sample(self, expr: sympy.Expr) -> tuple[bool | None, str]:
+    def _sample(self, expr: sympy.Expr) -> Decision:
         needed = set(expr.free_symbols)
         for N in self.m.N:
             needed |= self.m.c.expr(N).free_symbols
         missing = sorted(s.name for s in needed if s not in self.region)
         if missing:
-            return None, (f"the declared signs do not settle its sign, and [matter.region] gives no range for "
-                          f"{', '.join(missing)} to sample it (with the frame's squared norms) at")
+            return Decision(Method.NO_RANGE, None, missing=tuple(missing))
         points = self.points()
         if not points:
-            return None, "no point of the region lies where the frame exists (every N > 0)"
+            return Decision(Method.NO_POINTS, None)
         evaluate = self.numeric(expr)
         used = 0
         with mpmath.workdps(SAMPLE_DIGITS):
@@ -663,17 +658,11 @@ class _Decider:
                     continue
                 value = expr.subs(point)  # confirm a negative value exactly
                 if value.is_number and value.is_negative:
-                    where = ", ".join(f"{s} = {v}" for s, v in sorted(point.items(), key=lambda kv: kv[0].name)
-                                      if s in expr.free_symbols)
-                    shown = value / self.m.kappa
-                    exact = len(str(shown)) <= 60
-                    return False, (f"at the point {where} of the region it equals "
-                                   f"{shown if exact else sympy.N(shown, 6)} < 0 "
-                                   + ("(exact value)" if exact else "(to 6 digits; its exact value is negative)"))
-        ranges = ", ".join(f"{s} in [{lo}, {hi}]" for s, (lo, hi) in sorted(self.region.items(), key=lambda kv: kv[0].name))
-        return None, (f"the declared signs do not settle its sign; it is >= 0 at all {used} exact points sampled "
-                      f"from {ranges} where the frame exists (evaluated to {SAMPLE_DIGITS} digits): "
-                      "evidence, not proof")
+                    where = {s.name: v for s, v in sorted(point.items(), key=lambda kv: kv[0].name)
+                             if s in expr.free_symbols}
+                    return Decision(Method.EXACT_POINT, False, point=where, value_there=_stable(value / self.m.kappa))
+        region = {s.name: (lo, hi) for s, (lo, hi) in sorted(self.region.items(), key=lambda kv: kv[0].name)}
+        return Decision(Method.SAMPLED, None, points=used, region=region, digits=SAMPLE_DIGITS)
 
 
 def _real_value(function, values: list):

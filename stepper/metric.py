@@ -10,7 +10,7 @@ Python with :meth:`Metric.from_matrix`::
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Iterable, Sequence
 
 import sympy
@@ -18,6 +18,9 @@ from sympy.core.function import AppliedUndef
 
 from .algebra import as_expression, printer_stable
 from .errors import InputError
+from .record import AnsatzRequest, MatterRequest, MetricRecord, OrbitRequest
+
+__all__ = ["AnsatzRequest", "LINE_ELEMENT_CONVENTION", "MatterRequest", "Metric", "OrbitRequest"]
 
 #: How a line element maps to the matrix; printed in every report.
 LINE_ELEMENT_CONVENTION = (
@@ -27,92 +30,8 @@ LINE_ELEMENT_CONVENTION = (
 
 
 @dataclass(frozen=True)
-class MatterRequest:
-    """Ask for the stress-energy tensor the metric requires, G_ij + Lambda g_ij = kappa T_ij.
-
-    ``units`` is "geometric" (G = c = 1, kappa = 8 pi) or "physical"
-    (kappa = 8 pi G / c^4 with ``newton`` and ``light`` the symbols G and c).
-    ``time`` is the coordinate whose level sets the frame's observers are
-    normal to.  ``region`` bounds the symbols for sampling the energy
-    conditions the algebra cannot decide: (symbol, low, high), exact.
-    """
-
-    time: sympy.Symbol
-    units: str = "geometric"
-    cosmological_constant: sympy.Expr = sympy.Integer(0)
-    newton: sympy.Symbol | None = None
-    light: sympy.Symbol | None = None
-    region: tuple[tuple[sympy.Symbol, sympy.Expr, sympy.Expr], ...] = ()
-
-    @property
-    def kappa(self) -> sympy.Expr:
-        """The coupling constant kappa = 8 pi G / c^4 (8 pi in geometric units)."""
-        if self.units == "physical":
-            return 8 * sympy.pi * self.newton / self.light**4
-        return 8 * sympy.pi
-
-
-@dataclass(frozen=True)
-class AnsatzRequest:
-    """Solve G_ij + Lambda g_ij = 0 for the free functions ``unknowns`` of the metric."""
-
-    unknowns: tuple[sympy.Expr, ...]
-    cosmological_constant: sympy.Expr = sympy.Integer(0)
-
-
-@dataclass(frozen=True)
-class OrbitRequest:
-    """One geodesic to integrate numerically in the notebook.
-
-    ``values`` gives every parameter a number, ``start`` every coordinate,
-    ``velocity`` dx/dtau for every coordinate except ``time`` (whose rate
-    follows from g_ab u^a u^b = -1 for "timelike", 0 for "null"), and
-    ``span`` the proper time or affine parameter to integrate over.
-    """
-
-    time: sympy.Symbol
-    kind: str
-    values: tuple[tuple[sympy.Symbol, sympy.Expr], ...]
-    start: tuple[tuple[sympy.Symbol, sympy.Expr], ...]
-    velocity: tuple[tuple[sympy.Symbol, sympy.Expr], ...]
-    span: sympy.Expr
-
-
-@dataclass(frozen=True)
-class Metric:
-    """An n-dimensional metric g_ij in coordinates x^i (n >= 2)."""
-
-    coordinates: tuple[sympy.Symbol, ...]
-    matrix: sympy.ImmutableMatrix
-    title: str = "Untitled metric"
-    parameters: tuple[sympy.Symbol, ...] = ()
-    functions: tuple[sympy.Expr, ...] = ()
-    abbreviations: tuple[tuple[str, sympy.Expr], ...] = ()
-    line_element: str | None = None
-    notes: str = ""
-    assumptions: tuple[tuple[str, str], ...] = field(default=())
-    matter: MatterRequest | None = None
-    ansatz: AnsatzRequest | None = None
-    orbit: OrbitRequest | None = None
-
-    @property
-    def extra_symbols(self) -> tuple[sympy.Symbol, ...]:
-        """Symbols the requests bring in beyond the matrix (Lambda, G, c)."""
-        found: set = set()
-        for request in (self.matter, self.ansatz):
-            if request is not None:
-                found |= request.cosmological_constant.free_symbols
-        if self.matter is not None and self.matter.units == "physical":
-            found |= {self.matter.newton, self.matter.light}
-        return tuple(sorted(found - set(self.coordinates), key=lambda s: s.name))
-
-    @property
-    def dimension(self) -> int:
-        return len(self.coordinates)
-
-    @property
-    def names(self) -> tuple[str, ...]:
-        return tuple(c.name for c in self.coordinates)
+class Metric(MetricRecord):
+    """An n-dimensional metric g_ij in coordinates x^i (n >= 2), as the engine receives it."""
 
     @classmethod
     def from_matrix(cls, coordinates: Sequence[sympy.Symbol], matrix, title: str = "Untitled metric",

@@ -30,6 +30,7 @@ template directories to restyle it without touching this module.
 
 from __future__ import annotations
 
+import ast
 import builtins
 import io
 import keyword
@@ -44,9 +45,11 @@ import sympy
 from sympy.core.function import AppliedUndef
 from sympy.printing.str import StrPrinter
 
-from .algebra import as_expression
-from .chain import Derivation
-from .tracer import Step, Verdict
+from .record import as_expression
+from .record import Derivation
+from .quantities import QUANTITIES
+from .runtime import MODULES as RUNTIME_MODULES, inlined_source
+from .record import ASSUMPTION_WORDS, HOLDS_WORDS, Decision, Method, Step, Verdict
 
 #: The project's own templates; user directories given to :func:`notebook_text` come first.
 from .exporters import PROJECT_TEMPLATES  # noqa: E402  (one place decides where templates live)
@@ -56,44 +59,28 @@ KERNELSPEC = {"display_name": "Python 3", "language": "python", "name": "python3
 _IDENTIFIER = re.compile(r"[A-Za-z][A-Za-z0-9_]*")
 _STEP_ID = re.compile(r"[A-Za-z0-9_/,:]+")
 
-#: Assumption words of a metric file -> keyword arguments of sympy.Symbol.
-_ASSUMPTION_KEYWORDS = {
-    "positive": ("real", "positive"),
-    "negative": ("real", "negative"),
-    "nonnegative": ("real", "nonnegative"),
-    "nonpositive": ("real", "nonpositive"),
-    "nonzero": ("real", "nonzero"),
-    "real": ("real",),
-    "complex": (),
-}
+def _runtime_names() -> frozenset[str]:
+    """Every name the inlined runtime helpers define at top level (functions and tables)."""
+    names = set()
+    for module in RUNTIME_MODULES:
+        for node in ast.parse(inlined_source(module)).body:
+            if isinstance(node, ast.FunctionDef):
+                names.add(node.name)
+            elif isinstance(node, ast.Assign):
+                names.update(n.id for target in node.targets for n in ast.walk(target) if isinstance(n, ast.Name))
+    return frozenset(names)
 
-#: Names the notebook defines itself; a metric symbol with one of these names
-#: gets a different Python variable (its sympy name is unchanged).
-_NOTEBOOK_NAMES = frozenset("""
-    sp itertools coordinates index_names coordinate dimension component index_pairs riemann_index_sets
-    every_index metric_matrix fill_lowered check_table check_summary identity sectional_curvature
-    einstein_constant vanishes check verdict metric metric_derivatives metric_determinant inverse_metric
-    christoffel christoffel_trace log_sqrt_det riemann ricci ricci_second_route scalar_curvature einstein
-    riemann_lowered kretschmann_scalar weyl christoffel_from_metric riemann_from_christoffel ricci_from_riemann
-    ricci_from_trace_identity scalar_from_ricci einstein_from_ricci lowered_from_riemann kretschmann_from_lowered
-    weyl_from_lowered divergence_of_einstein recorded recorded_holds given residues
-    polynomial_quotient mpmath christoffel_spot_check spot_check_deviation claimed derived claim_agrees
-    opaque_atoms vanishes_with_roots trigonometric_rewrites
-    kappa cosmological_constant stress_energy stress_energy_mixed stress_energy_up stress_energy_trace recorded_trace
-    stress_energy_from_einstein mixed_stress_energy_from_lowered raised_stress_energy_from_lowered inner_product
-    gram_schmidt_frame region_points sign_agrees check_with_root check_frame check_frame_table frame_pairs frame_unnormalised
-    frame_riemann_index_sets frame_contraction frame_broken_at frame_vectors frame_norms frame_order frame_region
-    frame_point recorded_vectors recorded_norms frame_stress_energy frame_ricci frame_riemann energy_density pressures
-    check_density_and_pressures stress_energy_diagonal_in_frame energy_condition_values sign_decides
-    recheck_inequality combined_answer check_inequality_values perfect_fluid_frame_residues perfect_fluid_residues
-    field_equation involves_unknowns cannot_vanish check_nonzero_multiple check_ansatz_equations
-    check_same_solution ordered_key divergence bianchi_coefficients check_dependence check_ode_solution
-    check_rescaling einstein_from_scratch ansatz_equations ansatz_duplicates ansatz_solution ansatz_metric
-    ansatz_unknowns ansatz_constant ansatz_einstein recorded_independent recorded_follows recorded_relations
-    recorded_solution other_branches
-    geodesic_from_christoffel velocity geodesic_acceleration recorded_position np solve_ivp orbit_values
-    orbit_start orbit_rates orbit_time orbit_span orbit_normalisation orbit_tolerance orbit_time_rate
-    integrate_orbit orbit_solution
+
+#: Names the notebook defines itself (the runtime helpers' and those its cells assign); a metric symbol with
+#: one of these names gets a different Python variable (its sympy name is unchanged).
+_NOTEBOOK_NAMES = _runtime_names() | frozenset("""
+    sp itertools mpmath np solve_ivp coordinates index_names coordinate dimension identity given recorded
+    recorded_holds residues claimed derived claim_agrees scalar_curvature einstein_constant sectional_curvature
+    metric_determinant kretschmann_scalar christoffel_spot_check spot_check_deviation kappa cosmological_constant
+    energy_density stress_energy_trace recorded_trace frame_broken_at recorded_vectors recorded_norms
+    ansatz_constant ansatz_einstein ansatz_unknowns other_branches recorded_follows recorded_independent
+    recorded_relations recorded_solution recorded_position integrate_orbit orbit_normalisation orbit_rates
+    orbit_solution orbit_span orbit_start orbit_time orbit_time_rate orbit_tolerance orbit_values
 """.split())
 
 
@@ -255,9 +242,9 @@ class _Source:
         if word is None:
             word = next((w for w in ("positive", "negative", "nonnegative", "nonpositive", "nonzero", "real")
                          if getattr(symbol, f"is_{w}")), "complex")
-        if word not in _ASSUMPTION_KEYWORDS:
+        if word not in ASSUMPTION_WORDS:
             raise NotebookError(f"unknown assumption {word!r} for {symbol.name}")
-        keywords = _ASSUMPTION_KEYWORDS[word]
+        keywords = ASSUMPTION_WORDS[word]
         rebuilt = sympy.Symbol(symbol.name, **{k: True for k in keywords})
         if rebuilt != symbol:
             raise NotebookError(f"the symbol {symbol.name} has assumptions the notebook cannot re-create")
@@ -290,7 +277,13 @@ def _introduced_symbols(derivation: Derivation, known: set) -> list[sympy.Symbol
 
 _NUMBER = re.compile(r"-?[0-9]+(\.[0-9]+)?(e[-+]?[0-9]+)?")
 _LABEL = re.compile(r"[A-Za-z0-9_ +\-*(),]+")
-_ANSWER = {True: "holds", False: "does not hold", None: "undecided"}
+_ANSWER = HOLDS_WORDS
+
+
+def _residue_label(residue: dict) -> str:
+    """The notebook's key of a perfect-fluid residue: T_(a)(b) off the diagonal, or p_(a) - p_(b)."""
+    a, b = residue["frame_indices"]
+    return f"T_({a})({b})" if residue["kind"] == "off-diagonal" else f"p_({a}) - p_({b})"
 
 
 def _label_literal(label: str) -> str:
@@ -310,912 +303,15 @@ def _step_literal(step_id: str) -> str:
 # The setup cell: helpers a referee reads once
 # --------------------------------------------------------------------------
 
-_HELPERS = '''
-def component(table, *indices):
-    """A recorded tensor component, as a sympy object; components that were not recorded are zero."""
-    return sp.sympify(table.get(indices, sp.S.Zero))
+_HELPERS = inlined_source("core")
 
+_MATTER_HELPERS = inlined_source("matter")
 
-def index_pairs(strict=False):
-    """(i, j) with i <= j (i < j when strict) in the coordinate order."""
-    return [(i, j) for position, i in enumerate(index_names)
-            for j in index_names[position + 1 if strict else position:]]
 
+_ANSATZ_HELPERS = inlined_source("ansatz")
 
-def every_index(rank):
-    """Every tuple of `rank` index names."""
-    return list(itertools.product(index_names, repeat=rank))
 
-
-def riemann_index_sets():
-    """(a, b, c, d) with a < b, c < d and (a, b) <= (c, d): the independent components of R_abcd."""
-    pairs = index_pairs(strict=True)
-    return [first + second for position, first in enumerate(pairs) for second in pairs[position:]]
-
-
-def metric_matrix():
-    """The recorded metric as a sympy Matrix."""
-    return sp.Matrix(dimension, dimension,
-                     lambda row, column: component(metric, index_names[row], index_names[column]))
-
-
-def fill_lowered(table, recorded):
-    """Store each recorded R_abcd under every index order R_abcd = -R_bacd = -R_abdc = R_cdab gives."""
-    for (a, b, c, d), value in recorded.items():
-        for (p, q, r, s) in ((a, b, c, d), (c, d, a, b)):
-            table[p, q, r, s] = table[q, p, s, r] = value
-            table[q, p, r, s] = table[p, q, s, r] = -value
-
-
-# ---------------------------------------------------------------------------
-# Deciding whether an expression is zero
-# ---------------------------------------------------------------------------
-
-trigonometric_rewrites = {
-    sp.tan: lambda u: sp.sin(u) / sp.cos(u), sp.cot: lambda u: sp.cos(u) / sp.sin(u),
-    sp.sec: lambda u: 1 / sp.cos(u), sp.csc: lambda u: 1 / sp.sin(u),
-    sp.tanh: lambda u: sp.sinh(u) / sp.cosh(u), sp.coth: lambda u: sp.cosh(u) / sp.sinh(u)}
-
-
-def opaque_atoms(expr):
-    """(expr with roots and other functions replaced by fresh symbols, {root symbol: (base, q)}).
-
-    Every power b**(p/q) with q > 1 becomes g**p for one fresh symbol g per (b, q), which satisfies
-    g**q = b whatever branch the root takes (I is the root of -1); every |x| and every function other than sin, cos, sinh,
-    cosh of a symbol or a free function becomes a fresh symbol with no relation.  A zero found with
-    these symbols (and the relations g**q = b) is a proof; a non-zero is not."""
-    for head, rule in trigonometric_rewrites.items():
-        if expr.has(head):
-            expr = expr.replace(head, rule)
-    fresh, roots = {}, {}
-
-    def root(base, q):
-        key = ("root", base, q)
-        if key not in fresh:
-            fresh[key] = sp.Dummy("root")
-            roots[fresh[key]] = (base, q)
-        return fresh[key]
-
-    def opaque(e):
-        if e is sp.I:
-            return root(sp.S.NegativeOne, 2)
-        if e.is_Atom or isinstance(e, (sp.Derivative, sp.core.function.AppliedUndef)):
-            return e
-        if isinstance(e, (sp.sin, sp.cos, sp.sinh, sp.cosh)) and e.args[0].is_Symbol:
-            return e
-        if e.is_Pow and e.exp.is_Rational and not e.exp.is_Integer:
-            return root(opaque(e.base), e.exp.q) ** e.exp.p
-        if e.is_Add or e.is_Mul or (e.is_Pow and e.exp.is_Integer):
-            return e.func(*[opaque(a) for a in e.args])
-        if e not in fresh:
-            fresh[e] = sp.Dummy("opaque")
-        return fresh[e]
-
-    return opaque(expr), roots
-
-
-def polynomial_quotient(expr, roots=None):
-    """expr as numerator / denominator, two polynomials in fresh symbols, if it is a rational function.
-
-    Each sin(x), cos(x) (sinh(x), cosh(x)) of a symbol x becomes a fresh symbol
-    s, c, and each free function and each of its derivatives a fresh symbol
-    too; so does pi, which is transcendental.  Returns (numerator, denominator,
-    relations) with one relation c**2 + s**2 - 1 (c**2 - s**2 - 1 for the
-    hyperbolic pair) per pair, all three as elements of one polynomial ring
-    with the cosines first in lex order; or None when expr holds anything else
-    (exp, sqrt, log, ...).
-
-    roots, from opaque_atoms, adds a relation g**q - b for each root symbol g
-    whose base b is a polynomial free of other roots, with the roots first in
-    lex order.  The relations' leading terms (g**q, c**2) share no variable, so
-    they form a Groebner basis and the remainder of a division by them is unique.
-    """
-    roots = roots or {}
-    for head, rule in trigonometric_rewrites.items():
-        if expr.has(head):
-            expr = expr.replace(head, rule)
-    bases = {g: base for g, (base, _) in roots.items()}
-    if expr.has(sp.pi) or any(base.has(sp.pi) for base in bases.values()):
-        number = {sp.pi: sp.Dummy("pi", positive=True)}
-        expr = expr.xreplace(number)
-        bases = {g: base.xreplace(number) for g, base in bases.items()}
-    everything = [expr] + list(bases.values())
-    fresh, pairs = {}, []
-    for cosine, sine, sign in ((sp.cos, sp.sin, 1), (sp.cosh, sp.sinh, -1)):
-        for x in sorted({f.args[0] for e in everything for f in e.atoms(cosine, sine)}, key=sp.default_sort_key):
-            if not x.is_Symbol:
-                return None
-            c, s = sp.Dummy("c"), sp.Dummy("s")
-            fresh[cosine(x)], fresh[sine(x)] = c, s
-            pairs.append((c, s, sign))
-    for f in sorted({a for e in everything for a in e.atoms(sp.Derivative, sp.core.function.AppliedUndef)},
-                    key=sp.default_sort_key):
-        fresh[f] = sp.Dummy("f")
-    plain = expr.xreplace(fresh)
-    bases = {g: base.xreplace(fresh) for g, base in bases.items()}
-    cosines, sines = [c for c, _, _ in pairs], [s for _, s, _ in pairs]
-    root_symbols = sorted(roots, key=sp.default_sort_key)
-    ordered = set(cosines) | set(sines) | set(root_symbols)
-    rest = (plain.free_symbols | {x for base in bases.values() for x in base.free_symbols}) - ordered
-    generators = root_symbols + cosines + sines + sorted(rest, key=sp.default_sort_key)
-    ring, *variables = sp.ring(generators or [sp.Dummy("x")], sp.QQ, order="lex")
-    variable = dict(zip(generators, variables))
-    known = {}
-
-    def quotient(e):
-        """(numerator, denominator) of e, polynomials built without expanding sympy expressions."""
-        if e in known:
-            return known[e]
-        if e.is_Symbol:
-            result = (variable[e], ring.one)
-        elif e.is_Rational:
-            result = (ring(e.p), ring(e.q))
-        elif e.is_Mul:
-            numerator, denominator = ring.one, ring.one
-            for factor in e.args:
-                n, d = quotient(factor)
-                numerator, denominator = numerator * n, denominator * d
-            result = (numerator, denominator)
-        elif e.is_Pow and e.exp.is_Integer:
-            n, d = quotient(e.base)
-            k = int(e.exp)
-            result = (n**k, d**k) if k >= 0 else (d**-k, n**-k)
-        elif e.is_Add:
-            terms = [quotient(term) for term in e.args]
-            common = ring.one
-            for _, d in terms:
-                common = common.lcm(d)
-            result = (sum((n * common.exquo(d) for n, d in terms), ring.zero), common)
-        else:
-            raise ValueError(f"not a rational function: {e}")
-        known[e] = result
-        return result
-
-    try:
-        numerator, denominator = quotient(plain)
-    except ValueError:
-        return None
-    relations = []
-    for g in root_symbols:
-        try:
-            n, d = quotient(bases[g])
-        except ValueError:
-            continue
-        if d == ring.one and not (bases[g].free_symbols & set(root_symbols)):
-            relations.append(variable[g] ** roots[g][1] - n)
-    relations += [variable[c]**2 + sign * variable[s]**2 - 1 for c, s, sign in pairs]
-    return numerator, denominator, relations
-
-
-def vanishes(expr):
-    """Decide exactly whether expr is identically zero.
-
-    For a rational function of the symbols, of sines and cosines (hyperbolic
-    sines and cosines) of symbols and of free functions and their derivatives:
-    expr is zero exactly when the remainder of its numerator, divided by the
-    relations c**2 + s**2 - 1 (c**2 - s**2 - 1), is zero.  The relations'
-    leading terms c**2 share no variable, so that remainder is unique.
-    Anything else is left to sp.simplify.
-    """
-    expr = sp.sympify(expr)
-    if expr == 0:
-        return True
-    parts = polynomial_quotient(expr)
-    if parts is not None:
-        numerator, denominator, relations = parts
-        if denominator.rem(relations) != 0:
-            return numerator.rem(relations) == 0
-    if vanishes_with_roots(expr):
-        return True
-    return sp.simplify(expr) == 0
-
-
-def vanishes_with_roots(expr):
-    """True when expr is zero with every root, |x| and other function treated as a new symbol, and each
-    root g of a polynomial b reduced by g**q = b (see opaque_atoms): a proof that it vanishes.  False
-    means only that this test did not show it."""
-    expr = sp.sympify(expr)
-    if expr == 0:
-        return True
-    parts = polynomial_quotient(*opaque_atoms(expr))
-    if parts is None:
-        return False
-    numerator, denominator, relations = parts
-    return denominator.rem(relations) != 0 and numerator.rem(relations) == 0
-
-
-def check(step, recorded, recomputed, part=None):
-    """Raise AssertionError naming the step unless recorded == recomputed exactly."""
-    if not vanishes(sp.sympify(recomputed) - sp.sympify(recorded)):
-        where = f"step {step}" + (f", {part}" if part else "")
-        shown = str(recorded)
-        shown = shown if len(shown) <= 200 else shown[:200] + " ..."
-        raise AssertionError(f"{where}: the recorded value {shown} differs from the value recomputed here")
-
-
-def check_table(step, recorded, recompute, keys):
-    """check() every component in keys: the recorded one (zero when not listed) against recompute(*key)."""
-    for key in keys:
-        check(step, component(recorded, *key), recompute(*key), part=f"component {key}")
-
-
-def check_summary(step, recorded, table, recompute, keys):
-    """A summary lists the non-zero components: each listed one must be the value its own step
-    recorded, and each of keys not listed must recompute to zero."""
-    for key, value in recorded.items():
-        check(step, value, component(table, *key), part=f"listed component {key}")
-    for key in keys:
-        if key not in recorded:
-            check(step, 0, recompute(*key), part=f"unlisted component {key}")
-
-
-def verdict(step, recorded_holds, residues):
-    """Check a recorded yes/no answer against residues recomputed here.
-
-    Each residue is zero exactly when the statement holds for that component.
-    recorded_holds True: every residue must vanish; False: at least one must
-    not; None (undecided when the derivation ran): nothing is asserted.
-    """
-    if recorded_holds is None:
-        print(f"{step}: recorded as undecided, so no residue is asserted here")
-        return
-    for label, residue in residues.items():
-        if not vanishes(residue):
-            if recorded_holds:
-                raise AssertionError(f"step {step}: recorded as holding, but {label} does not vanish")
-            print(f"{step}: does not hold ({label} does not vanish), as recorded")
-            return
-    if not recorded_holds:
-        raise AssertionError(f"step {step}: recorded as not holding, but all {len(residues)} residues vanish")
-    print(f"{step}: holds ({len(residues)} residues vanish), as recorded")
-
-
-# ---------------------------------------------------------------------------
-# The general formulas, each evaluated on values recorded by earlier cells
-# ---------------------------------------------------------------------------
-
-def christoffel_from_metric(a, b, c):
-    """Gamma^a_bc = 1/2 g^ad (d_b g_dc + d_c g_db - d_d g_bc)."""
-    return sp.Rational(1, 2) * sum(
-        (component(inverse_metric, a, d) * (component(metric_derivatives, b, d, c)
-                                            + component(metric_derivatives, c, d, b)
-                                            - component(metric_derivatives, d, b, c))
-         for d in index_names), sp.S.Zero)
-
-
-def riemann_from_christoffel(a, b, c, d):
-    """R^a_bcd = d_c Gamma^a_db - d_d Gamma^a_cb + Gamma^a_ce Gamma^e_db - Gamma^a_de Gamma^e_cb."""
-    value = (sp.diff(component(christoffel, a, d, b), coordinate[c])
-             - sp.diff(component(christoffel, a, c, b), coordinate[d]))
-    for e in index_names:
-        value += component(christoffel, a, c, e) * component(christoffel, e, d, b)
-        value -= component(christoffel, a, d, e) * component(christoffel, e, c, b)
-    return value
-
-
-def ricci_from_riemann(b, d):
-    """R_bd = R^a_bad."""
-    return sum((component(riemann, a, b, a, d) for a in index_names), sp.S.Zero)
-
-
-def ricci_from_trace_identity(i, j):
-    """R_ij = d_l Gamma^l_ij - d_i d_j ln sqrt|g| + Gamma^a_ij d_a ln sqrt|g| - Gamma^l_ia Gamma^a_jl."""
-    value = sum((sp.diff(component(christoffel, l, i, j), coordinate[l]) for l in index_names), sp.S.Zero)
-    value -= sp.diff(log_sqrt_det[i], coordinate[j])
-    for a in index_names:
-        value += component(christoffel, a, i, j) * log_sqrt_det[a]
-        for l in index_names:
-            value -= component(christoffel, l, i, a) * component(christoffel, a, j, l)
-    return value
-
-
-def scalar_from_ricci():
-    """R = g^ij R_ij."""
-    return sum((component(inverse_metric, i, j) * component(ricci, i, j)
-                for i in index_names for j in index_names), sp.S.Zero)
-
-
-def einstein_from_ricci(i, j):
-    """G_ij = R_ij - R g_ij / 2."""
-    return component(ricci, i, j) - scalar_curvature * component(metric, i, j) / 2
-
-
-def lowered_from_riemann(a, b, c, d):
-    """R_abcd = g_ae R^e_bcd."""
-    return sum((component(metric, a, e) * component(riemann, e, b, c, d) for e in index_names), sp.S.Zero)
-
-
-def kretschmann_from_lowered():
-    """K = R_abcd R^abcd = R^ab_cd R^cd_ab with R^ab_cd = g^ae g^bf R_efcd, summed as
-    4 times the sum over a < b and c < d (both pairs are antisymmetric)."""
-    pairs = index_pairs(strict=True)
-    mixed = {}
-    for a, b in pairs:
-        for c, d in pairs:
-            total = sp.S.Zero
-            for e, f in every_index(2):
-                factor = component(inverse_metric, a, e) * component(inverse_metric, b, f)
-                if factor != 0:
-                    total += factor * component(riemann_lowered, e, f, c, d)
-            mixed[a, b, c, d] = total
-    return 4 * sum((mixed[a, b, c, d] * mixed[c, d, a, b] for a, b in pairs for c, d in pairs), sp.S.Zero)
-
-
-def weyl_from_lowered(a, b, c, d):
-    """C_abcd = R_abcd - (g_ac R_bd - g_ad R_bc - g_bc R_ad + g_bd R_ac)/(n-2)
-    + R (g_ac g_bd - g_ad g_bc)/((n-1)(n-2))."""
-    g = lambda i, j: component(metric, i, j)
-    R = lambda i, j: component(ricci, i, j)
-    n = dimension
-    return (component(riemann_lowered, a, b, c, d)
-            - (g(a, c) * R(b, d) - g(a, d) * R(b, c) - g(b, c) * R(a, d) + g(b, d) * R(a, c)) / (n - 2)
-            + scalar_curvature * (g(a, c) * g(b, d) - g(a, d) * g(b, c)) / ((n - 1) * (n - 2)))
-
-
-def divergence_of_einstein(b):
-    """nabla^a G_ab = g^ac (d_c G_ab - Gamma^e_ca G_eb - Gamma^e_cb G_ae)."""
-    total = sp.S.Zero
-    for a in index_names:
-        for c in index_names:
-            inverse = component(inverse_metric, a, c)
-            if inverse == 0:
-                continue
-            term = sp.diff(component(einstein, a, b), coordinate[c])
-            for e in index_names:
-                term -= component(christoffel, e, c, a) * component(einstein, e, b)
-                term -= component(christoffel, e, c, b) * component(einstein, a, e)
-            total += inverse * term
-    return total
-
-
-# The recorded values, filled in by the step cells below (missing components are zero).
-metric, metric_derivatives, inverse_metric = {}, {}, {}
-christoffel, christoffel_trace, log_sqrt_det = {}, {}, {}
-riemann, ricci, ricci_second_route, einstein = {}, {}, {}, {}
-riemann_lowered, weyl = {}, {}
-'''.strip("\n")
-
-_MATTER_HELPERS = '''
-# ---------------------------------------------------------------------------
-# Matter: the stress-energy tensor, the orthonormal frame, the energy conditions
-# ---------------------------------------------------------------------------
-
-def stress_energy_from_einstein(i, j):
-    """T_ij = (G_ij + Lambda g_ij) / kappa."""
-    return (component(einstein, i, j) + cosmological_constant * component(metric, i, j)) / kappa
-
-
-def mixed_stress_energy_from_lowered(i, j):
-    """T^i_j = g^ik T_kj."""
-    return sum((component(inverse_metric, i, k) * component(stress_energy, k, j) for k in index_names), sp.S.Zero)
-
-
-def raised_stress_energy_from_lowered(i, j):
-    """T^ij = g^ik g^jl T_kl."""
-    return sum((component(inverse_metric, i, k) * component(inverse_metric, j, l) * component(stress_energy, k, l)
-                for k in index_names for l in index_names), sp.S.Zero)
-
-
-def inner_product(u, v):
-    """g(u, v) = g_ij u^i v^j for vectors given as {coordinate name: component} (missing components are zero)."""
-    return sum((u[i] * component(metric, i, j) * v[j] for i in u for j in v), sp.S.Zero)
-
-
-def gram_schmidt_frame(time):
-    """The unnormalised frame of the observers normal to time = const, built by the recorded convention.
-
-    w_(time)^i = -g^(time i); then each other coordinate direction d_k, in coordinate order, minus its
-    components along the spatial vectors already built.  Returns (vectors, squared norms, broken): the
-    squared norm of w_(time) is -g^(time time), and broken is the label of the first vector whose squared
-    norm vanishes identically (None when the frame exists)."""
-    vectors = {time: {i: -component(inverse_metric, time, i) for i in index_names}}
-    norms = {time: -component(inverse_metric, time, time)}
-    if vanishes(norms[time]):
-        return vectors, norms, time
-    for k in index_names:
-        if k == time:
-            continue
-        direction = {i: sp.S.One if i == k else sp.S.Zero for i in index_names}
-        vector = dict(direction)
-        for m in list(vectors)[1:]:
-            coefficient = inner_product(direction, vectors[m]) / norms[m]
-            vector = {i: sp.cancel(vector[i] - coefficient * vectors[m][i]) for i in index_names}
-        norm = sp.cancel(inner_product(vector, vector))
-        if vanishes(norm):
-            return vectors, norms, k
-        vectors[k], norms[k] = vector, norm
-    return vectors, norms, None
-
-
-def region_points(symbols, count, norms=None):
-    """Up to `count` exact points where every squared norm of the frame (norms, by default the recorded
-    frame_norms) is positive: where the frame exists.
-
-    A symbol with a recorded range [low, high] takes a fraction of its range; any other symbol a small
-    number of its declared sign.  The points are the same at every run."""
-    norms = frame_norms if norms is None else norms
-    fractions = [sp.Rational(p, q) for q in range(2, 9) for p in range(1, q) if sp.gcd(p, q) == 1]
-    sizes = [sp.Integer(1), sp.Integer(2), sp.Integer(3), sp.Rational(1, 2), sp.Integer(5), sp.Integer(10),
-             sp.Rational(3, 2), sp.Integer(7), sp.Rational(1, 3), sp.Integer(20)]
-    names = set(symbols) | {s for norm in norms.values() for s in sp.sympify(norm).free_symbols}
-    ordered = sorted(names, key=sp.default_sort_key)
-    points = []
-    for attempt in range(400):
-        point = {}
-        for position, s in enumerate(ordered):
-            if s in frame_region:
-                low, high = frame_region[s]
-                point[s] = low + (high - low) * fractions[(attempt + 3 * position) % len(fractions)]
-            else:
-                size = sizes[(attempt + position) % len(sizes)]
-                point[s] = -size if s.is_nonpositive else size
-        if all(sp.sympify(norm).subs(point).is_positive is True for norm in norms.values()):
-            points.append(point)
-            if len(points) == count:
-                break
-    return points
-
-
-def sign_agrees(first, second, point=None):
-    """Whether first and second, whose squares agree, have the same sign: True when sympy's assumptions show
-    first * second >= 0 (free functions and derivatives taken as real and, where the product is defined,
-    non-zero: a frame component such as 1/|a(t)| needs a(t) != 0), or when they have the same sign at
-    the exact point (by default frame_point, a point of the region where the frame exists; a root of a
-    positive function keeps its sign where the function stays positive); False when the signs differ
-    there; None when neither can be told."""
-    product = sp.factor(sp.sympify(first) * sp.sympify(second))
-    real = {f: sp.Dummy("f", real=True, nonzero=True)
-            for f in sorted(product.atoms(sp.Derivative, sp.core.function.AppliedUndef), key=sp.default_sort_key)}
-    if product.subs(real).is_nonnegative is True:
-        return True
-    point = frame_point if point is None else point
-    if point is None:
-        return None
-    a, b = (sp.N(sp.sympify(value).subs(point), 40) for value in (first, second))
-    if not (a.is_real and b.is_real):
-        return None
-    return not (a * b < 0)
-
-
-def check_with_root(step, recorded, rational, radicand, part):
-    """recorded must be rational / sqrt(radicand) with the positive root: recorded**2 * radicand = rational**2
-    exactly, and recorded has the sign of rational (sign_agrees)."""
-    where = f"step {step}, {part}"
-    if not vanishes(sp.expand(sp.sympify(recorded) ** 2) * radicand - rational ** 2):
-        raise AssertionError(f"{where}: the recorded value {str(recorded)[:200]} differs from the value recomputed here")
-    agrees = sign_agrees(recorded, rational)
-    if agrees is False:
-        raise AssertionError(f"{where}: the recorded value {str(recorded)[:200]} has the wrong sign")
-    if agrees is None:
-        print(f"{where}: agrees up to its sign, which could not be compared (no point where the frame exists)")
-
-
-def check_frame(step, time, vectors, norms):
-    """Rebuild the frame by Gram-Schmidt and compare it with the recorded one; return a point of the region
-    where the frame exists (None if none is found) and the unnormalised vectors w_(a).
-
-    The squared norms N_(a) must be those recomputed.  Each recorded e_(a) must be w_(a) / sqrt(N_(a)):
-    e_(a)^i e_(a)^j N_(a) = w_(a)^i w_(a)^j for all i, j (exact), which fixes e_(a) up to its sign, and
-    e_(a) must point the way w_(a) does at that point."""
-    unnormalised, squared_norms, broken = gram_schmidt_frame(time)
-    if broken is not None:
-        raise AssertionError(f"step {step}: a frame was recorded, but the squared norm of w_({broken}) vanishes")
-    if list(unnormalised) != frame_order or list(vectors) != frame_order or list(norms) != frame_order:
-        raise AssertionError(f"step {step}: the frame is recorded in the order {list(vectors)}, "
-                             f"built here in the order {list(unnormalised)}")
-    for label in frame_order:
-        check(step, norms[label], squared_norms[label], part=f"squared norm N_({label})")
-    symbols = set().union(*(sp.sympify(value).free_symbols for vector in vectors.values() for value in vector.values()))
-    point = next(iter(region_points(symbols, 1, norms)), None)
-    for label in frame_order:
-        e, w = vectors[label], unnormalised[label]
-        for i, j in index_pairs():
-            check(step, w[i] * w[j], e.get(i, sp.S.Zero) * e.get(j, sp.S.Zero) * norms[label],
-                  part=f"e_({label})^{i} e_({label})^{j} N_({label}) = w_({label})^{i} w_({label})^{j}")
-        lead = next(i for i in index_names if not vanishes(w[i]))
-        agrees = sign_agrees(e.get(lead, sp.S.Zero), w[lead], point)
-        if agrees is False:
-            raise AssertionError(f"step {step}: e_({label}) points against w_({label})")
-        if agrees is None:
-            print(f"{step}: no point where the frame exists was found; the direction of e_({label}) is not compared")
-    return point, {label: {i: value for i, value in w.items() if value != 0} for label, w in unnormalised.items()}
-
-
-def check_frame_table(step, recorded, table, keys):
-    """Each frame component (zero when not listed) against the recorded tensor `table` put into the frame.
-
-    The frame step showed e_(a) = w_(a) / sqrt(N_(a)), so X = table(e_(a), e_(b), ...) is P / sqrt(N_(a) N_(b) ...)
-    with P = table(w_(a), w_(b), ...), a rational function.  Where every frame index appears an even number
-    of times the root is rational and X is checked exactly; otherwise by check_with_root."""
-    for key in keys:
-        value = component(recorded, *key)
-        contracted = frame_contraction(lambda *indices: component(table, *indices), key, frame_unnormalised)
-        even, odd = sp.S.One, sp.S.One
-        for label in sorted(set(key), key=key.index):
-            count = key.count(label)
-            even *= frame_norms[label] ** (count // 2)
-            odd *= frame_norms[label] ** (count % 2)
-        if odd == 1:
-            check(step, value, contracted / even, part=f"component {key}")
-        else:
-            check_with_root(step, value, contracted / even, odd, part=f"component {key}")
-
-
-def check_density_and_pressures(step, recorded):
-    """rho = T_(0)(0) and p_(k) = T_(k)(k) from the recorded frame components; diagonal when every T_(a)(b),
-    a != b, vanishes."""
-    time = frame_order[0]
-    check(step, recorded["energy_density"], component(frame_stress_energy, time, time), part="rho")
-    if list(recorded["pressures"]) != frame_order[1:]:
-        raise AssertionError(f"step {step}: pressures recorded for {list(recorded['pressures'])}")
-    for k in frame_order[1:]:
-        check(step, recorded["pressures"][k], component(frame_stress_energy, k, k), part=f"p_({k})")
-    if recorded["diagonal"] != stress_energy_diagonal_in_frame():
-        raise AssertionError(f"step {step}: recorded diagonal = {recorded['diagonal']}, which the frame components contradict")
-
-
-def stress_energy_diagonal_in_frame():
-    """Whether every recorded T_(a)(b) with a != b vanishes."""
-    return all(vanishes(component(frame_stress_energy, a, b)) for a, b in frame_pairs() if a != b)
-
-
-def check_inequality_values(step, name, recorded):
-    """The recorded inequalities are those of the condition, in order, with the values recomputed here."""
-    recomputed = energy_condition_values(name)
-    if [label for label, _ in recomputed] != list(recorded):
-        raise AssertionError(f"step {step}: the inequalities are {[label for label, _ in recomputed]}, "
-                             f"recorded {list(recorded)}")
-    for label, value in recomputed:
-        check(step, recorded[label][0], value, part=label)
-
-
-def frame_pairs():
-    """(a, b) with a <= b in the frame's order."""
-    return [(a, b) for position, a in enumerate(frame_order) for b in frame_order[position:]]
-
-
-def frame_riemann_index_sets():
-    """(a, b, c, d) with a < b, c < d and (a, b) <= (c, d) in the frame's order."""
-    pairs = [(a, b) for position, a in enumerate(frame_order) for b in frame_order[position + 1:]]
-    return [first + second for position, first in enumerate(pairs) for second in pairs[position:]]
-
-
-def frame_contraction(tensor, labels, vectors):
-    """tensor(v_(a), v_(b), ...) for frame vectors `vectors` ({label: {coordinate name: component}}) put into a
-    tensor given as a function of coordinate index names."""
-    total = sp.S.Zero
-    for choice in itertools.product(*(list(vectors[label].items()) for label in labels)):
-        value = tensor(*(index for index, _ in choice))
-        if value != 0:
-            for _, vector_component in choice:
-                value = value * vector_component
-            total += value
-    return total
-
-
-def energy_condition_values(name):
-    """The inequalities of one energy condition, as [(label, value that must be >= 0)], from the recorded
-    energy density rho and principal pressures p_(k) (the recorded convention)."""
-    spatial = frame_order[1:]
-    rho = energy_density
-    plus = [(f"rho + p_({k})", rho + pressures[k]) for k in spatial]
-    if name == "null":
-        return plus
-    if name == "weak":
-        return [("rho", rho)] + plus
-    if name == "strong":
-        label = "rho + sum p" if dimension == 4 else f"{dimension - 3}*rho + sum p"
-        return plus + [(label, (dimension - 3) * rho + sum((pressures[k] for k in spatial), sp.S.Zero))]
-    if name == "dominant":
-        return [("rho", rho)] + [(f"rho - p_({k})", rho - pressures[k]) for k in spatial] + plus
-    raise ValueError(name)
-
-
-def sign_decides(value, nonnegative):
-    """Whether sympy's assumptions, from the declared signs alone, show value >= 0 (nonnegative=True) or
-    value < 0 (nonnegative=False).  value and kappa * value (kappa > 0) are factored and tried as they are
-    and as numerator * denominator (the sign of n/d wherever d != 0), with each free function and each
-    derivative taken as a real symbol (a metric is real)."""
-    forms = []
-    for form in (sp.factor(value), sp.factor(kappa * value)):
-        numerator, denominator = sp.fraction(form)
-        forms += [form, numerator * denominator]
-    for form in forms:
-        real = {f: sp.Dummy("f", real=True)
-                for f in sorted(form.atoms(sp.Derivative, sp.core.function.AppliedUndef), key=sp.default_sort_key)}
-        plain = form.subs(real)
-        if (plain.is_nonnegative if nonnegative else plain.is_negative) is True:
-            return True
-    return False
-
-
-def recheck_inequality(step, label, value, how, point=None):
-    """Re-check one recorded answer to value >= 0.
-
-    how is "zero" (identically 0), "signs" (>= 0 by the declared signs), "negative" (< 0 by the declared
-    signs), "point" (< 0 at the recorded exact point), "search" (< 0 at some point of the region),
-    "sampled" (>= 0 at points of the region: evidence, not proof) or "undecided" (nothing to assert)."""
-    where = f"step {step}, {label}"
-    if how == "zero" and not vanishes(value):
-        raise AssertionError(f"{where}: recorded as identically 0, but it is not")
-    if how == "signs" and not sign_decides(value, True):
-        raise AssertionError(f"{where}: recorded as >= 0 by the declared signs, which sympy does not confirm")
-    if how == "negative" and not sign_decides(value, False):
-        raise AssertionError(f"{where}: recorded as < 0 by the declared signs, which sympy does not confirm")
-    if how == "point":
-        here = sp.sympify(value).subs(point)
-        if here.is_negative is not True:
-            raise AssertionError(f"{where}: recorded as negative at {point}, but there it equals {here}")
-    if how == "search":
-        points = region_points(sp.sympify(value).free_symbols, 50)
-        if not any(sp.sympify(value).subs(here).is_negative for here in points):
-            raise AssertionError(f"{where}: recorded as violated, but it is >= 0 at {len(points)} points of the region")
-        print(f"{step}: {label} is negative at a point of the region, as recorded")
-        return
-    if how == "sampled":
-        points = region_points(sp.sympify(value).free_symbols, 5)
-        for here in points:
-            if sp.sympify(value).subs(here).is_negative:
-                raise AssertionError(f"{where}: recorded as >= 0 at the sampled points, but it is negative at {here}")
-        print(f"{step}: {label} >= 0 at {len(points)} exact points of the region (evidence, not proof)")
-        return
-    if how == "undecided":
-        print(f"{step}: {label} was recorded as undecided; nothing is asserted")
-        return
-    print(f"{step}: {label} re-checked ({how})")
-
-
-def combined_answer(answers):
-    """An energy condition holds when every inequality holds; it fails when one fails; otherwise undecided."""
-    if any(answer is False for answer in answers):
-        return False
-    if any(answer is None for answer in answers):
-        return None
-    return True
-
-
-def perfect_fluid_frame_residues():
-    """The off-diagonal frame components T_(a)(b) and the differences of the principal pressures p_(k) - p_(first)."""
-    residues = {f"T_({a})({b})": component(frame_stress_energy, a, b)
-                for position, a in enumerate(frame_order) for b in frame_order[position + 1:]}
-    first = frame_order[1]
-    residues.update({f"p_({k}) - p_({first})": pressures[k] - pressures[first] for k in frame_order[2:]})
-    return residues
-
-
-def perfect_fluid_residues():
-    """T_ij - (rho + p) u_i u_j - p g_ij with u_i = g_ij e_(0)^j and the recorded rho and p."""
-    u = frame_vectors[frame_order[0]]
-    lowered = {i: sum((component(metric, i, j) * u[j] for j in u), sp.S.Zero) for i in index_names}
-    p = pressures[frame_order[1]]
-    return {f"T_{i},{j} - (rho + p) u_{i} u_{j} - p g_{i},{j}":
-            component(stress_energy, i, j) - (energy_density + p) * lowered[i] * lowered[j] - p * component(metric, i, j)
-            for i, j in index_pairs()}
-
-
-# The recorded matter quantities, filled in by the step cells below.
-stress_energy, stress_energy_mixed, stress_energy_up = {}, {}, {}
-frame_vectors, frame_norms, frame_order, frame_region, frame_point, frame_unnormalised = {}, {}, [], {}, None, {}
-frame_stress_energy, frame_ricci, frame_riemann, pressures = {}, {}, {}, {}
-'''.strip("\n")
-
-
-_ANSATZ_HELPERS = '''
-# ---------------------------------------------------------------------------
-# Ansatz: the field equations for unknown functions, their dependence, their solution
-# ---------------------------------------------------------------------------
-
-def field_equation(i, j):
-    """E_ij = G_ij + Lambda g_ij from the recorded Einstein tensor and metric (Lambda of the ansatz)."""
-    return component(einstein, i, j) + ansatz_constant * component(metric, i, j)
-
-
-def involves_unknowns(expr):
-    """Whether expr contains one of the unknown functions (or a derivative of one)."""
-    heads = {unknown.func for unknown in ansatz_unknowns}
-    return any(f.func in heads for f in sp.sympify(expr).atoms(sp.core.function.AppliedUndef))
-
-
-def cannot_vanish(factor):
-    """Whether a factor that involves the unknowns cannot vanish: an unknown function that divides the
-    numerator or denominator of the recorded determinant or, for a diagonal metric, of a diagonal component
-    (the metric is non-degenerate and finite), or an exponential (of a real quantity)."""
-    if isinstance(factor, sp.exp) or (factor.is_Pow and isinstance(factor.base, sp.exp)):
-        return True
-    diagonal = all(vanishes(component(metric, i, j)) for i, j in index_pairs(strict=True))
-    sources = [metric_determinant] + ([component(metric, x, x) for x in index_names] if diagonal else [])
-    divisors = [f for source in sources if not vanishes(source)
-                for part in sp.fraction(sp.together(source)) for f, _ in sp.factor_list(part)[1]]
-    return factor in ansatz_unknowns and factor in divisors
-
-
-def check_nonzero_multiple(step, recorded, expression, part):
-    """recorded must be expression divided by a factor that cannot vanish: a product of factors free of the
-    unknowns (not identically zero), of unknowns that divide the determinant, and of exponentials."""
-    where = f"step {step}, {part}"
-    if vanishes(recorded):
-        raise AssertionError(f"{where}: the recorded equation is identically zero")
-    ratio = sp.factor(sp.cancel(sp.together(sp.sympify(expression) / recorded)))
-    numerator, denominator = sp.fraction(ratio)
-    if vanishes(numerator):
-        raise AssertionError(f"{where}: the recomputed expression is zero, the recorded equation is not")
-    for side in (numerator, denominator):
-        for factor, _ in sp.factor_list(side)[1]:
-            if involves_unknowns(factor) and not cannot_vanish(factor):
-                raise AssertionError(f"{where}: the recorded equation is not the recomputed one up to a factor "
-                                     f"that cannot vanish (the ratio has the factor {factor})")
-
-
-def check_ansatz_equations(step, recorded, zero):
-    """Each listed equation against the numerator of E_ij recomputed here; each duplicate against its
-    representative; each identically vanishing component; and every component accounted for once."""
-    for key, equation in recorded.items():
-        check_nonzero_multiple(step, equation, sp.numer(sp.together(field_equation(*key))), part=f"E_{key}")
-    for key, (representative, factor) in ansatz_duplicates.items():
-        if vanishes(factor) or any(involves_unknowns(f) and not cannot_vanish(f)
-                                   for part in sp.fraction(sp.factor(sp.sympify(factor)))
-                                   for f, _ in sp.factor_list(part)[1]):
-            raise AssertionError(f"step {step}: the factor of E_{key} must be a product of factors that cannot "
-                                 "vanish")
-        check(step, factor * field_equation(*representative), field_equation(*key), part=f"E_{key} as a duplicate")
-    for key in zero:
-        check(step, 0, field_equation(*key), part=f"E_{key}")
-    listed = list(recorded) + list(ansatz_duplicates) + list(zero)
-    if sorted(listed) != sorted(index_pairs()):
-        raise AssertionError(f"step {step}: the components accounted for are {sorted(listed)}")
-
-
-def check_same_solution(step, recorded_solution):
-    """The solution recorded with the metric is the one the solving steps recorded."""
-    if set(recorded_solution) != set(ansatz_solution):
-        raise AssertionError(f"step {step}: solved for {list(recorded_solution)}, the steps above for {list(ansatz_solution)}")
-    for unknown, value in recorded_solution.items():
-        check(step, value, ansatz_solution[unknown], part=str(unknown))
-
-
-def ordered_key(i, j):
-    """The index pair in coordinate order, as the recorded equations are keyed."""
-    return (i, j) if index_names.index(i) <= index_names.index(j) else (j, i)
-
-
-def divergence(tensor, b):
-    """nabla^a E_ab = g^ac (d_c E_ab - Gamma^e_ca E_eb - Gamma^e_cb E_ae) for E given as a function of index names."""
-    total = sp.S.Zero
-    for a in index_names:
-        for c in index_names:
-            inverse = component(inverse_metric, a, c)
-            if inverse == 0:
-                continue
-            term = sp.diff(tensor(a, b), coordinate[c])
-            for e in index_names:
-                term -= component(christoffel, e, c, a) * tensor(e, b)
-                term -= component(christoffel, e, c, b) * tensor(a, e)
-            total += inverse * term
-    return total
-
-
-def bianchi_coefficients(b):
-    """Component b of the contracted Bianchi identity with each listed equation E_ij replaced by an
-    undetermined function of all coordinates (each duplicate by its factor times its representative, every
-    other component by zero): {key: (coefficient of E_key, [coefficients of its derivatives])}."""
-    unknown_equations = {key: sp.Function("E_" + "_".join(key))(*coordinates) for key in ansatz_equations}
-
-    def placeholder(i, j):
-        key = ordered_key(i, j)
-        if key in unknown_equations:
-            return unknown_equations[key]
-        if key in ansatz_duplicates:
-            representative, factor = ansatz_duplicates[key]
-            return factor * unknown_equations[representative]
-        return sp.S.Zero
-
-    relation = sp.expand(divergence(placeholder, b))
-    derivatives = {d: sp.Dummy("dE") for d in sorted(relation.atoms(sp.Derivative), key=sp.default_sort_key)}
-    values = {key: sp.Dummy("E") for key in unknown_equations}
-    plain = relation.xreplace(derivatives).xreplace({unknown_equations[key]: values[key] for key in values})
-    return {key: (sp.diff(plain, values[key]),
-                  [sp.diff(plain, fresh) for d, fresh in derivatives.items() if d.expr == unknown_equations[key]])
-            for key in unknown_equations}
-
-
-def check_dependence(step, independent, follows, relations):
-    """Recompute which equations enter each component of the identity, and that each equation recorded as
-    following from the others enters its component undifferentiated with the recorded coefficient."""
-    for b in index_names:
-        coefficients = bianchi_coefficients(b)
-        present = {key for key, (value, derivatives) in coefficients.items()
-                   if not vanishes(value) or not all(vanishes(d) for d in derivatives)}
-        if present != set(relations[b]):
-            raise AssertionError(f"step {step}: component {b} of the identity involves {sorted(present)}, "
-                                 f"recorded {sorted(relations[b])}")
-        for key, (source, component_name, coefficient) in follows.items():
-            if component_name != b:
-                continue
-            value, derivatives = coefficients[key]
-            check(step, coefficient, value, part=f"coefficient of E_{key} in component {b}")
-            factors = sp.factor_list(sp.numer(sp.together(coefficient)))[1]
-            if vanishes(coefficient) or any(involves_unknowns(f) and not cannot_vanish(f) for f, _ in factors):
-                raise AssertionError(f"step {step}: the coefficient of E_{key} in component {b} may vanish, so "
-                                     f"E_{key} does not follow where it does")
-            if not all(vanishes(d) for d in derivatives):
-                raise AssertionError(f"step {step}: E_{key} is differentiated in component {b} of the identity")
-            if set(source) != present - {key} or not set(source) <= set(independent):
-                raise AssertionError(f"step {step}: E_{key} does not follow from the equations recorded")
-    expected = [key for key in ansatz_equations if key not in follows]
-    if list(independent) != expected:
-        raise AssertionError(f"step {step}: the independent equations are {expected}, recorded {list(independent)}")
-
-
-def check_ode_solution(step, key, recorded, other_branches):
-    """The equation solved is the reduced E_key with the earlier solutions put in (up to a factor that
-    cannot vanish), it holds one unsolved unknown, and each recorded solution satisfies it."""
-    expected = ansatz_equations[key]
-    if ansatz_solution:
-        expected = sp.numer(sp.together(expected.subs(ansatz_solution).doit()))
-    check_nonzero_multiple(step, recorded["equation"], expected, part="the equation")
-    unknown = recorded["unknown"]
-    left = [f for f in ansatz_unknowns if f not in ansatz_solution and recorded["equation"].has(f)]
-    if left != [unknown]:
-        raise AssertionError(f"step {step}: the equation involves the unsolved unknowns {left}, not {unknown} alone")
-    for number, solution in enumerate([recorded["solution"]] + list(other_branches)):
-        if not vanishes(recorded["equation"].subs(unknown, solution).doit()):
-            which = "the solution" if number == 0 else f"branch {number + 1}"
-            raise AssertionError(f"step {step}: {which} does not satisfy the equation")
-
-
-def check_rescaling(step, constant, name):
-    """constant appears in g_(name name) alone, as a factor that is a function of it alone, and no component
-    depends on the coordinate name: rescaling that coordinate removes it."""
-    holders = [(i, j) for i, j in index_pairs() if component(ansatz_metric, i, j).has(constant)]
-    if holders != [(name, name)] or any(sp.sympify(value).has(coordinate[name]) for value in ansatz_metric.values()):
-        raise AssertionError(f"step {step}: {constant} cannot be removed by rescaling {name}")
-    _, rest = sp.factor(component(ansatz_metric, name, name)).as_independent(constant, as_Add=False)
-    if rest.free_symbols != {constant}:
-        raise AssertionError(f"step {step}: g_{name},{name} is not a function of {constant} alone times a factor free of it")
-
-
-def einstein_from_scratch(matrix):
-    """G_ij of a metric matrix computed from nothing recorded: its inverse, Christoffel symbols
-    Gamma^a_bc = 1/2 g^ad (d_b g_dc + d_c g_db - d_d g_bc), the Ricci tensor
-    R_bd = d_a Gamma^a_db - d_d Gamma^a_ab + Gamma^a_ae Gamma^e_db - Gamma^a_de Gamma^e_ab, and
-    G_bd = R_bd - R g_bd / 2."""
-    n = dimension
-    inverse = matrix.inv().applyfunc(sp.cancel)
-    x = coordinates
-    dg = [matrix.diff(x[k]) for k in range(n)]
-    gamma = [[[sp.cancel(sum((inverse[a, d] * (dg[b][d, c] + dg[c][d, b] - dg[d][b, c]) for d in range(n)), sp.S.Zero) / 2)
-               for c in range(n)] for b in range(n)] for a in range(n)]
-    ricci_matrix = sp.zeros(n, n)
-    for b in range(n):
-        for d in range(b, n):
-            value = sum((sp.diff(gamma[a][d][b], x[a]) - sp.diff(gamma[a][a][b], x[d]) for a in range(n)), sp.S.Zero)
-            for a in range(n):
-                for e in range(n):
-                    value += gamma[a][a][e] * gamma[e][d][b] - gamma[a][d][e] * gamma[e][a][b]
-            ricci_matrix[b, d] = ricci_matrix[d, b] = sp.cancel(value)
-    scalar = sp.cancel(sum((inverse[b, d] * ricci_matrix[b, d] for b in range(n) for d in range(n)), sp.S.Zero))
-    return (ricci_matrix - scalar * matrix / 2).applyfunc(sp.cancel)
-
-
-# The recorded ansatz quantities, filled in by the step cells below.
-ansatz_equations, ansatz_duplicates, ansatz_solution, ansatz_metric = {}, {}, {}, {}
-'''.strip("\n")
-
-
-_GEODESIC_HELPERS = '''
-# ---------------------------------------------------------------------------
-# Geodesics
-# ---------------------------------------------------------------------------
-
-def geodesic_from_christoffel(a):
-    """du^a/dtau = -Gamma^a_bc u^b u^c, summed over all b and c."""
-    return -sum((component(christoffel, a, b, c) * velocity[b] * velocity[c]
-                 for b in index_names for c in index_names), sp.S.Zero)
-
-
-# The velocity symbols u^x and the recorded accelerations, filled in by the geodesic cell.
-velocity, geodesic_acceleration = {}, {}
-'''.strip("\n")
+_GEODESIC_HELPERS = inlined_source("geodesics")
 
 
 # --------------------------------------------------------------------------
@@ -1241,6 +337,7 @@ class _Cells:
             "ricci": self.ricci_summary, "ricci/symmetry": self.ricci_symmetry,
             "ricci_by_trace_identity": self.ricci_route, "ricci/agreement": self.ricci_agreement,
             "scalar": self.scalar, "einstein": self.einstein_summary, "riemann_lowered": self.riemann_lowered,
+            "ricci_mixed": self.ricci_mixed, "einstein_mixed": self.einstein_mixed,
             "riemann_lowered/pair_symmetry": self.pair_symmetry,
             "riemann_lowered/first_bianchi": self.first_bianchi,
             "numeric_verification": self.numeric_verification, "kretschmann": self.kretschmann,
@@ -1521,14 +618,15 @@ claim_agrees = vanishes(claimed - derived)
         results = self.d.results
         scalars = {"determinant": "metric_determinant", "scalar": "scalar_curvature",
                    "kretschmann": "kretschmann_scalar"}
-        tables = {"inverse_metric", "christoffel", "riemann", "riemann_lowered", "ricci", "einstein",
-                  "stress_energy", "stress_energy_mixed", "stress_energy_up", "frame_stress_energy", "frame_ricci"}
+        q = QUANTITIES.get(quantity)
+        if q is None or not q.claimable:
+            raise NotebookError(f"claim {number}: unknown quantity {quantity!r}")
         component = p.get("component", "")
         if quantity in scalars:
             return scalars[quantity] if quantity in results else None
         if quantity == "weyl":
             return f"weyl_from_lowered({self.s.names(component)})" if "weyl" in results else None
-        if quantity in tables:
+        if q.rank >= 2 and set(q.positions) <= set("udf"):  # a table the cells above fill under its own name
             return f"component({quantity}, {self.s.names(component)})" if quantity in results else None
         if quantity == "energy_density":
             return "energy_density" if "energy_density" in results else None
@@ -1735,6 +833,13 @@ check_table("{table}", recorded, {recompute}, every_index(2))
     def stress_energy_mixed(self, step):
         return self._raised(step, "stress_energy_mixed", "mixed_stress_energy_from_lowered", "T^i_j = g^ik T_kj")
 
+    def ricci_mixed(self, step):
+        return self._raised(step, "ricci_mixed", "lambda a, b: mixed_from_lowered(ricci, a, b)", "R^a_b = g^ac R_cb")
+
+    def einstein_mixed(self, step):
+        return self._raised(step, "einstein_mixed", "lambda a, b: mixed_from_lowered(einstein, a, b)",
+                            "G^a_b = g^ac G_cb")
+
     def stress_energy_up(self, step):
         return self._raised(step, "stress_energy_up", "raised_stress_energy_from_lowered", "T^ij = g^ik g^jl T_kl")
 
@@ -1854,9 +959,9 @@ print("verdict/perfect_fluid: undecided for lack of a frame, as recorded")"""
                       "# The same in coordinates: T_ij = (rho + p) u_i u_j + p g_ij with u = e_(0).",
                       f"verdict({self._id(step)}, recorded_holds, perfect_fluid_residues())"]
         else:
-            match = re.match(r"(T_\(\w+\)\(\w+\)|p_\(\w+\) - p_\(\w+\)) is not zero", step.result.evidence)
-            if holds is False and match:
-                label = _label_literal(match.group(1))
+            residue = step.params.get("residue")
+            if holds is False and residue is not None:
+                label = _label_literal(_residue_label(residue))
                 lines += [f"# The recorded evidence names {label}: it must not vanish.",
                           f"if vanishes(residues[{label}]):",
                           f"    raise AssertionError(\"step verdict/perfect_fluid: the recorded evidence says \" + {label} + \" is not zero, but it vanishes\")"]
@@ -1899,38 +1004,27 @@ print("{step.id}: undecided (no frame, or T not diagonal in it), as recorded")""
         return "energy_condition", "\n".join(lines)
 
     def _inequality_how(self, row) -> tuple[str, str | None]:
-        """How a recorded answer to value >= 0 was reached, read from the evidence stepper wrote."""
-        holds, evidence = row["holds"], str(row["evidence"])
-        if holds is True:
-            if evidence == "it is identically 0":
-                return "zero", None
-            if evidence.startswith("non-negative for all values allowed by the declared signs"):
-                return "signs", None
-            return "sampled", None
-        if holds is False:
-            if evidence.startswith("negative for all values allowed by the declared signs"):
-                return "negative", None
-            point = self._evidence_point(evidence)
-            if point is not None:
-                return "point", point
-            return "search", None
-        if "points sampled from" in evidence:
+        """How a recorded answer to value >= 0 was reached (the recorded decision), and the exact point
+        where it was found negative, as Python source."""
+        decision = Decision.from_data(row["decision"])
+        method = decision.method
+        if method is Method.IDENTICALLY_ZERO:
+            return "zero", None
+        if method is Method.DECLARED_SIGNS:
+            return ("signs" if decision.holds else "negative"), None
+        if method is Method.EXACT_POINT:
+            return "point", self._point_source(decision.point)
+        if method is Method.SAMPLED:
             return "sampled", None
         return "undecided", None
 
-    def _evidence_point(self, evidence: str) -> str | None:
-        match = re.match(r"at the point (.+?) of the region it equals", evidence)
-        if not match:
-            return None
+    def _point_source(self, point: dict) -> str:
         by_name = {s.name: s for _, s in self.s.symbols}
         by_name.update({s.name: s for _, s in self.s.others})
         entries = []
-        for part in match.group(1).split(", "):
-            name, _, number = part.partition(" = ")
-            numeric = re.fullmatch(r"(-?[0-9]+)(?:/([0-9]+))?", number)
-            if name not in by_name or not numeric:
-                return None
-            value = sympy.Rational(int(numeric.group(1)), int(numeric.group(2) or 1))
+        for name, value in point.items():
+            if name not in by_name:
+                raise NotebookError(f"a recorded point names {name!r}, which is not a symbol of the derivation")
             entries.append(f"{self.s.expr(by_name[name])}: {self.s.expr(value)}")
         return "{" + ", ".join(entries) + "}"
 

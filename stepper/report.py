@@ -19,37 +19,11 @@ from typing import Any
 
 import sympy
 
-from .chain import Derivation
-from .errors import InputError
+from .record import Derivation
 from .latex import (SHORT_LATEX, ExpressionWriter, component_symbol, escape_text, frame_index,
                     has_component_symbol, mapping_lines)
-from .parse import Vocabulary, parse_expression
-from .tracer import Step, Verdict
-
-#: Step results that are dictionaries of components, with the quantity that names their symbols.
-MAPPING_QUANTITIES = {
-    "metric": "metric",
-    "metric_derivatives": "metric_derivatives",
-    "inverse_metric": "inverse_metric",
-    "riemann_lowered": "riemann_lowered",
-    "weyl": "weyl",
-    "ricci_by_trace_identity": "ricci_by_trace_identity",
-    "stress_energy_mixed": "stress_energy_mixed",
-    "stress_energy_up": "stress_energy_up",
-    "frame_stress_energy": "frame_stress_energy",
-    "frame_ricci": "frame_ricci",
-    "frame_riemann": "frame_riemann",
-}
-
-VERDICT_LABELS = {
-    "ricci_flat": "Ricci-flat",
-    "einstein_space": "Einstein manifold",
-    "constant_curvature": "Constant curvature",
-    "conformally_flat": "Conformally flat",
-    "bianchi": "Contracted Bianchi identity",
-    "trace_free": "Trace-free stress-energy",
-    "perfect_fluid": "Perfect fluid at rest in the frame",
-}
+from .quantities import QUANTITIES, VERDICTS
+from .record import CONDITION_WORDS, HOLDS_WORDS, Decision, Method, Step, Verdict
 
 ENERGY_CONDITIONS = ("null", "weak", "strong", "dominant")
 
@@ -119,11 +93,11 @@ def _id_text(step_id: str) -> str:
 
 
 def _verdict_word(holds: bool | None) -> str:
-    return {True: "holds", False: "does not hold", None: "not decided"}[holds]
+    return HOLDS_WORDS[holds]
 
 
 def _condition_word(holds: bool | None) -> str:
-    return {True: "holds (proven)", False: "violated", None: "not decided"}[holds]
+    return "holds (proven)" if holds else CONDITION_WORDS[holds]
 
 
 def section_of(step: Step) -> str:
@@ -137,11 +111,6 @@ def section_of(step: Step) -> str:
     if step.id in MATTER_STEPS or step.id.startswith("stress_energy/"):
         return "matter"
     return "curvature"
-
-
-def perfect_fluid_evidence(evidence: str) -> str:
-    """The perfect-fluid evidence without the values appended to it (the report typesets those)."""
-    return evidence.split("; density rho = ")[0]
 
 
 class _Model:
@@ -220,18 +189,10 @@ class _Model:
                 out += " + " + term
         return out or "0"
 
-    def number_tex(self, text: str) -> str | None:
-        """A number printed in a recorded evidence text (e.g. 191409/250000 or -41/(8*pi)), typeset."""
-        if re.fullmatch(r"-?[0-9]+(\.[0-9]+)?(e[-+]?[0-9]+)?", text):
-            mantissa, _, exponent = text.partition("e")
-            return mantissa + (rf"\times 10^{{{int(exponent)}}}" if exponent else "")
-        try:
-            value = parse_expression(text, Vocabulary({}, {}, {}), "a recorded number")
-        except InputError:
-            return None
-        if not value.is_number:
-            return None
-        return self.writer.inline(value)
+    def number_tex(self, value: sympy.Expr) -> str:
+        """An exact number, typeset, with a three-digit approximation when it is not rational."""
+        tex = self.writer.inline(value)
+        return tex if value.is_Rational else rf"{tex} \approx {sympy.N(value, 3)}"
 
     # the formula, substitution and result of a step ----------------------------
     def equations_for(self, step: Step) -> list[dict]:
@@ -262,10 +223,9 @@ class _Model:
         if step.kind == "ode solution":
             return self.ode_lines(step)
         if isinstance(result, dict):
-            quantity = MAPPING_QUANTITIES.get(step.id)
-            if quantity is None:
+            if step.id not in QUANTITIES:
                 return []
-            return [{"tex": tex, "long": long} for tex, long in mapping_lines(result, quantity, self.writer)]
+            return [{"tex": tex, "long": long} for tex, long in mapping_lines(result, step.id, self.writer)]
         lhs = {"determinant": "g", "scalar": "R", "kretschmann": "K"}.get(step.id, escape_text(step.id))
         return [self.eq(lhs, result)]
 
@@ -352,17 +312,15 @@ class _Model:
         r, p = step.result, step.params
         if step.kind == "summary" and isinstance(r, dict) and not r:
             notes.append("Every component vanishes.")
-        elif step.id in MAPPING_QUANTITIES and step.id.startswith(("frame_", "stress_energy_")) and isinstance(r, dict) \
+        elif step.id in QUANTITIES and step.id.startswith(("frame_", "stress_energy_")) and isinstance(r, dict) \
                 and not r:
             notes.append("Every component vanishes.")
         if step.id == "field_equations":
             units = p.get("units", "")
             notes.append("Geometric units, \\(G = c = 1\\)." if units == "geometric" else
                          "Physical units: \\(G\\) and \\(c\\) are kept as symbols." if units == "physical" else "")
-        if step.id == "verdict/perfect_fluid" and isinstance(r, Verdict) and r.holds:
-            fluid = self.d.results.get("perfect_fluid", {})
-            if fluid:
-                notes.append(self.perfect_fluid_sentence(fluid))
+        if step.id == "verdict/perfect_fluid" and isinstance(r, Verdict) and r.holds and "fluid" in p:
+            notes.append(self.perfect_fluid_sentence(p["fluid"]))
         if step.id == "ansatz/equations":
             notes += self.ansatz_equation_notes(p)
         if step.id == "ansatz/dependence" and isinstance(r, dict):
@@ -497,6 +455,9 @@ class _Model:
                     rf"\({self.function_tex(r['unknown'])}\) with sympy's \texttt{{dsolve}}.")
         if step.id == "ansatz/solution" and isinstance(r, dict):
             return "The metric with the solution put in."
+        if step.kind == "raising" and step.id in QUANTITIES and step.id not in ANNOTATIONS:
+            q = QUANTITIES[step.id]
+            return rf"The {escape_text(q.words)}, \({q.formula}\) (components not listed vanish)."
         if step.id == "geodesic_equations":
             return (r"Geodesic equations as a first-order system in \(x^a\) and \(u^a = dx^a/d\tau\): the "
                     r"accelerations \(du^a/d\tau = -\Gamma^a_{bc}\,u^b u^c\), summed over all \(b\) and \(c\), so "
@@ -547,60 +508,41 @@ class _Model:
             tex += f" {sign} " + r"\sum_k p_{(k)}"
         return tex + r" \ge 0"
 
-    def point_tex(self, text: str) -> str | None:
-        pieces = []
-        for part in text.split(", "):
-            name, _, value = part.partition(" = ")
-            number = self.number_tex(value.strip())
-            if not re.fullmatch(r"[A-Za-z][A-Za-z0-9_]*", name.strip()) or number is None:
-                return None
-            pieces.append(f"{self.sym(name.strip())} = {number}")
-        return ",\\ ".join(pieces)
+    def point_tex(self, point: dict) -> str:
+        return ",\\ ".join(f"{self.sym(name)} = {self.writer.inline(value)}" for name, value in point.items())
 
-    def outcome_parts(self, holds: bool | None, evidence: str) -> tuple[str, str, str]:
-        """The outcome of one inequality: (word, what it says in the table, what follows the inequality in a sentence).
-
-        proven; violated everywhere or at an exact point of the region; not decided, with why."""
-        if holds is True:
-            if evidence == "it is identically 0":
-                return "proven", "identically zero", "holds: it is identically zero"
-            if evidence.startswith("non-negative for all values allowed by the declared signs"):
-                why = "non-negative for every value the declared signs allow (sympy's assumptions)"
-                return "proven", why, "holds: it is " + why
-            return "proven", breakable_text(evidence), "holds: " + breakable_text(evidence)
-        if holds is False:
-            if evidence.startswith("negative for all values allowed by the declared signs"):
-                why = "negative for every value the declared signs allow (sympy's assumptions)"
-                return "violated everywhere", why, "fails everywhere: it is " + why
-            m = re.fullmatch(r"at the point (.+) of the region it equals (.+) < 0 \(exact value\)", evidence)
-            if m:
-                point, value = self.point_tex(m.group(1)), self.number_tex(m.group(2))
-                if point is not None and value is not None:
-                    approx = ""
-                    try:
-                        number = parse_expression(m.group(2), Vocabulary({}, {}, {}), "a recorded number")
-                        approx = "" if number.is_Rational else rf" \approx {sympy.N(number, 3)}"
-                    except InputError:
-                        pass
-                    where = rf"at the point \({point}\) of the region"
-                    value_text = rf"\({value}{approx} < 0\) (exact value)"
-                    return ("violated", f"{where} it equals {value_text}",
-                            f"fails {where}, where it equals {value_text}")
-            return "violated", breakable_text(evidence), "fails: " + breakable_text(evidence)
-        m = re.fullmatch(r"the declared signs do not settle its sign; it is >= 0 at all (\d+) exact points sampled "
-                         r"from .* where the frame exists( \([^()]*\))?: evidence, not proof", evidence)
-        if m:
+    def outcome_parts(self, row: dict) -> tuple[str, str, str]:
+        """The outcome of one inequality, from how it was decided: (word, what it says in the table,
+        what follows the inequality in a sentence).  Proven; violated everywhere or at an exact point of the
+        region; undecided, with why."""
+        decision = Decision.from_data(row["decision"])
+        method = decision.method
+        functions = ", free functions and their derivatives taken as real" if decision.free_functions else ""
+        if method is Method.IDENTICALLY_ZERO:
+            return "proven", "identically zero", "holds: it is identically zero"
+        if method is Method.DECLARED_SIGNS and decision.holds:
+            why = f"non-negative for every value the declared signs allow (sympy's assumptions{functions})"
+            return "proven", why, "holds: it is " + why
+        if method is Method.DECLARED_SIGNS:
+            why = f"negative for every value the declared signs allow (sympy's assumptions{functions})"
+            return "violated everywhere", why, "fails everywhere: it is " + why
+        if method is Method.EXACT_POINT:
+            where = rf"at the point \({self.point_tex(decision.point)}\) of the region"
+            value_text = rf"\({self.number_tex(decision.value_there)} < 0\) (exact value)"
+            return "violated", f"{where} it equals {value_text}", f"fails {where}, where it equals {value_text}"
+        if method is Method.SAMPLED:
             why = (r"the declared signs do not settle its sign; it is \(\ge 0\) at all "
-                   rf"{m.group(1)} exact points sampled from the region where the frame exists"
-                   + (" " + escape_text(m.group(2).strip()) if m.group(2) else "") + ": evidence, not proof")
-            return "not decided", why, "is not decided: " + why
-        if evidence.startswith("it depends on free functions"):
+                   rf"{decision.points} exact points sampled from the region where the frame exists "
+                   rf"(evaluated to {decision.digits} digits): evidence, not proof")
+            return "undecided", why, "is undecided: " + why
+        if method is Method.FREE_FUNCTIONS:
             why = "it depends on free functions, and the declared signs do not fix its sign"
-            return "not decided", why, "is not decided: " + why
-        return "not decided", breakable_text(evidence), "is not decided: " + breakable_text(evidence)
+            return "undecided", why, "is undecided: " + why
+        why = breakable_text(decision.sentence(row["value"]))
+        return "undecided", why, "is undecided: " + why
 
-    def outcome_tex(self, holds: bool | None, evidence: str) -> str:
-        word, what, _ = self.outcome_parts(holds, evidence)
+    def outcome_tex(self, row: dict) -> str:
+        word, what, _ = self.outcome_parts(row)
         return rf"\textbf{{{word}}}: {what}"
 
     def region_tex(self, region: dict) -> str:
@@ -615,21 +557,21 @@ class _Model:
         for label, row in rows.items():
             out.append({"inequality": self.inequality_tex(label),
                         "value": self.value_tex(row["value"], CELL_WIDTH),
-                        "outcome": self.outcome_tex(row["holds"], row["evidence"])})
+                        "outcome": self.outcome_tex(row)})
         return {"rows": out}
 
     def condition_summary(self, step: Step) -> str:
-        """Why an energy condition holds, fails or is not decided, in words, from its rows (no final period)."""
+        """Why an energy condition holds, fails or is undecided, in words, from its rows (no final period)."""
         result = step.result
         rows = step.params.get("inequalities", {})
         if not rows:
-            return self.evidence_tex(step.id, result.evidence)
+            return self.evidence_tex(step)
         if result.holds is True:
             return "every inequality is proven"
         wanted = False if result.holds is False else None
         for label, row in rows.items():
             if row["holds"] is wanted:
-                return rf"\({self.inequality_tex(label)}\) " + self.outcome_parts(row["holds"], row["evidence"])[2]
+                return rf"\({self.inequality_tex(label)}\) " + self.outcome_parts(row)[2]
         return breakable_text(result.evidence)
 
     # steps ---------------------------------------------------------------------
@@ -652,47 +594,42 @@ class _Model:
         """A verdict's evidence as LaTeX text."""
         if step.kind == "energy condition":
             return self.condition_summary(step)
-        return self.evidence_tex(step.id, step.result.evidence)
+        return self.evidence_tex(step)
 
-    def frame_text(self, text: str) -> str:
-        """Escaped text with frame components p_(x) and T_(x)(y) typeset."""
-        pattern = re.compile(r"(p|T)_((?:\([A-Za-z][A-Za-z0-9_]*\))+)")
+    def residue_tex(self, residue: dict) -> str:
+        """A perfect-fluid residue: T_(a)(b) off the diagonal, or p_(a) - p_(b)."""
+        a, b = residue["frame_indices"]
+        if residue["kind"] == "off-diagonal":
+            return rf"\(T_{{{frame_index(a, self.writer)}{frame_index(b, self.writer)}}}\)"
+        return (rf"\({component_symbol('pressure', [a], self.writer)} - "
+                rf"{component_symbol('pressure', [b], self.writer)}\)")
 
-        def plain(part: str) -> str:  # escaped, keeping the spaces at its ends
-            if not part.strip():
-                return " " if part else ""
-            return (" " if part[0].isspace() else "") + breakable_text(part) + (" " if part[-1].isspace() else "")
-        out, last = [], 0
-        for m in pattern.finditer(text):
-            out.append(plain(text[last:m.start()]))
-            names = re.findall(r"\(([A-Za-z][A-Za-z0-9_]*)\)", m.group(2))
-            if m.group(1) == "p" and len(names) == 1:
-                out.append(rf"\({component_symbol('pressure', names, self.writer)}\)")
-            elif all(n in self.d.metric.names for n in names):
-                out.append(rf"\({m.group(1)}_{{{''.join(frame_index(n, self.writer) for n in names)}}}\)")
-            else:
-                out.append(breakable_text(m.group()))
-            last = m.end()
-        out.append(plain(text[last:]))
-        return "".join(out).replace(r"\) {-} \(", " - ")
+    def evidence_tex(self, step: Step) -> str:
+        """A verdict's evidence as LaTeX text, typeset from the step's fields where it has them."""
+        verdict, p = step.result, step.params
+        if step.id == "verdict/perfect_fluid" and "residue" in p:
+            residue = self.residue_tex(p["residue"])
+            if verdict.holds is False:
+                return residue + " is not zero; a fluid moving relative to these observers is not tested"
+            return residue + ": " + breakable_text(p.get("zero_test", ""))
+        if step.id == "verdict/perfect_fluid" and verdict.holds and not p.get("vacuum"):
+            return f"each of the {p['checked']} conditions checked vanishes exactly"
+        if step.id == "verdict/trace_free" and "trace" in p:
+            if verdict.holds is False:
+                return rf"the trace \(T^i{{}}_i = {self.value_tex(p['trace'])}\) is not zero"
+            if verdict.holds:
+                return rf"the trace \(T^i{{}}_i\) vanishes ({breakable_text(p.get('zero_test', ''))})"
+            return (rf"the trace \(T^i{{}}_i = {self.value_tex(p['trace'])}\) is not proven zero: "
+                    + breakable_text(p.get("zero_test", "")))
+        if step.id == "frame/check" and p.get("residues") == "unnormalised frame":
+            return (r"\(g(w_{(a)}, w_{(b)}) - \eta_{(a)(b)} N_{(a)}\) for the unnormalised vectors: "
+                    + self.check_outcome_tex(verdict.holds, p["count"]))
+        return breakable_text(verdict.evidence)
 
-    def evidence_tex(self, step_id: str, evidence: str) -> str:
-        """Evidence text, with the values the new stages append to it typeset rather than printed."""
-        if evidence.startswith("not decided: "):  # the verdict word says so already
-            evidence = evidence[len("not decided: "):]
-        if step_id == "verdict/perfect_fluid":
-            return self.frame_text(perfect_fluid_evidence(evidence))
-        if step_id == "verdict/trace_free" and "stress_energy_trace" in self.d.results:
-            m = re.fullmatch(r"the trace T\^i_i = .* is not zero", evidence)
-            if m:
-                return rf"the trace \(T^i{{}}_i = {self.value_tex(self.d.results['stress_energy_trace'])}\) is not zero"
-            return breakable_text(evidence).replace(r"T\^{}i\_i", r"\(T^i{}_i\)")
-        if step_id == "ansatz/check":
-            return breakable_text(evidence).replace(r"E\_ij", r"\(E_{ij}\)")
-        if step_id == "frame/check" and evidence.startswith("g(w_a, w_b) - eta_ab N_a"):
-            return (r"\(g(w_{(a)}, w_{(b)}) - \eta_{(a)(b)} N_{(a)}\) "
-                    + breakable_text(evidence[len("g(w_a, w_b) - eta_ab N_a"):]))
-        return breakable_text(evidence)
+    def check_outcome_tex(self, holds: bool | None, count: int) -> str:
+        how = "have canonical rational form 0" if self.d.arithmetic == "field" else "reduce to 0 with sympy"
+        return {True: f"all {count} {how}", False: "one is not zero",
+                None: "not all proven symbolically"}[holds]
 
     def step_entry(self, step: Step) -> dict:
         shown_before = self.formula_first_shown.get(step.formula)
@@ -761,7 +698,7 @@ class _Model:
             text = [(r"Each condition is a set of inequalities in \(\rho\) and the \(p_{(k)}\), multiplied by "
                      r"\(\kappa > 0\), which changes no sign. Each is \textbf{proven} from the declared signs of the "
                      r"symbols (or because it vanishes identically), \textbf{violated} (everywhere, or at an exact point "
-                     r"of the sampling region, which is a counterexample), or \textbf{not decided}, with the reason; "
+                     r"of the sampling region, which is a counterexample), or \textbf{undecided}, with the reason; "
                      r"non-negative values at every sampled point are evidence, not proof.")]
             region = next((s.params.get("region") for s in self.d.steps
                            if s.kind == "energy condition" and s.params.get("region")), None)
@@ -832,8 +769,8 @@ class _Model:
             solution.append(self.eq(w.inline(f) if f is not None else escape_text(name), value))
         verdicts = []
         for k, v in r.get("verdicts", {}).items():
-            verdicts.append({"label": VERDICT_LABELS.get(k, escape_text(k)), "word": _verdict_word(v["holds"]),
-                             "holds": v["holds"], "evidence": self.evidence_tex(f"verdict/{k}", v["evidence"]),
+            verdicts.append({"label": VERDICTS[k].label, "word": _verdict_word(v["holds"]),
+                             "holds": v["holds"], "evidence": self.evidence_tex(self.d.step(f"verdict/{k}")),
                              "link": self.link(f"verdict/{k}")})
         for key in ENERGY_CONDITIONS:
             step_id = f"energy_conditions/{key}"

@@ -1,4 +1,4 @@
-"""The record of a derivation: a list of steps, each a small immutable value.
+"""Collecting the steps of a derivation as the engine computes them.
 
 A :class:`Step` is one equation of the derivation: what kind of computation
 it is, the general formula, the formula instantiated at its indices, the
@@ -10,58 +10,16 @@ arithmetic that produced a result never appears here: only sympy expressions.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
-from typing import Any, Mapping, Union
+from typing import Mapping
 
 import sympy
 
+from .record import Result, Simplification, Step, Verdict
+
+__all__ = ["Components", "Result", "Simplification", "Step", "TraceError", "Tracer", "Verdict"]
+
 #: Components of a tensor keyed by comma-joined coordinate names, e.g. "r,t,t".
 Components = Mapping[str, sympy.Expr]
-
-
-@dataclass(frozen=True)
-class Verdict:
-    """A yes/no statement with the evidence for it.
-
-    ``holds`` is True or False when decided, None when the algebra could not
-    decide (the evidence then says what was seen numerically).
-    """
-
-    statement: str
-    holds: bool | None
-    evidence: str
-
-
-Result = Union[sympy.Expr, Mapping[str, sympy.Expr], Verdict, None]
-
-
-@dataclass(frozen=True)
-class Simplification:
-    """One rewrite of a raw result: before, after, and what was applied.
-
-    ``before`` is None when the raw expression was too long to be worth
-    keeping; ``before_size`` then still says how long it was.
-    """
-
-    rewrite: str
-    before: sympy.Expr | None
-    after: sympy.Expr
-    before_size: int = 0
-
-
-@dataclass(frozen=True)
-class Step:
-    """One recorded equation of the derivation."""
-
-    id: str
-    kind: str
-    annotation: str
-    formula: str
-    uses: tuple[str, ...]
-    result: Result
-    params: Mapping[str, Any] = field(default_factory=dict)
-    substituted: str = ""
-    simplifications: tuple[Simplification, ...] = ()
 
 
 class TraceError(Exception):

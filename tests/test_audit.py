@@ -152,7 +152,7 @@ def test_example_claims_file_shows_every_verdict_kind_and_is_recorded():
     metric, title, claims = load_claims(EXAMPLES / "claims" / "seminar_notes.toml")
     d = derive(metric)
     verdicts, earliest = audit(d, claims)
-    record_audit(d, title, verdicts, earliest)
+    d = record_audit(d, title, verdicts, earliest)
     seen = {v.outcome for v in verdicts}
     assert {AGREES, DIFFERS, UNDECIDED, UNREADABLE} <= seen
     data = json.loads(trace_json(d))

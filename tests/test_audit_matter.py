@@ -264,7 +264,7 @@ def test_example_homework_file_has_right_and_wrong_claims_of_the_new_kinds():
     metric, title, claims = load_claims(EXAMPLES / "claims" / "wormhole_homework.toml")
     d = derive(metric)
     verdicts, earliest = audit(d, claims)
-    record_audit(d, title, verdicts, earliest)
+    d = record_audit(d, title, verdicts, earliest)
     outcome = {v.claim.quantity: set() for v in verdicts}
     for v in verdicts:
         outcome[v.claim.quantity].add(v.outcome)
@@ -284,7 +284,7 @@ def test_audit_section_typesets_the_new_quantities():
     metric, title, claims = load_claims(EXAMPLES / "claims" / "wormhole_homework.toml")
     d = derive(metric)
     verdicts, earliest = audit(d, claims)
-    record_audit(d, title, verdicts, earliest)
+    d = record_audit(d, title, verdicts, earliest)
     tex = ReportExporter().export(d)
     section = tex.split(r"\section{Audit:")[1].split(r"\section{Checks")[0]
     for symbol in (r"\(\rho\)", r"\(p_{(\theta)}\)", r"\(T_{{t}{t}}\)", r"\(\frac{du_{\phi}}{d\tau}\)",

@@ -71,8 +71,10 @@ def assert_one_line_error(proc: subprocess.CompletedProcess, *needles: str) -> s
     return line
 
 
-def read_sympy(text: str, names) -> sp.Expr:
-    """Read an expression written in trace.json back, with real symbols."""
+def read_sympy(text, names) -> sp.Expr:
+    """Read an expression written in trace.json ({"expr": text}) or in a test back, with real symbols."""
+    if isinstance(text, dict):
+        text = text["expr"]
     return sp.sympify(text, locals={n: sp.Symbol(n, real=True) for n in names})
 
 

@@ -203,8 +203,8 @@ def test_energy_conditions_are_tables_with_words_for_each_outcome():
     # and is only sampled (Einstein's static universe, Carroll sec. 8.3, from memory).
     assert r"\textbf{proven}" in body
     assert r"\textbf{violated}: at the point" in body
-    assert "evidence, not proof" in body and r"\textbf{not decided}" in body
-    assert r"\textbf{Outcome: violated}" in body and r"\textbf{Outcome: not decided}" in body
+    assert "evidence, not proof" in body and r"\textbf{undecided}" in body
+    assert r"\textbf{Outcome: violated}" in body and r"\textbf{Outcome: undecided}" in body
 
 
 def test_frame_density_and_orbit_are_typeset():

@@ -184,18 +184,18 @@ PARAM_CORRUPTIONS = [
     ("closed_static_universe", "energy_conditions/weak", _inequality("rho", value=sp.Integer(1))),
     # A violation recorded at a point where the value is in fact positive (Lambda = 0, a = 1: rho = 3/(8 pi)).
     ("closed_static_universe", "energy_conditions/weak",
-     _inequality("rho", evidence="at the point Lambda = 0, a = 1 of the region it equals 3/(8*pi) < 0 (exact value)")),
+     _inequality("rho", holds=False, decision={"method": "exact point", "holds": False,
+                                               "point": {"Lambda": sp.Integer(0), "a": sp.Integer(1)},
+                                               "value_there": -3 / (8 * sp.pi)})),
     # A sampled inequality claimed proven by the declared signs (Lambda is only real, so it is not).
     ("closed_static_universe", "energy_conditions/strong",
-     _inequality("rho + sum p", holds=True,
-                 evidence="non-negative for all values allowed by the declared signs (sympy's assumptions)")),
+     _inequality("rho + sum p", holds=True, decision={"method": "declared signs", "holds": True})),
     # A proven non-negative inequality claimed negative everywhere.
     ("closed_static_universe", "energy_conditions/null",
-     _inequality("rho + p_(chi)", holds=False,
-                 evidence="negative for all values allowed by the declared signs (sympy's assumptions)")),
-    # An identically vanishing inequality that is not zero.
-    ("wormhole_passage", "energy_conditions/dominant", _inequality("rho - p_(theta)", value=sp.Integer(0),
-                                                                    evidence="it is identically 0", holds=True)),
+     _inequality("rho + p_(chi)", holds=False, decision={"method": "declared signs", "holds": False})),
+    # An inequality recorded as identically zero that is not zero.
+    ("wormhole_passage", "energy_conditions/dominant",
+     _inequality("rho - p_(theta)", holds=True, decision={"method": "identically zero", "holds": True})),
     ("wormhole_passage", "verdict/trace_free", lambda p: {**p, "trace": 2 * p["trace"]}),
     ("exterior_from_ansatz", "ansatz/equations",
      lambda p: {**p, "identically_zero": [k for k in p["identically_zero"] if k != "t,r"]}),

@@ -1,0 +1,168 @@
+"""The registry of quantities: what each quantity stepper computes *is*, declared once.
+
+Every other module reads this table: the chain for the general formula it records, the claims reader for
+what may be claimed and how many indices a component names, the audit for where a value is kept and how to
+say the quantity in words, the LaTeX writer for the symbol and index positions, the report for which step
+results are tables of components, the command line for the words of a verdict.  Adding a quantity starts
+here (see DEVELOPERS.md, "Adding a quantity").
+
+Index positions are written one letter per index: ``u`` upper, ``d`` lower (coordinate indices), ``f`` a
+frame index (named after the coordinate its frame vector starts from), ``v`` a velocity component
+(du^a/dtau), ``n`` the name of a free function.  Components are keyed by comma-joined names ("r,t,t").
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Mapping
+
+
+@dataclass(frozen=True)
+class Quantity:
+    """One quantity.
+
+    ``symbol`` is the TeX head (``\\Gamma``, ``R``); ``staggered`` puts an empty group between upper and
+    lower indices (R^a{}_{bcd}; a Christoffel symbol is not staggered).  ``stored`` says which orderings
+    a results table lists and how the others follow.  ``result_key`` is where the final values are kept in
+    the results (default: the name), ``step`` the id of the step holding the whole quantity (default: the
+    name).  ``requires`` is the metric-file table without which it is not computed ("matter", "ansatz")
+    or "invariants" (skipped by --skip-invariants); ``kappa_scaled`` marks the matter quantities that carry
+    1/kappa; ``claimable`` whether a claims file may name it.
+    """
+
+    name: str
+    words: str
+    positions: str
+    symbol: str
+    formula: str
+    stored: str = "all orderings"
+    staggered: bool = True
+    claimable: bool = False
+    result_key: str = ""
+    step: str = ""
+    requires: str = ""
+    kappa_scaled: bool = False
+
+    @property
+    def rank(self) -> int:
+        return len(self.positions)
+
+    @property
+    def upper(self) -> int:
+        """How many leading indices are upper."""
+        return len(self.positions) - len(self.positions.lstrip("u"))
+
+    @property
+    def in_frame(self) -> bool:
+        return "f" in self.positions
+
+    @property
+    def key(self) -> str:
+        return self.result_key or self.name
+
+    @property
+    def step_id(self) -> str:
+        return self.step or self.name
+
+
+_RIEMANN_ORDER = "a < b, c < d and (a, b) <= (c, d); the others follow from R_abcd = -R_bacd = -R_abdc = R_cdab"
+
+QUANTITIES: Mapping[str, Quantity] = {q.name: q for q in (
+    Quantity("metric", "metric", "dd", "g", r"ds^2 = g_{ij}\,dx^i\,dx^j", "both orders of i, j"),
+    Quantity("metric_derivatives", "first derivatives of the metric", "ddd", r"\partial", r"\partial_k g_{ij}",
+             "keyed 'k:i,j' with i <= j; d_k g_ji = d_k g_ij"),
+    Quantity("determinant", "determinant of the metric", "", "g", r"g = \det(g_{ij})", claimable=True),
+    Quantity("inverse_metric", "inverse metric", "uu", "g", r"g^{ik} g_{kj} = \delta^i_j", "both orders of i, j",
+             claimable=True),
+    Quantity("christoffel", "Christoffel symbol", "udd", r"\Gamma",
+             r"\Gamma^a_{bc} = \tfrac12 g^{ad}\left(\partial_b g_{dc} + \partial_c g_{db} - \partial_d g_{bc}\right)",
+             "both orders of b, c (Gamma^a_cb = Gamma^a_bc)", staggered=False, claimable=True),
+    Quantity("contracted_christoffel", "contracted Christoffel symbol", "d", r"\Gamma",
+             r"\Gamma^l_{li} = \partial_i \ln\sqrt{|g|} = \frac{\partial_i g}{2g}"),
+    Quantity("riemann", "Riemann tensor", "uddd", "R",
+             (r"R^a{}_{bcd} = \partial_c \Gamma^a_{db} - \partial_d \Gamma^a_{cb} "
+              r"+ \Gamma^a_{ce}\Gamma^e_{db} - \Gamma^a_{de}\Gamma^e_{cb}"),
+             "both orders of c, d (R^a_bdc = -R^a_bcd)", claimable=True),
+    Quantity("ricci", "Ricci tensor", "dd", "R", r"R_{bd} = R^a{}_{bad}", "both orders (symmetric)", claimable=True),
+    Quantity("ricci_by_trace_identity", "Ricci tensor by the trace identity", "dd", "R^{(2)}",
+             (r"R_{ij} = \partial_l \Gamma^l_{ij} - \partial_i\partial_j \ln\sqrt{|g|} "
+              r"+ \Gamma^a_{ij}\,\partial_a \ln\sqrt{|g|} - \Gamma^l_{ia}\Gamma^a_{jl}"), "both orders (symmetric)"),
+    Quantity("scalar", "scalar curvature", "", "R", r"R = g^{ij} R_{ij}", claimable=True),
+    Quantity("einstein", "Einstein tensor", "dd", "G", r"G_{ij} = R_{ij} - \tfrac12 R\, g_{ij}",
+             "both orders (symmetric)", claimable=True),
+    Quantity("ricci_mixed", "Ricci tensor with its first index raised", "ud", "R", r"R^a{}_b = g^{ac} R_{cb}",
+             "every ordering", claimable=True),
+    Quantity("einstein_mixed", "Einstein tensor with its first index raised", "ud", "G",
+             r"G^a{}_b = g^{ac} G_{cb} = R^a{}_b - \tfrac12 R\,\delta^a_b", "every ordering", claimable=True),
+    Quantity("riemann_lowered", "Riemann tensor with all indices down", "dddd", "R", r"R_{abcd} = g_{ae} R^e{}_{bcd}",
+             _RIEMANN_ORDER, claimable=True),
+    Quantity("kretschmann", "Kretschmann scalar", "", "K", r"K = R_{abcd} R^{abcd}", claimable=True,
+             requires="invariants"),
+    Quantity("weyl", "Weyl tensor", "dddd", "C",
+             (r"C_{abcd} = R_{abcd} - \frac{g_{ac}R_{bd} - g_{ad}R_{bc} - g_{bc}R_{ad} + g_{bd}R_{ac}}{n-2} "
+              r"+ \frac{R\,(g_{ac}g_{bd} - g_{ad}g_{bc})}{(n-1)(n-2)}"), _RIEMANN_ORDER, claimable=True,
+             requires="invariants"),
+    Quantity("field_equation", "field equation of the ansatz", "dd", "E", r"E_{ij} = G_{ij} + \Lambda g_{ij}",
+             requires="ansatz"),
+    Quantity("stress_energy", "stress-energy tensor", "dd", "T",
+             r"T_{ij} = \frac{1}{\kappa}\left(G_{ij} + \Lambda g_{ij}\right)", "both orders (symmetric)",
+             claimable=True, requires="matter", kappa_scaled=True),
+    Quantity("stress_energy_mixed", "stress-energy tensor T^i_j", "ud", "T", r"T^i{}_j = g^{ik} T_{kj}",
+             "every ordering", claimable=True, requires="matter", kappa_scaled=True),
+    Quantity("stress_energy_up", "stress-energy tensor T^ij", "uu", "T", r"T^{ij} = g^{ik} g^{jl} T_{kl}",
+             "both orders (symmetric)", claimable=True, requires="matter", kappa_scaled=True),
+    Quantity("frame_stress_energy", "stress-energy tensor in the orthonormal frame", "ff", "T",
+             r"T_{(a)(b)} = e_{(a)}{}^i e_{(b)}{}^j T_{ij}", "both orders (symmetric)", claimable=True,
+             requires="matter", kappa_scaled=True),
+    Quantity("frame_ricci", "Ricci tensor in the orthonormal frame", "ff", "R",
+             r"R_{(a)(b)} = e_{(a)}{}^i e_{(b)}{}^j R_{ij}", "both orders (symmetric)", claimable=True,
+             requires="matter"),
+    Quantity("frame_riemann", "Riemann tensor in the orthonormal frame", "ffff", "R",
+             r"R_{(a)(b)(c)(d)} = e_{(a)}{}^i e_{(b)}{}^j e_{(c)}{}^k e_{(d)}{}^l R_{ijkl}",
+             _RIEMANN_ORDER + " (in frame order)", requires="matter"),
+    Quantity("energy_density", "energy density", "", r"\rho", r"\rho = T_{(0)(0)}", claimable=True,
+             step="density_and_pressures", requires="matter", kappa_scaled=True),
+    Quantity("pressure", "pressures", "f", "p", r"p_{(k)} = T_{(k)(k)}", "one per spatial frame direction",
+             claimable=True, result_key="pressures", step="density_and_pressures", requires="matter",
+             kappa_scaled=True),
+    Quantity("geodesic_acceleration", "geodesic acceleration", "v", "u",
+             r"\frac{du^a}{d\tau} = -\Gamma^a_{bc}\, u^b u^c", "one per coordinate", claimable=True,
+             result_key="geodesic_equations", step="geodesic_equations"),
+    Quantity("ansatz_solution", "solution of the ansatz", "n", "", r"E_{ij}\bigl|_{\text{solution}} = 0",
+             "one per unknown function", claimable=True, result_key="ansatz", step="ansatz/solution",
+             requires="ansatz"),
+)}
+
+
+@dataclass(frozen=True)
+class VerdictKind:
+    """A yes/no statement stepper decides: its label in summaries and its formula."""
+
+    name: str
+    label: str
+    formula: str
+
+
+VERDICTS: Mapping[str, VerdictKind] = {v.name: v for v in (
+    VerdictKind("ricci_flat", "Ricci-flat", r"R_{ij} = 0"),
+    VerdictKind("einstein_space", "Einstein manifold", r"R_{ij} = \lambda g_{ij},\quad \lambda = R/n"),
+    VerdictKind("constant_curvature", "Constant curvature",
+                r"R_{abcd} = k\,(g_{ac}g_{bd} - g_{ad}g_{bc}),\quad k = \frac{R}{n(n-1)} \text{ constant}"),
+    VerdictKind("conformally_flat", "Conformally flat", r"C_{abcd} = 0"),
+    VerdictKind("bianchi", "Contracted Bianchi identity",
+                r"\nabla^a G_{ab} = g^{ac}\left(\partial_c G_{ab} - \Gamma^e_{ca} G_{eb} - \Gamma^e_{cb} G_{ae}\right) = 0"),
+    VerdictKind("trace_free", "Trace-free stress-energy", r"T = T^i{}_i = 0"),
+    VerdictKind("perfect_fluid", "Perfect fluid at rest in the frame", r"T_{ij} = (\rho + p)\, u_i u_j + p\, g_{ij}"),
+)}
+
+
+def claimable() -> dict[str, Quantity]:
+    """The quantities a claims file may name, in registry order."""
+    return {name: q for name, q in QUANTITIES.items() if q.claimable}
+
+
+def formula(name: str) -> str:
+    """The general formula of a quantity or a verdict."""
+    if name in QUANTITIES:
+        return QUANTITIES[name].formula
+    return VERDICTS[name].formula

@@ -1,0 +1,355 @@
+"""The derivation record: the product of the engine and the only thing exporters read.
+
+A derivation is an immutable value: what was asked (:class:`MetricRecord`
+with its optional requests), the conventions, and the ordered steps, each a
+small frozen :class:`Step` (what kind of computation, the general formula,
+the formula instantiated at its indices, the exact result, the earlier
+steps it used).  The engine (``stepper.chain`` and the stages beyond it)
+produces one; the audit produces a new one from it; exporters receive one,
+either straight from a run or loaded from ``trace.json`` by
+:func:`stepper.trace.load_trace`, and import nothing of the engine.
+
+Nothing in this module computes curvature: only sympy values and plain data.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import enum
+from dataclasses import dataclass, field
+from typing import Any, Mapping, Union
+
+import sympy
+
+
+class StepKind(str, enum.Enum):
+    """What kind of computation a step records (its value is the word written in ``trace.json``)."""
+
+    INPUT = "input"
+    DERIVATIVE = "derivative"
+    DETERMINANT = "determinant"
+    INVERSE = "inverse"
+    CHECK = "check"
+    COMPONENT = "component"
+    SUMMARY = "summary"
+    IDENTITY = "identity"
+    CONTRACTION = "contraction"
+    ROUTE = "route"
+    LOWERING = "lowering"
+    RAISING = "raising"
+    INVARIANT = "invariant"
+    TENSOR = "tensor"
+    VERDICT = "verdict"
+    NUMERIC_CHECK = "numeric check"
+    FIELD_EQUATIONS = "field equations"
+    FRAME = "frame"
+    FRAME_COMPONENTS = "frame components"
+    MATTER = "matter"
+    ENERGY_CONDITION = "energy condition"
+    ANSATZ = "ansatz"
+    ODE_SOLUTION = "ode solution"
+    GEODESIC = "geodesic"
+    CLAIM = "claim"
+
+    def __str__(self) -> str:
+        return self.value
+
+
+#: Assumption words -> keyword arguments of sympy.Symbol (the words a metric file uses, plus "complex").
+ASSUMPTION_WORDS = {
+    "positive": ("real", "positive"),
+    "negative": ("real", "negative"),
+    "nonnegative": ("real", "nonnegative"),
+    "nonpositive": ("real", "nonpositive"),
+    "nonzero": ("real", "nonzero"),
+    "real": ("real",),
+    "complex": (),
+}
+
+#: The one vocabulary for a decision, everywhere stepper writes one (terminal, PDF, notebook).
+HOLDS_WORDS: Mapping[bool | None, str] = {True: "holds", False: "does not hold", None: "undecided"}
+#: The same for an energy condition, where "violated" is the word of the trade.
+CONDITION_WORDS: Mapping[bool | None, str] = {True: "holds", False: "violated", None: "undecided"}
+
+
+@dataclass(frozen=True)
+class Verdict:
+    """A yes/no statement with the evidence for it.
+
+    ``holds`` is True or False when decided, None when the algebra could not
+    decide (the evidence then says what was seen numerically).
+    """
+
+    statement: str
+    holds: bool | None
+    evidence: str
+
+
+Result = Union[sympy.Expr, Mapping[str, Any], Verdict, None]
+
+
+class Method(str, enum.Enum):
+    """How an inequality value >= 0 was decided."""
+
+    IDENTICALLY_ZERO = "identically zero"      # holds: the value is identically 0
+    DECLARED_SIGNS = "declared signs"          # holds or fails for every value the declared signs allow
+    EXACT_POINT = "exact point"                # fails: negative at an exact point of the sampling region
+    SAMPLED = "sampled"                        # undecided: >= 0 at every sampled exact point (evidence)
+    FREE_FUNCTIONS = "free functions"          # undecided: the sign depends on free functions
+    NO_RANGE = "no range"                      # undecided: the region gives no range for some symbols
+    NO_POINTS = "no points"                    # undecided: no point of the region lies where the frame exists
+
+    def __str__(self) -> str:
+        return self.value
+
+
+@dataclass(frozen=True)
+class Decision:
+    """How ``value >= 0`` was decided, as data: the PDF, the notebook and the terminal make their words
+    from these fields (:meth:`sentence` for plain text) and never read a sentence back.
+
+    ``point`` and ``value_there`` (exact) for EXACT_POINT; ``points``, ``region`` and ``digits`` for
+    SAMPLED; ``missing`` for NO_RANGE; ``free_functions`` when free functions were taken as real.
+    """
+
+    method: Method
+    holds: bool | None
+    point: Mapping[str, sympy.Expr] = field(default_factory=dict)
+    value_there: sympy.Expr | None = None
+    points: int = 0
+    region: Mapping[str, tuple[sympy.Expr, sympy.Expr]] = field(default_factory=dict)
+    digits: int = 0
+    missing: tuple[str, ...] = ()
+    free_functions: bool = False
+
+    #: Longest exact value (in characters of sympy's string form) a sentence quotes in full.
+    EXACT_TEXT_LIMIT = 60
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "method", Method(self.method))
+
+    def as_data(self) -> dict:
+        data: dict = {"method": self.method.value, "holds": self.holds}
+        if self.method is Method.EXACT_POINT:
+            data["point"] = dict(self.point)
+            data["value_there"] = self.value_there
+        if self.method is Method.SAMPLED:
+            data.update(points=self.points, digits=self.digits,
+                        region={name: [lo, hi] for name, (lo, hi) in self.region.items()})
+        if self.method is Method.NO_RANGE:
+            data["missing"] = list(self.missing)
+        if self.free_functions:
+            data["free_functions"] = True
+        return data
+
+    @classmethod
+    def from_data(cls, data: Mapping[str, Any]) -> "Decision":
+        return cls(method=Method(data["method"]), holds=data["holds"], point=dict(data.get("point", {})),
+                   value_there=data.get("value_there"), points=int(data.get("points", 0)),
+                   region={name: tuple(bounds) for name, bounds in data.get("region", {}).items()},
+                   digits=int(data.get("digits", 0)), missing=tuple(data.get("missing", ())),
+                   free_functions=bool(data.get("free_functions", False)))
+
+    def value_there_is_short(self) -> bool:
+        return self.value_there is not None and len(sympy.sstr(self.value_there)) <= self.EXACT_TEXT_LIMIT
+
+    def sentence(self, value: sympy.Expr) -> str:
+        """The decision in plain words (``value`` is the quantity decided)."""
+        functions = ", free functions and their derivatives taken as real" if self.free_functions else ""
+        m = self.method
+        if m is Method.IDENTICALLY_ZERO:
+            return "it is identically 0"
+        if m is Method.DECLARED_SIGNS and self.holds:
+            return f"non-negative for all values allowed by the declared signs (sympy's assumptions{functions})"
+        if m is Method.DECLARED_SIGNS:
+            return (f"negative for all values allowed by the declared signs (sympy's assumptions{functions}): "
+                    f"it equals {value}")
+        if m is Method.EXACT_POINT:
+            where = ", ".join(f"{name} = {v}" for name, v in self.point.items())
+            if self.value_there_is_short():
+                return f"at the point {where} of the region it equals {self.value_there} < 0 (exact value)"
+            return (f"at the point {where} of the region it equals {sympy.N(self.value_there, 6)} < 0 "
+                    "(to 6 digits; its exact value is negative)")
+        if m is Method.FREE_FUNCTIONS:
+            return ("it depends on free functions, and its sign is not fixed by the declared signs; "
+                    f"its value is {value}")
+        if m is Method.NO_RANGE:
+            return ("the declared signs do not settle its sign, and [matter.region] gives no range for "
+                    f"{', '.join(self.missing)} to sample it (with the frame's squared norms) at")
+        if m is Method.NO_POINTS:
+            return "no point of the region lies where the frame exists (every N > 0)"
+        ranges = ", ".join(f"{name} in [{lo}, {hi}]" for name, (lo, hi) in self.region.items())
+        return (f"the declared signs do not settle its sign; it is >= 0 at all {self.points} exact points sampled "
+                f"from {ranges} where the frame exists (evaluated to {self.digits} digits): evidence, not proof")
+
+
+@dataclass(frozen=True)
+class Simplification:
+    """One rewrite of a raw result: before, after, and what was applied.
+
+    ``before`` is None when the raw expression was too long to be worth
+    keeping; ``before_size`` then still says how long it was.
+    """
+
+    rewrite: str
+    before: sympy.Expr | None
+    after: sympy.Expr
+    before_size: int = 0
+
+
+@dataclass(frozen=True)
+class Step:
+    """One recorded equation of the derivation."""
+
+    id: str
+    kind: StepKind
+    annotation: str
+    formula: str
+    uses: tuple[str, ...]
+    result: Result
+    params: Mapping[str, Any] = field(default_factory=dict)
+    substituted: str = ""
+    simplifications: tuple[Simplification, ...] = ()
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "kind", StepKind(self.kind))
+        object.__setattr__(self, "uses", tuple(self.uses))
+        object.__setattr__(self, "simplifications", tuple(self.simplifications))
+
+
+# ---------------------------------------------------------------------------
+# What was asked
+# ---------------------------------------------------------------------------
+
+@dataclass(frozen=True)
+class MatterRequest:
+    """Ask for the stress-energy tensor the metric requires, G_ij + Lambda g_ij = kappa T_ij.
+
+    ``units`` is "geometric" (G = c = 1, kappa = 8 pi) or "physical"
+    (kappa = 8 pi G / c^4 with ``newton`` and ``light`` the symbols G and c).
+    ``time`` is the coordinate whose level sets the frame's observers are
+    normal to.  ``region`` bounds the symbols for sampling the energy
+    conditions the algebra cannot decide: (symbol, low, high), exact.
+    """
+
+    time: sympy.Symbol
+    units: str = "geometric"
+    cosmological_constant: sympy.Expr = sympy.Integer(0)
+    newton: sympy.Symbol | None = None
+    light: sympy.Symbol | None = None
+    region: tuple[tuple[sympy.Symbol, sympy.Expr, sympy.Expr], ...] = ()
+
+    @property
+    def kappa(self) -> sympy.Expr:
+        """The coupling constant kappa = 8 pi G / c^4 (8 pi in geometric units)."""
+        if self.units == "physical":
+            return 8 * sympy.pi * self.newton / self.light**4
+        return 8 * sympy.pi
+
+
+@dataclass(frozen=True)
+class AnsatzRequest:
+    """Solve G_ij + Lambda g_ij = 0 for the free functions ``unknowns`` of the metric."""
+
+    unknowns: tuple[sympy.Expr, ...]
+    cosmological_constant: sympy.Expr = sympy.Integer(0)
+
+
+@dataclass(frozen=True)
+class OrbitRequest:
+    """One geodesic to integrate numerically in the notebook.
+
+    ``values`` gives every parameter a number, ``start`` every coordinate,
+    ``velocity`` dx/dtau for every coordinate except ``time`` (whose rate
+    follows from g_ab u^a u^b = -1 for "timelike", 0 for "null"), and
+    ``span`` the proper time or affine parameter to integrate over.
+    """
+
+    time: sympy.Symbol
+    kind: str
+    values: tuple[tuple[sympy.Symbol, sympy.Expr], ...]
+    start: tuple[tuple[sympy.Symbol, sympy.Expr], ...]
+    velocity: tuple[tuple[sympy.Symbol, sympy.Expr], ...]
+    span: sympy.Expr
+
+
+@dataclass(frozen=True)
+class MetricRecord:
+    """An n-dimensional metric g_ij in coordinates x^i, with what it was built from and what was asked."""
+
+    coordinates: tuple[sympy.Symbol, ...]
+    matrix: sympy.ImmutableMatrix
+    title: str = "Untitled metric"
+    parameters: tuple[sympy.Symbol, ...] = ()
+    functions: tuple[sympy.Expr, ...] = ()
+    abbreviations: tuple[tuple[str, sympy.Expr], ...] = ()
+    line_element: str | None = None
+    notes: str = ""
+    assumptions: tuple[tuple[str, str], ...] = field(default=())
+    matter: MatterRequest | None = None
+    ansatz: AnsatzRequest | None = None
+    orbit: OrbitRequest | None = None
+
+    @property
+    def extra_symbols(self) -> tuple[sympy.Symbol, ...]:
+        """Symbols the requests bring in beyond the matrix (Lambda, G, c)."""
+        found: set = set()
+        for request in (self.matter, self.ansatz):
+            if request is not None:
+                found |= request.cosmological_constant.free_symbols
+        if self.matter is not None and self.matter.units == "physical":
+            found |= {self.matter.newton, self.matter.light}
+        return tuple(sorted(found - set(self.coordinates), key=lambda s: s.name))
+
+    @property
+    def dimension(self) -> int:
+        return len(self.coordinates)
+
+    @property
+    def names(self) -> tuple[str, ...]:
+        return tuple(c.name for c in self.coordinates)
+
+
+# ---------------------------------------------------------------------------
+# The derivation
+# ---------------------------------------------------------------------------
+
+@dataclass(frozen=True)
+class Derivation:
+    """What a run produced: the metric, the conventions (plain and typeset), the steps in the order they
+    were computed, and the final results keyed by quantity and by coordinate-named indices.
+
+    Immutable: the audit makes a new one with :meth:`with_steps`.  ``seconds`` is how long the run took;
+    it is not part of the record (the trace never holds timings).
+    """
+
+    metric: MetricRecord
+    steps: tuple[Step, ...]
+    results: Mapping[str, Any]
+    arithmetic: str
+    arithmetic_description: str = ""
+    conventions: Mapping[str, str] = field(default_factory=dict)
+    conventions_latex: Mapping[str, str] = field(default_factory=dict)
+    seconds: float = field(default=0.0, compare=False)
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "steps", tuple(self.steps))
+
+    def step(self, step_id: str) -> Step:
+        for s in self.steps:
+            if s.id == step_id:
+                return s
+        raise KeyError(step_id)
+
+    def with_steps(self, steps: tuple[Step, ...], results: Mapping[str, Any]) -> "Derivation":
+        """A new derivation with ``steps`` appended and ``results`` merged into the results."""
+        return dataclasses.replace(self, steps=self.steps + tuple(steps), results={**self.results, **results})
+
+
+def as_expression(value) -> sympy.Expr:
+    """A sympy expression from a sympy object or a Python number; text is refused."""
+    if isinstance(value, sympy.Basic):
+        return value
+    if isinstance(value, int):
+        return sympy.Integer(value)
+    raise TypeError(f"expected a sympy expression, got {type(value).__name__}")

@@ -1,0 +1,206 @@
+"""The derivation record as the boundary: trace.json is documented by a schema, loads back exactly,
+renders on its own, and exporters import nothing of the engine."""
+
+from __future__ import annotations
+
+import ast
+import json
+import re
+import shutil
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+from jsonschema import Draft202012Validator
+
+from conftest import CLAIM_STEMS, EXAMPLE_STEMS, EXAMPLES, ROOT, example_derivation, example_trace
+from stepper.errors import InputError
+from stepper.record import StepKind
+from stepper.trace import TRACE_FORMAT_VERSION, load_trace, trace_json, trace_schema
+
+ALL_STEMS = EXAMPLE_STEMS + CLAIM_STEMS
+
+#: Modules that compute (the engine) or read untrusted input; no exporter may import them.
+ENGINE = {"chain", "algebra", "matter", "ansatz", "geodesics", "verify", "numeric", "audit", "metricfile",
+          "metric", "claims", "parse", "latex_input", "guards", "sampling", "tracer", "cli"}
+EXPORTERS = ("exporters", "report", "notebook", "latex", "trace", "record")
+
+
+def test_schema_is_valid_and_lists_every_step_kind():
+    schema = trace_schema()
+    Draft202012Validator.check_schema(schema)
+    assert schema["properties"]["version"]["const"] == TRACE_FORMAT_VERSION
+    assert schema["$defs"]["step"]["properties"]["kind"]["enum"] == [k.value for k in StepKind]
+
+
+@pytest.mark.parametrize("stem", ALL_STEMS)
+def test_every_example_trace_validates_and_loads_back_to_the_same_bytes(stem):
+    text = example_trace(stem)
+    errors = list(Draft202012Validator(trace_schema()).iter_errors(json.loads(text)))
+    assert not errors, errors[0].message[:300]
+    loaded = load_trace(text)
+    assert trace_json(loaded) == text
+    original = example_derivation(stem)
+    assert [s.id for s in loaded.steps] == [s.id for s in original.steps]
+    assert loaded.metric.matrix == original.metric.matrix
+    assert loaded.metric.coordinates == original.metric.coordinates  # same names and assumptions
+
+
+def test_loaded_values_are_the_recorded_sympy_objects():
+    original = example_derivation("spinning_black_hole")
+    loaded = load_trace(example_trace("spinning_black_hole"))
+    for quantity in ("christoffel", "riemann", "ricci", "inverse_metric"):
+        assert dict(loaded.results[quantity]) == dict(original.results[quantity]), quantity
+    assert loaded.results["kretschmann"] == original.results["kretschmann"]
+    for before, after in zip(original.steps, loaded.steps):
+        assert before.result == after.result or isinstance(before.result, (dict, tuple)), before.id
+
+
+def _tampered(change) -> str:
+    data = json.loads(example_trace("round_sphere"))
+    change(data)
+    return json.dumps(data)
+
+
+HOSTILE = {
+    "attribute call": lambda d: d["metric"]["components"].__setitem__(
+        "theta,theta", {"expr": "__import__('os').system('echo owned')"}),
+    "undeclared name": lambda d: d["metric"]["components"].__setitem__("theta,theta", {"expr": "open"}),
+    "undeclared function": lambda d: d["metric"]["components"].__setitem__("theta,theta", {"expr": "eval(a)"}),
+    "lambda": lambda d: d["metric"]["components"].__setitem__("theta,theta", {"expr": "(lambda: 1)()"}),
+    "huge power": lambda d: d["metric"]["components"].__setitem__("theta,theta", {"expr": "7**(10**9)"}),
+    "float": lambda d: d["metric"]["components"].__setitem__("theta,theta", {"expr": "0.5"}),
+    "deep nesting": lambda d: d["metric"]["components"].__setitem__("theta,theta",
+                                                                    {"expr": "(" * 3000 + "a" + ")" * 3000}),
+    "bad symbol name": lambda d: d["declarations"]["symbols"].__setitem__("os.system", "real"),
+    "unknown kind": lambda d: d["steps"][0].__setitem__("kind", "magic"),
+    "forward use": lambda d: d["steps"][0].__setitem__("uses", ["scalar"]),
+    "old version": lambda d: d.__setitem__("version", 1),
+    "not a trace": lambda d: d.__setitem__("format", "something else"),
+}
+
+
+@pytest.mark.parametrize("case", sorted(HOSTILE))
+def test_a_tampered_trace_is_refused_with_one_line(case):
+    with pytest.raises(InputError) as info:
+        load_trace(_tampered(HOSTILE[case]))
+    assert "\n" not in info.value.message and info.value.message
+
+
+def test_not_json_is_refused():
+    with pytest.raises(InputError):
+        load_trace("{not json")
+    with pytest.raises(InputError):
+        load_trace(b"\xff\xfe")
+
+
+def _stepper_imports(module: str) -> set[str]:
+    """The stepper modules ``stepper/<module>.py`` imports (relative or absolute), at any depth of its code."""
+    tree = ast.parse((ROOT / "stepper" / f"{module}.py").read_text(encoding="utf-8"))
+    found = set()
+    for node in ast.walk(tree):
+        if isinstance(node, ast.ImportFrom):
+            if node.level == 1 and node.module:
+                found.add(node.module.split(".")[0])
+            elif node.level == 1:
+                found.update(alias.name for alias in node.names)
+            elif node.module and node.module.startswith("stepper."):
+                found.add(node.module.split(".")[1])
+        elif isinstance(node, ast.Import):
+            found.update(a.name.split(".")[1] for a in node.names if a.name.startswith("stepper."))
+    return found
+
+
+def test_no_exporter_imports_the_engine():
+    seen, todo = set(), list(EXPORTERS)
+    while todo:
+        module = todo.pop()
+        if module in seen:
+            continue
+        seen.add(module)
+        imported = _stepper_imports(module)
+        assert not imported & ENGINE, (module, sorted(imported & ENGINE))
+        todo.extend(m for m in imported if (ROOT / "stepper" / f"{m}.py").exists())
+
+
+def _run(args, cwd):
+    return subprocess.run([sys.executable, "-m", "stepper", *args], cwd=cwd, capture_output=True, text=True,
+                          timeout=600, stdin=subprocess.DEVNULL)
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("stem", ALL_STEMS)
+def test_render_of_a_saved_trace_gives_the_bytes_derive_wrote(stem, tmp_path):
+    shutil.copytree(EXAMPLES, tmp_path / "examples")
+    command = ["audit", f"examples/claims/{stem}.toml"] if stem in CLAIM_STEMS else ["derive", f"examples/{stem}.toml"]
+    first = _run([*command, "-o", "A", "--quiet"], tmp_path)
+    assert first.returncode in (0, 1) and "error" not in first.stderr, first.stderr
+    second = _run(["render", "A/trace.json", "-o", "B", "--quiet"], tmp_path)
+    assert second.returncode == first.returncode, second.stderr
+    written = sorted(p.name for p in (tmp_path / "A").iterdir())
+    assert written == sorted(p.name for p in (tmp_path / "B").iterdir())
+    assert {"trace.json", "report.tex", "appendix.tex", "derivation.ipynb"} <= set(written)
+    for name in written:
+        assert (tmp_path / "A" / name).read_bytes() == (tmp_path / "B" / name).read_bytes(), name
+
+
+def test_render_of_a_bad_trace_is_one_line_and_status_2(tmp_path):
+    (tmp_path / "trace.json").write_text(_tampered(HOSTILE["attribute call"]), encoding="utf-8")
+    proc = _run(["render", "trace.json", "-o", "out"], tmp_path)
+    assert proc.returncode == 2
+    assert proc.stderr.startswith("stepper: error: trace.json:") and proc.stderr.count("\n") == 1, proc.stderr
+    assert not (tmp_path / "out").exists()
+    missing = _run(["render", "nowhere.json"], tmp_path)
+    assert missing.returncode == 2 and "no such trace file" in missing.stderr
+
+
+#: String methods that read text back; calling one on evidence would parse a sentence another module wrote.
+_TEXT_READERS = {"startswith", "endswith", "split", "rsplit", "partition", "rpartition", "replace", "find",
+                 "index", "count", "strip", "removeprefix", "removesuffix"}
+
+
+def _mentions_evidence(node: ast.AST) -> bool:
+    return any((isinstance(n, ast.Name) and "evidence" in n.id) or
+               (isinstance(n, ast.Attribute) and "evidence" in n.attr) or
+               (isinstance(n, ast.Constant) and n.value == "evidence")
+               for n in ast.walk(node))
+
+
+def evidence_readings(source: str) -> list[str]:
+    """Places where code reads evidence text: a regex over it, a string method on it, a substring test."""
+    found = []
+    for node in ast.walk(ast.parse(source)):
+        if isinstance(node, ast.Call) and isinstance(node.func, ast.Attribute):
+            target = node.func.value
+            if node.func.attr in _TEXT_READERS and _mentions_evidence(target):
+                found.append(f"line {node.lineno}: .{node.func.attr}() on evidence")
+            if isinstance(target, ast.Name) and target.id == "re" and any(_mentions_evidence(a) for a in node.args):
+                found.append(f"line {node.lineno}: re.{node.func.attr}() on evidence")
+        if isinstance(node, ast.Compare) and any(isinstance(op, (ast.In, ast.NotIn)) for op in node.ops) \
+                and any(_mentions_evidence(c) for c in node.comparators):
+            found.append(f"line {node.lineno}: a substring test on evidence")
+    return found
+
+
+def test_the_evidence_check_finds_what_it_looks_for():
+    sample = ('a = row["evidence"].startswith("x")\nb = re.match("y", step.result.evidence)\n'
+              'c = "sampled" in evidence\nd = evidence\n')
+    assert len(evidence_readings(sample)) == 3
+
+
+@pytest.mark.parametrize("module", ["exporters", "report", "notebook", "latex", "trace", "record"])
+def test_no_exporter_reads_evidence_text(module):
+    assert evidence_readings((ROOT / "stepper" / f"{module}.py").read_text(encoding="utf-8")) == []
+
+
+_TEMPLATE_READING = re.compile(r"\bin\s+[\w.\[\]'\"]*evidence|evidence[\w.\[\]'\"]*\.(?:%s)\b"
+                               % "|".join(sorted(_TEXT_READERS)))
+
+
+def test_no_template_reads_evidence_text():
+    assert _TEMPLATE_READING.search('{% if "sampled" in row.evidence %}')
+    assert _TEMPLATE_READING.search("{{ step.result.evidence.split(';')[0] }}")
+    for template in sorted((ROOT / "templates").rglob("*.j2")):
+        found = _TEMPLATE_READING.search(template.read_text(encoding="utf-8"))
+        assert found is None, (template.name, found and found.group())
