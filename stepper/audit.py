@@ -558,9 +558,10 @@ def _position(v: ClaimVerdict) -> set[str]:
 def _expand(derivation: Derivation, before: dict[str, set[str]], step_id: str) -> set[str]:
     """A step and what it depends on.  A stress-energy component depends on its own Einstein component
     and the metric only (its record also names the field-equations step, which names every G_ij)."""
-    if step_id.startswith("stress_energy/"):
+    step = next((s for s in derivation.steps if s.id == step_id), None)
+    if step is not None and step.kind == "component" and step.quantity == "stress_energy":
         out = {step_id}
-        for source in _sources(derivation, "stress_energy", step_id.split("/", 1)[1]) or set():
+        for source in _sources(derivation, "stress_energy", step.component) or set():
             out |= {source} | before.get(source, set())
         return out
     return {step_id} | before.get(step_id, set())
@@ -628,7 +629,7 @@ def record_audit(derivation: Derivation, title: str, verdicts: list[ClaimVerdict
         if v.constants:
             params["constants"] = dict(v.constants)
         steps.append(Step(
-            id=f"claim/{c.number}", kind="claim",
+            id=f"claim/{c.number}", kind="claim", stage="audit", quantity=c.quantity, component=c.component,
             annotation=f"{c.name[0].upper()}{c.name[1:]}" + (f", {c.label}" if c.label else "") + f": {v.outcome}.",
             formula=r"X_{\text{claimed}} - X_{\text{derived}} = 0", uses=(v.checked_against,),
             result=Verdict(f"{c.name} agrees with the derivation", holds, evidence), params=params))

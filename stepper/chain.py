@@ -111,6 +111,7 @@ def default_jobs() -> int:
 class _Chain:
     jobs = 1
     deadline: float | None = None
+    stage = "curvature"
 
     def __init__(self, metric: Metric, progress: Progress, arithmetic, curvature_invariants: bool):
         self.metric = metric
@@ -174,6 +175,8 @@ class _Chain:
         return Verdict(statement, True, f"{what}: all {len(residues)} {how}")
 
     def record(self, **fields) -> Step:
+        """Record a step; its stage is the one running unless given."""
+        fields.setdefault("stage", self.stage)
         return self.tracer.record(Step(**fields))
 
     def _christoffel_size(self) -> int:
@@ -250,12 +253,15 @@ class _Chain:
                           conventions_latex=conventions_latex, seconds=time.perf_counter() - start)
 
     def matter(self) -> None:
+        self.stage = "matter"
         record_matter(self, self.metric.matter)
 
     def ansatz(self) -> None:
+        self.stage = "ansatz"
         record_ansatz(self, self.metric.ansatz)
 
     def geodesics(self) -> None:
+        self.stage = "geodesics"
         record_geodesics(self, self.metric.orbit)
 
     def metric_step(self) -> None:
@@ -382,7 +388,7 @@ class _Chain:
                         annotation=f"Christoffel symbol Gamma^{self.x[a].name}_({self.x[b].name} {self.x[c].name})"
                                    + ("" if b == c else f" (= Gamma^{self.x[a].name}_({self.x[c].name} {self.x[b].name}))"),
                         formula=formula("christoffel"), uses=("inverse_metric", "metric_derivatives"),
-                        result=self.expr(value), params={"quantity": "christoffel", "indices": key},
+                        result=self.expr(value), quantity="christoffel", component=key,
                         substituted=self._christoffel_tex(a, b, c, terms),
                         simplifications=self.simplification(raw, self.size([ginv[a][d] for d in terms] + [
                             dg[k][i][j] for d in terms for (k, i, j) in ((b, d, c), (c, d, b), (d, b, c))]), value))
@@ -439,14 +445,15 @@ class _Chain:
             differences.append(explicit - from_det)
             outcome = self.A.zero_test(explicit - from_det).vanishes
             name = self.x[i].name
-            self.record(id=f"contracted_christoffel/{name}", kind="identity",
+            self.record(id=f"contracted_christoffel/{name}", kind="identity", quantity="contracted_christoffel",
+                        component=name,
                         annotation=f"Trace identity along {name}: the sum Gamma^l_l{name} over l, and d_{name} ln sqrt|g| "
                                    "from the determinant, " + {True: "agree.", False: "DISAGREE.",
                                                                None: "agree numerically (not proven)."}[outcome],
                         formula=formula("contracted_christoffel"),
                         uses=("christoffel", "determinant"),
                         result={"sum": self.expr(explicit), "from_determinant": self.expr(from_det)},
-                        params={"index": name})
+                        )
         self.record(id="contracted_christoffel", kind="check",
                     annotation="The contracted Christoffel symbols equal the derivative of ln sqrt|g| in every direction.",
                     formula=formula("contracted_christoffel"),
@@ -512,7 +519,7 @@ class _Chain:
                 annotation=f"Riemann component R^{self.x[a].name}_({self.x[b].name} {self.x[c].name} {self.x[d].name}) "
                            f"(= -R^{self.x[a].name}_({self.x[b].name} {self.x[d].name} {self.x[c].name}))",
                 formula=formula("riemann"), uses=tuple(uses) or ("christoffel",), result=self.expr(value),
-                params={"quantity": "riemann", "indices": key},
+                quantity="riemann", component=key,
                 substituted=self._riemann_tex(a, b, c, d),
                 simplifications=self.simplification(
                     self._riemann_raw(a, b, c, d), self.size(G[u[0]][u[1]][u[2]] for u in used), value))
@@ -595,7 +602,7 @@ class _Chain:
                     id=f"ricci/{key}", kind="component",
                     annotation=f"Ricci component R_({self.x[b].name} {self.x[d].name}) by contracting the Riemann tensor",
                     formula=formula("ricci"), uses=tuple(used) or ("riemann",), result=self.expr(ric[b][d]),
-                    params={"quantity": "ricci", "indices": key},
+                    quantity="ricci", component=key,
                     substituted=f"R_{{{t[b]}{t[d]}}} = {tex_terms}",
                     simplifications=self.simplification(
                         lambda b=b, d=d: sympy.Add(*[self.expr(R[a, b, a, d]) for a in range(n) if a != d]),
@@ -685,7 +692,7 @@ class _Chain:
                 step = self.record(id=f"einstein/{key}", kind="component",
                                    annotation=f"Einstein component G_({self.x[i].name} {self.x[j].name})",
                                    formula=formula("einstein"), uses=tuple(uses), result=self.expr(self.G[i][j]),
-                                   params={"quantity": "einstein", "indices": key},
+                                   quantity="einstein", component=key,
                                    simplifications=self.simplification(
                                        lambda i=i, j=j: self.expr(self.ric[i][j]) - half * self.results["scalar"] * self.expr(self.g[i][j]),
                                        self.size([self.ric[i][j], self.R_scalar, self.g[i][j]]), self.G[i][j]))

@@ -51,11 +51,12 @@ class TexFailed(Exception):
         self.log = log
 
 
-def template_environment(extra_folders: Sequence[Path] = ()):
-    """A Jinja2 environment over the user's folders, then the project's templates/."""
+def template_environment(extra_folders: Sequence[Path] = (), filters: dict | None = None):
+    """The Jinja2 environment of every template set (LaTeX and notebook): the user's folders first, then
+    the project's templates/; ``filters`` adds an exporter's own filters."""
     import jinja2
     folders = [str(Path(f)) for f in extra_folders] + [str(PROJECT_TEMPLATES)]
-    return jinja2.Environment(
+    environment = jinja2.Environment(
         loader=jinja2.FileSystemLoader(folders),
         block_start_string="<%", block_end_string="%>",
         variable_start_string="<<", variable_end_string=">>",
@@ -63,6 +64,8 @@ def template_environment(extra_folders: Sequence[Path] = ()):
         trim_blocks=True, lstrip_blocks=True, keep_trailing_newline=True,
         autoescape=False, undefined=jinja2.StrictUndefined,
     )
+    environment.filters.update(filters or {})
+    return environment
 
 
 def latex_preamble() -> str:

@@ -99,6 +99,7 @@ class _Matter:
             self.frame_curvature()
             self.density_and_pressures()
         self.perfect_fluid()
+        self.c.stage = "energy conditions"
         self.energy_conditions()
 
     # helpers ------------------------------------------------------------
@@ -143,7 +144,7 @@ class _Matter:
                 c.record(id=f"stress_energy/{key}", kind="component",
                          annotation=f"Stress-energy component T_({self.name(i)} {self.name(j)}) required by the metric",
                          formula=formula("stress_energy"), uses=tuple(uses), result=value,
-                         params={"quantity": "stress_energy", "indices": key},
+                         quantity="stress_energy", component=key,
                          substituted=f"T_{{{t[i]}{t[j]}}} = \\frac{{1}}{{{kappa_tex}}}\\left(G_{{{t[i]}{t[j]}}}{lam_tex}\\right)")
                 components[key] = value
                 if i != j:
@@ -478,7 +479,7 @@ class _Matter:
             for key, title in names.items():
                 verdict = Verdict(f"{title}: {_inequality_words(key, n)}.", None, why)
                 table[key] = {"holds": None, "evidence": verdict.evidence, "inequalities": {}}
-                c.record(id=f"energy_conditions/{key}", kind="energy condition", annotation=verdict.statement,
+                c.record(id=f"energy_conditions/{key}", kind="energy condition", component=key, annotation=verdict.statement,
                          formula=FORMULAS[key], uses=("frame",), result=verdict, params={"inequalities": {}})
             c.results["energy_conditions"] = table
             return
@@ -498,7 +499,7 @@ class _Matter:
                 why = "the strong condition (T_ab - T g_ab/(n-2)) t^a t^b >= 0 is not defined in two dimensions"
                 verdict = Verdict(f"{title}.", None, why)
                 table[key] = {"holds": None, "evidence": why, "inequalities": {}}
-                c.record(id=f"energy_conditions/{key}", kind="energy condition", annotation=verdict.statement,
+                c.record(id=f"energy_conditions/{key}", kind="energy condition", component=key, annotation=verdict.statement,
                          formula=FORMULAS[key], uses=("density_and_pressures",), result=verdict,
                          params={"inequalities": {}})
                 continue
@@ -527,7 +528,7 @@ class _Matter:
                     f"{label}: {row['evidence']}" for label, row in rows.items()) + ")"
             verdict = Verdict(f"{title}: {_inequality_words(key, n)}.", outcome, evidence)
             table[key] = {"holds": outcome, "evidence": evidence, "inequalities": rows}
-            c.record(id=f"energy_conditions/{key}", kind="energy condition", annotation=verdict.statement,
+            c.record(id=f"energy_conditions/{key}", kind="energy condition", component=key, annotation=verdict.statement,
                      formula=FORMULAS[key], uses=("density_and_pressures",), result=verdict,
                      params={"inequalities": rows,
                              "region": {s.name: [lo, hi] for s, lo, hi in self.request.region}})

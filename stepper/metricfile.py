@@ -176,9 +176,11 @@ def metric_from_data(data: dict[str, Any], default_title: str = "Untitled metric
     has_line, has_matrix = "line_element" in data, "components" in data
     if has_line == has_matrix:
         raise InputError("give exactly one of 'line_element' and 'components'")
+    line_expression = None
     if has_line:
         line = _text(data, "line_element")
-        matrix = matrix_from_line_element(line, coordinates, vocabulary, differentials)
+        line_expression = line_element_expression(line, coordinates, vocabulary, differentials)
+        matrix = matrix_of_line_element(line_expression, coordinates, differentials)
     else:
         line = None
         matrix = matrix_from_components(data["components"], coordinates, vocabulary)
@@ -199,6 +201,7 @@ def metric_from_data(data: dict[str, Any], default_title: str = "Untitled metric
         functions=tuple(functions.values()),
         abbreviations=tuple(abbreviations.items()),
         line_element=line,
+        line_element_expression=line_expression,
         notes=notes,
         assumptions=tuple((n, declared.get(n, "real")) for n in list(names) + [p.name for p in parameters]),
         **requests,
@@ -350,12 +353,22 @@ def _check_differentials(text: str, coordinates, vocabulary: Vocabulary, differe
                                  f"'{word[1:]}', which is not a declared coordinate")
 
 
-def matrix_from_line_element(text: str, coordinates, vocabulary: Vocabulary, differentials: dict) -> sympy.ImmutableMatrix:
-    """g_ij from ds^2 = g_ij dx^i dx^j: g_ii is the coefficient of (dx^i)^2 and
-    g_ij = g_ji is half the coefficient of dx^i dx^j."""
+def line_element_expression(text: str, coordinates, vocabulary: Vocabulary, differentials: dict) -> sympy.Expr:
+    """The line element read as an expression in the differentials (symbols d<coordinate>)."""
     _check_differentials(text, coordinates, vocabulary, differentials)
     with_differentials = Vocabulary(vocabulary.symbols, vocabulary.functions, vocabulary.abbreviations, differentials)
-    expr = parse_expression(text, with_differentials, "line_element")
+    return parse_expression(text, with_differentials, "line_element")
+
+
+def matrix_from_line_element(text: str, coordinates, vocabulary: Vocabulary, differentials: dict) -> sympy.ImmutableMatrix:
+    """g_ij from ds^2 = g_ij dx^i dx^j (see :func:`matrix_of_line_element`)."""
+    return matrix_of_line_element(line_element_expression(text, coordinates, vocabulary, differentials),
+                                  coordinates, differentials)
+
+
+def matrix_of_line_element(expr: sympy.Expr, coordinates, differentials: dict) -> sympy.ImmutableMatrix:
+    """g_ij from ds^2 = g_ij dx^i dx^j: g_ii is the coefficient of (dx^i)^2 and
+    g_ij = g_ji is half the coefficient of dx^i dx^j."""
     d = [differentials[f"d{c.name}"] for c in coordinates]
     degree = _differential_degree(expr, frozenset(d))
     if degree != 2:

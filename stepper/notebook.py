@@ -52,7 +52,7 @@ from .runtime import MODULES as RUNTIME_MODULES, inlined_source
 from .record import ASSUMPTION_WORDS, HOLDS_WORDS, Decision, Method, Step, Verdict
 
 #: The project's own templates; user directories given to :func:`notebook_text` come first.
-from .exporters import PROJECT_TEMPLATES  # noqa: E402  (one place decides where templates live)
+from .exporters import template_environment  # noqa: E402  (one environment for every template set)
 
 KERNELSPEC = {"display_name": "Python 3", "language": "python", "name": "python3"}
 
@@ -74,7 +74,7 @@ def _runtime_names() -> frozenset[str]:
 #: Names the notebook defines itself (the runtime helpers' and those its cells assign); a metric symbol with
 #: one of these names gets a different Python variable (its sympy name is unchanged).
 _NOTEBOOK_NAMES = _runtime_names() | frozenset("""
-    sp itertools mpmath np solve_ivp coordinates index_names coordinate dimension identity given recorded
+    sp itertools mpmath np solve_ivp coordinates index_names coordinate dimension identity given recorded line_element
     recorded_holds residues claimed derived claim_agrees scalar_curvature einstein_constant sectional_curvature
     metric_determinant kretschmann_scalar christoffel_spot_check spot_check_deviation kappa cosmological_constant
     energy_density stress_energy_trace recorded_trace frame_broken_at recorded_vectors recorded_norms
@@ -272,6 +272,7 @@ def _introduced_symbols(derivation: Derivation, known: set) -> list[sympy.Symbol
     for step in derivation.steps:
         walk(step.result)
         walk(dict(step.params))
+    walk(derivation.metric.line_element_expression)
     return sorted(found, key=lambda s: (s.name, sorted((k, str(v)) for k, v in s.assumptions0.items())))
 
 
@@ -354,25 +355,21 @@ class _Cells:
             "ansatz/dependence": self.ansatz_dependence, "ansatz/solution": self.ansatz_solution,
             "ansatz/check": self.ansatz_check, "geodesic_equations": self.geodesic_equations,
         }
-        component_kinds = ("component", "identity")
-        prefixes = {"christoffel/": (self.christoffel_component, component_kinds),
-                    "riemann/": (self.riemann_component, component_kinds),
-                    "ricci/": (self.ricci_component, component_kinds),
-                    "einstein/": (self.einstein_component, component_kinds),
-                    "contracted_christoffel/": (self.contracted_component, component_kinds),
-                    "stress_energy/": (self.stress_energy_component, ("component",)),
-                    "energy_conditions/": (self.energy_condition, ("energy condition",)),
-                    "ansatz/solve/": (self.ansatz_solve, ("ode solution",))}
-        if step.kind == "claim":
-            topic, body = self.claim(step)
+        by_quantity = {("component", "christoffel"): self.christoffel_component,
+                       ("component", "riemann"): self.riemann_component,
+                       ("component", "ricci"): self.ricci_component,
+                       ("component", "einstein"): self.einstein_component,
+                       ("component", "stress_energy"): self.stress_energy_component,
+                       ("identity", "contracted_christoffel"): self.contracted_component}
+        by_kind = {"claim": self.claim, "energy condition": self.energy_condition, "ode solution": self.ansatz_solve}
+        if (step.kind.value, step.quantity) in by_quantity:
+            topic, body = by_quantity[step.kind.value, step.quantity](step)
+        elif step.kind.value in by_kind:
+            topic, body = by_kind[step.kind.value](step)
         elif sid in exact:
             topic, body = exact[sid](step)
         else:
-            prefix = next((p for p in prefixes if sid.startswith(p) and step.kind in prefixes[p][1]), None)
-            if prefix is None:
-                topic, body = "not_recomputed", self.not_recomputed(step)
-            else:
-                topic, body = prefixes[prefix][0](step)
+            topic, body = "not_recomputed", self.not_recomputed(step)
         return topic, body
 
     # small pieces ---------------------------------------------------------
@@ -380,7 +377,7 @@ class _Cells:
         return _step_literal(step.id)
 
     def _indices(self, step: Step) -> str:
-        return step.id.split("/", 1)[1]
+        return step.component
 
     def _done(self, step: Step) -> str:
         _step_literal(step.id)  # validates the id
@@ -395,9 +392,11 @@ class _Cells:
     # input and first derivatives ------------------------------------------
     def metric(self, step):
         m = self.d.metric
+        if m.line_element_expression is not None:
+            return "metric_from_line_element", self._metric_from_line_element(step)
         rows = ",\n".join("    [" + ", ".join(self.s.expr(m.matrix[i, j]) for j in range(self.n)) + "]"
                           for i in range(self.n))
-        code = f"""# The metric matrix as read from the input (the line element turned into g_ij).
+        code = f"""# The metric matrix as read from the input.
 given = sp.Matrix([
 {rows}
 ])
@@ -407,6 +406,25 @@ check_table("metric", recorded, lambda i, j: given[index_names.index(i), index_n
 metric.update(recorded)
 {self._done(step)}"""
         return "metric", code
+
+    def _metric_from_line_element(self, step) -> str:
+        m = self.d.metric
+        by_name = {symbol.name: symbol for _, symbol in self.s.others}
+        differentials = []
+        for name in self.s.coordinate_names:
+            if f"d{name}" not in by_name:
+                raise NotebookError(f"the line element has no differential d{name}")
+            differentials.append(self.s.expr(by_name[f"d{name}"]))
+        return f"""# The line element as stepper read it, written out as sympy code (abbreviations expanded), with
+# the differentials dx^i as symbols.  Expanding it gives g_ii as the coefficient of (dx^i)^2 and
+# g_ij = g_ji as half the coefficient of dx^i dx^j: computed here, independently of the recorded matrix.
+line_element = {self.s.expr(m.line_element_expression)}
+given = metric_from_line_element(line_element, [{", ".join(differentials)}])
+# The recorded components g_ij (those not listed are zero).
+recorded = {self.s.table(step.result)}
+check_table("metric", recorded, lambda i, j: given[index_names.index(i), index_names.index(j)], every_index(2))
+metric.update(recorded)
+{self._done(step)}"""
 
     def metric_derivatives(self, step):
         code = f"""# The recorded derivatives d_k g_ij, keyed (k, i, j) with i <= j (those not listed are zero).
@@ -969,7 +987,7 @@ print("verdict/perfect_fluid: undecided for lack of a frame, as recorded")"""
         return "verdict_perfect_fluid", "\n".join(lines)
 
     def energy_condition(self, step):
-        name = step.id.split("/", 1)[1]
+        name = step.component
         if name not in ("null", "weak", "strong", "dominant"):
             raise NotebookError(f"unknown energy condition {name!r}")
         rows = step.params.get("inequalities", {})
@@ -1250,15 +1268,10 @@ orbit_solution = integrate_orbit()"""
 # --------------------------------------------------------------------------
 
 def _environment(templates: Sequence[Path] | None) -> jinja2.Environment:
-    search = [str(Path(p)) for p in (templates or [])] + [str(PROJECT_TEMPLATES)]
-    env = jinja2.Environment(loader=jinja2.FileSystemLoader(search), autoescape=False,
-                             undefined=jinja2.StrictUndefined, keep_trailing_newline=False,
-                             trim_blocks=True, lstrip_blocks=True)
-    env.filters["text"] = _markdown_text
-    env.filters["line"] = lambda value: " ".join(_markdown_text(value).split())
-    env.filters["code"] = _inline_code
-    env.filters["fenced"] = _fenced
-    return env
+    """The one template environment, with the notebook's markdown filters."""
+    return template_environment(templates or (), filters={
+        "text": _markdown_text, "line": lambda value: " ".join(_markdown_text(value).split()),
+        "code": _inline_code, "fenced": _fenced})
 
 
 def _markdown_text(value) -> str:
@@ -1287,8 +1300,8 @@ def _setup_code(source: _Source, steps: Sequence[Step]) -> str:
     lines += ["", "# Coordinates and parameters with their declared assumptions."]
     lines += [source.symbol_definition(variable, symbol) for variable, symbol in source.symbols]
     if source.others:
-        lines += ["", "# Symbols the derivation introduced (integration constants, velocity components u_x = dx/dtau,",
-                  "# constants used only by the field equations)."]
+        lines += ["", "# Symbols the derivation introduced (the differentials dx of the line element, integration constants,",
+                  "# velocity components u_x = dx/dtau, constants used only by the field equations)."]
         lines += [source.symbol_definition(variable, symbol, declared=False) for variable, symbol in source.others]
     if source.functions:
         lines += ["", "# Free functions (their arguments are written where they are used)."]
@@ -1303,7 +1316,7 @@ def _setup_code(source: _Source, steps: Sequence[Step]) -> str:
     blocks = [_HELPERS]
     if any(step.id == "field_equations" for step in steps):
         blocks.append(_MATTER_HELPERS)
-    if any(step.id.startswith("ansatz/") for step in steps):
+    if any(step.stage == "ansatz" for step in steps):
         blocks.append(_ANSATZ_HELPERS)
     if any(step.id == "geodesic_equations" for step in steps):
         blocks.append(_GEODESIC_HELPERS)
@@ -1352,7 +1365,7 @@ def notebook_text(derivation: Derivation, templates: list[Path] | None = None) -
         "arithmetic": derivation.arithmetic,
         "step_count": len(derivation.steps),
         "matter": any(step.id == "field_equations" for step in derivation.steps),
-        "ansatz": any(step.id.startswith("ansatz/") for step in derivation.steps),
+        "ansatz": any(step.stage == "ansatz" for step in derivation.steps),
         "orbit": any(step.id == "geodesic_equations" and step.params.get("orbit") for step in derivation.steps),
     }
     cells = []

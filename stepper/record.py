@@ -197,9 +197,19 @@ class Simplification:
     before_size: int = 0
 
 
+#: The parts of a derivation, in the order they run; each step belongs to one.
+STAGES = ("curvature", "matter", "energy conditions", "ansatz", "geodesics", "audit")
+
+
 @dataclass(frozen=True)
 class Step:
-    """One recorded equation of the derivation."""
+    """One recorded equation of the derivation.
+
+    ``quantity`` names the registry quantity (stepper.quantities) or verdict the step is about, and
+    ``component`` which part of it: a component key such as "r,t,t", an index, an energy condition's name,
+    a claim's component.  ``stage`` is the part of the derivation that recorded it (one of STAGES).
+    Exporters read these fields; they never take a step's meaning apart from its id.
+    """
 
     id: str
     kind: StepKind
@@ -210,9 +220,14 @@ class Step:
     params: Mapping[str, Any] = field(default_factory=dict)
     substituted: str = ""
     simplifications: tuple[Simplification, ...] = ()
+    quantity: str = ""
+    component: str = ""
+    stage: str = "curvature"
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "kind", StepKind(self.kind))
+        if self.stage not in STAGES:
+            raise ValueError(f"step {self.id}: unknown stage {self.stage!r}")
         object.__setattr__(self, "uses", tuple(self.uses))
         object.__setattr__(self, "simplifications", tuple(self.simplifications))
 
@@ -289,6 +304,9 @@ class MetricRecord:
     matter: MatterRequest | None = None
     ansatz: AnsatzRequest | None = None
     orbit: OrbitRequest | None = None
+    #: The line element as read, in the coordinates' differentials (symbols named d<coordinate>),
+    #: abbreviations written out; None when the metric was given as a matrix.
+    line_element_expression: sympy.Expr | None = None
 
     @property
     def extra_symbols(self) -> tuple[sympy.Symbol, ...]:

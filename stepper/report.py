@@ -27,12 +27,6 @@ from .record import CONDITION_WORDS, HOLDS_WORDS, Decision, Method, Step, Verdic
 
 ENERGY_CONDITIONS = ("null", "weak", "strong", "dominant")
 
-#: The step ids of the matter stage (besides stress_energy/<i,j>), in the section "Matter required by the metric".
-MATTER_STEPS = frozenset({
-    "field_equations", "stress_energy", "stress_energy_mixed", "stress_energy_up", "verdict/trace_free",
-    "frame", "frame/check", "frame_stress_energy", "frame_ricci", "frame_riemann", "density_and_pressures",
-    "verdict/perfect_fluid"})
-
 SECTION_TITLES = {
     "curvature": "The derivation, step by step",
     "matter": "Matter required by the metric",
@@ -101,16 +95,8 @@ def _condition_word(holds: bool | None) -> str:
 
 
 def section_of(step: Step) -> str:
-    """Which section of the report a step belongs to."""
-    if step.id.startswith("energy_conditions/"):
-        return "energy"
-    if step.id.startswith("ansatz/"):
-        return "ansatz"
-    if step.id == "geodesic_equations":
-        return "geodesics"
-    if step.id in MATTER_STEPS or step.id.startswith("stress_energy/"):
-        return "matter"
-    return "curvature"
+    """Which section of the report a step belongs to: the stage that recorded it."""
+    return {"energy conditions": "energy"}.get(step.stage, step.stage)
 
 
 class _Model:
@@ -202,11 +188,10 @@ class _Model:
                 return [self.eq(r"T^i{}_i", step.params["trace"])]
             return []
         if step.kind == "component":
-            quantity = step.params["quantity"]
-            lhs = component_symbol(quantity, step.params["indices"].split(","), self.writer)
+            lhs = component_symbol(step.quantity, step.component.split(","), self.writer)
             return [self.eq(lhs, result)]
         if step.kind == "identity":
-            name = self.sym(step.params["index"])
+            name = self.sym(step.component)
             rows = [(rf"\Gamma^l_{{l{name}}}", result["sum"]),
                     (rf"\frac{{\partial_{{{name}}} g}}{{2g}}", result["from_determinant"])]
             return [self.eq(lhs, value) for lhs, value in rows]
@@ -417,7 +402,7 @@ class _Model:
             return self.component_annotation(step)
         r = step.result
         if step.kind == "energy condition":
-            return self.condition_statement(step.id.split("/", 1)[1]) + "."
+            return self.condition_statement(step.component) + "."
         if step.id == "density_and_pressures" and isinstance(r, dict):
             if r.get("diagonal"):
                 return (r"The stress-energy tensor is diagonal in the frame, so \(\rho\) and the \(p_{(k)}\) are the "
@@ -465,8 +450,8 @@ class _Model:
         return escape_text(step.annotation)
 
     def component_annotation(self, step: Step) -> str:
-        quantity = step.params["quantity"]
-        names = step.params["indices"].split(",")
+        quantity = step.quantity
+        names = step.component.split(",")
         symbol = component_symbol(quantity, names, self.writer)
         title = {"christoffel": "Christoffel symbol", "riemann": "Riemann component",
                  "ricci": "Ricci component", "einstein": "Einstein component",
@@ -587,7 +572,7 @@ class _Model:
 
     def verdict_statement(self, step: Step) -> str:
         if step.kind == "energy condition":
-            return self.condition_statement(step.id.split("/", 1)[1])
+            return self.condition_statement(step.component)
         return STATEMENTS.get(step.id) or escape_text(step.result.statement)
 
     def verdict_evidence(self, step: Step) -> str:

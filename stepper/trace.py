@@ -35,7 +35,7 @@ from sympy.core.function import AppliedUndef
 
 from .version import __version__
 from .errors import InputError
-from .record import (ASSUMPTION_WORDS, AnsatzRequest, Derivation, MatterRequest, MetricRecord, OrbitRequest, Simplification, Step,
+from .record import (ASSUMPTION_WORDS, STAGES, AnsatzRequest, Derivation, MatterRequest, MetricRecord, OrbitRequest, Simplification, Step,
                      StepKind, Verdict)
 
 TRACE_FORMAT = "stepper trace"
@@ -116,6 +116,9 @@ class _Writer:
         return {
             "id": step.id,
             "kind": step.kind.value,
+            "stage": step.stage,
+            "quantity": step.quantity,
+            "component": step.component,
             "annotation": step.annotation,
             "formula": step.formula,
             "substituted": step.substituted,
@@ -142,6 +145,8 @@ class _Writer:
             "functions": {f.func.__name__: [a.name for a in f.args] for f in m.functions},
             "abbreviations": {name: self.expression(value) for name, value in m.abbreviations},
             "line_element": m.line_element,
+            "line_element_expression": (None if m.line_element_expression is None
+                                        else self.expression(m.line_element_expression)),
             "components": {f"{m.names[i]},{m.names[j]}": self.expression(m.matrix[i, j])
                            for i in range(n) for j in range(n) if m.matrix[i, j] != 0},
             "requests": self.requests(m),
@@ -365,7 +370,12 @@ class _Reader:
                            int(s.get("before_terms", 0)))
             for s in (_mapping(x, f"{where}.simplifications") for x in
                       _list(data.get("simplifications", []), f"{where}.simplifications")))
+        stage = _text(data.get("stage", ""), f"{where}.stage")
+        if stage not in STAGES:
+            raise TraceFormatError(f"{where}: unknown stage {stage!r}")
         return Step(id=step_id, kind=kind, annotation=_text(data.get("annotation", ""), f"{where}.annotation"),
+                    stage=stage, quantity=_text(data.get("quantity", ""), f"{where}.quantity"),
+                    component=_text(data.get("component", ""), f"{where}.component"),
                     formula=_text(data.get("formula", ""), f"{where}.formula"), uses=uses,
                     result=self.value(data.get("result"), f"{where}.result"),
                     params=_mapping(self.value(data.get("params", {}), f"{where}.params"), f"{where}.params"),
@@ -401,6 +411,8 @@ class _Reader:
             abbreviations=tuple((_identifier(k, "metric.abbreviations"), self.expression(v, f"metric.abbreviations.{k}"))
                                 for k, v in _mapping(data.get("abbreviations", {}), "metric.abbreviations").items()),
             line_element=None if line_element is None else _text(line_element, "metric.line_element"),
+            line_element_expression=(None if data.get("line_element_expression") is None else
+                                     self.expression(data["line_element_expression"], "metric.line_element_expression")),
             notes=_text(data.get("notes", ""), "metric.notes"),
             assumptions=tuple((_identifier(k, "metric.assumptions"), _text(v, "metric.assumptions"))
                               for k, v in _mapping(data.get("assumptions", {}), "metric.assumptions").items()),

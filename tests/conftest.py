@@ -12,6 +12,17 @@ EXAMPLES = ROOT / "examples"
 EXAMPLE_STEMS = tuple(sorted(p.stem for p in EXAMPLES.glob("*.toml")))
 CLAIM_STEMS = tuple(sorted(p.stem for p in (EXAMPLES / "claims").glob("*.toml")))
 
+#: The examples whose derivations take seconds: their parametrized cases run in the full suite only
+#: (``pytest -m "not slow"`` is the everyday subset).
+LARGE_EXAMPLES = ("spinning_black_hole", "twisted_vacuum", "charged_rotating_black_hole")
+
+
+def pytest_collection_modifyitems(config, items):
+    for item in items:
+        callspec = getattr(item, "callspec", None)
+        if callspec and any(str(v) in LARGE_EXAMPLES for v in callspec.params.values()):
+            item.add_marker(pytest.mark.slow)
+
 
 @functools.lru_cache(maxsize=None)
 def example_derivation(stem: str):

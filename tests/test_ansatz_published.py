@@ -143,6 +143,7 @@ def test_schwarzschild_from_ansatz_check_holds():
     assert is_zero(r * sp.diff(A, r) - A * B + A)
 
 
+@pytest.mark.slow
 def test_kottler_from_ansatz_with_lambda():
     # Kottler 1918 / Schwarzschild-de Sitter (from memory): B = 1/(1 - 2M/r - Lambda r^2/3).
     d = kottler_ansatz()
@@ -166,6 +167,7 @@ def exponential_ansatz():
     }, curvature_invariants=False)
 
 
+@pytest.mark.slow
 def test_exponential_ansatz_gives_schwarzschild():
     # Carroll sec. 5.2 (from memory): exp(2 beta) = (1 - R_s/r)^(-1), exp(2 alpha) = C (1 - R_s/r),
     # i.e. r (1 - exp(-2 beta)) = R_s and exp(2 alpha + 2 beta) = C are constants.
@@ -179,6 +181,7 @@ def test_exponential_ansatz_gives_schwarzschild():
     assert d.results["ansatz"]["check"]["holds"] is True
 
 
+@pytest.mark.slow
 def test_exponential_ansatz_equations_and_bianchi():
     # Whatever dsolve manages, the equations must be the textbook ones (Carroll sec. 5.2, from
     # memory, for G_tt and G_rr of this metric, up to non-vanishing factors):

@@ -9,6 +9,7 @@ from pathlib import Path
 
 import pytest
 
+from conftest import example_derivation
 from stepper import derive, load_metric
 from stepper.audit import AGREES, DIFFERS, UNDECIDED, UNREADABLE, audit, record_audit
 from stepper.claims import Claim, load_claims, metric_vocabulary
@@ -39,7 +40,7 @@ SCHWARZSCHILD_TEXTBOOK = [
 
 @pytest.fixture(scope="module")
 def schwarzschild():
-    return derive(load_metric(EXAMPLES / "compact_star_exterior.toml"))
+    return example_derivation("compact_star_exterior")
 
 
 def make_claims(derivation, rows) -> list[Claim]:
@@ -110,7 +111,7 @@ def test_opposite_riemann_convention_is_named(schwarzschild):
 def test_ricci_contracted_on_the_other_index_is_named():
     # Flat expanding universe: R_tt = -3 a''/a (Carroll, sec. 8.3, from memory); contracting R^a_bda instead
     # of R^a_bad gives +3 a''/a.
-    d = derive(load_metric(EXAMPLES / "expanding_dust_universe.toml"))
+    d = example_derivation("expanding_dust_universe")
     verdicts, _ = outcomes(d, [("ricci", "t,t", "latex", r"\frac{3\ddot a}{a}")])
     assert verdicts[0].outcome == DIFFERS
     assert "last index" in verdicts[0].diagnosis
@@ -126,10 +127,11 @@ def test_earliest_wrong_claim_along_the_chain(schwarzschild):
     assert earliest == [1]
 
 
+@pytest.mark.slow
 def test_claims_of_the_rotating_black_hole(tmp_path):
     # Kerr: Ricci-flat (Kerr 1963), Gamma^r_tt = M Delta (r^2 - a^2 cos^2 theta) / Sigma^3
     # (Chandrasekhar, The Mathematical Theory of Black Holes, ch. 6, from memory).
-    d = derive(load_metric(EXAMPLES / "spinning_black_hole.toml"))
+    d = example_derivation("spinning_black_hole")
     rows = [("christoffel", "r,t,t", "latex", r"\frac{M\Delta(r^2-\alpha^2\cos^2\theta)}{\Sigma^3}"),
             ("scalar", "", "plain", "0"),
             ("ricci", "phi,phi", "plain", "0")]
@@ -140,7 +142,7 @@ def test_claims_of_the_rotating_black_hole(tmp_path):
 def test_undecided_claims_say_why(monkeypatch):
     # When simplify() cannot show a difference is zero, the verdict is "cannot be decided" with numeric evidence.
     import sympy
-    d = derive(load_metric(EXAMPLES / "inflating_universe.toml"))
+    d = example_derivation("inflating_universe")
     monkeypatch.setattr(sympy, "simplify", lambda expr, *a, **k: expr)
     rows = [("scalar", "", "plain", "12*H^2 + sin(H*t)^2 + cos(H*t)^2 - 1")]
     verdicts, _ = outcomes(d, rows)
@@ -168,6 +170,7 @@ def run(args, cwd):
                           timeout=600)
 
 
+@pytest.mark.slow
 def test_audit_command_exit_status_and_outputs(tmp_path):
     proc = run(["audit", str(EXAMPLES / "claims" / "seminar_notes.toml"), "-o", str(tmp_path / "a"),
                 "--formats", "trace,tex,notebook"], tmp_path)
@@ -196,6 +199,7 @@ def test_audit_command_exit_status_and_outputs(tmp_path):
     ('metric = "M.toml"\n', "has no claims"),
     ('metric = "M.toml"\n[[claim]\n', "not valid TOML"),
 ])
+@pytest.mark.slow
 def test_bad_claims_files_are_one_line_errors(tmp_path, text, needle):
     (tmp_path / "M.toml").write_text((EXAMPLES / "compact_star_exterior.toml").read_text())
     (tmp_path / "claims.toml").write_text(text)
@@ -206,6 +210,7 @@ def test_bad_claims_files_are_one_line_errors(tmp_path, text, needle):
     assert not (tmp_path / "out").exists()
 
 
+@pytest.mark.slow
 def test_hostile_claims_run_nothing(tmp_path):
     (tmp_path / "M.toml").write_text((EXAMPLES / "compact_star_exterior.toml").read_text())
     (tmp_path / "claims.toml").write_text(

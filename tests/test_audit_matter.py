@@ -11,6 +11,7 @@ from pathlib import Path
 
 import pytest
 
+from conftest import example_derivation
 from stepper import derive, load_metric
 from stepper.audit import AGREES, DIFFERS, UNDECIDED, UNREADABLE, audit, record_audit
 from stepper.claims import claim_vocabulary, load_claims, read_claim
@@ -24,22 +25,22 @@ HAVE_TEX = shutil.which("pdflatex") is not None
 
 @pytest.fixture(scope="module")
 def wormhole():
-    return derive(load_metric(EXAMPLES / "wormhole_passage.toml"))
+    return example_derivation("wormhole_passage")
 
 
 @pytest.fixture(scope="module")
 def static_universe():
-    return derive(load_metric(EXAMPLES / "closed_static_universe.toml"))
+    return example_derivation("closed_static_universe")
 
 
 @pytest.fixture(scope="module")
 def schwarzschild():
-    return derive(load_metric(EXAMPLES / "compact_star_exterior.toml"))
+    return example_derivation("compact_star_exterior")
 
 
 @pytest.fixture(scope="module")
 def ansatz():
-    return derive(load_metric(EXAMPLES / "exterior_from_ansatz.toml"))
+    return example_derivation("exterior_from_ansatz")
 
 
 def check(derivation, rows, constants=()):

@@ -24,6 +24,9 @@ from pathlib import Path
 import pytest
 import sympy as sp
 
+# Every test here starts stepper as a subprocess: part of the full run, not the everyday subset.
+pytestmark = pytest.mark.slow
+
 ROOT = Path(__file__).resolve().parent.parent
 EXAMPLES = ROOT / "examples"
 EXAMPLE_FILES = sorted(EXAMPLES.glob("*.toml"))

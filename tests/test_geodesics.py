@@ -20,16 +20,17 @@ import pytest
 import sympy as sp
 from scipy.integrate import solve_ivp
 
-from stepper import derive, load_metric
+
+from conftest import example_derivation
 from stepper import numeric
 
 EXAMPLES = Path(__file__).resolve().parent.parent / "examples"
 COORDS = ("t", "r", "theta", "phi")
 
 
-@functools.lru_cache(maxsize=None)
 def example(name: str):
-    return derive(load_metric(EXAMPLES / f"{name}.toml"))
+    """The shared, once-per-session derivation of an example (tests/conftest.py)."""
+    return example_derivation(name)
 
 
 def symbols_by_name(d) -> dict:

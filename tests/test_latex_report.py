@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import functools
 import re
 import shutil
 import subprocess
@@ -11,6 +10,7 @@ from pathlib import Path
 import pytest
 import sympy as sp
 
+from conftest import example_derivation
 from stepper import Metric, derive, load_metric
 from stepper.exporters import (AppendixExporter, PdfExporter, ReportExporter, TexMissing, compile_latex,
                                latex_preamble)
@@ -22,15 +22,16 @@ HAVE_TEX = shutil.which("pdflatex") is not None
 needs_tex = pytest.mark.skipif(not HAVE_TEX, reason="pdflatex is not installed (.ci/run installs it)")
 
 
-@functools.lru_cache(maxsize=None)
 def derived(name: str):
-    return derive(load_metric(EXAMPLES / f"{name}.toml"))
+    """The shared, once-per-session derivation of an example (tests/conftest.py)."""
+    return example_derivation(name)
 
 
 def overfull_widths(log: str) -> list[float]:
     return [float(w) for w in re.findall(r"Overfull \\hbox \(([0-9.]+)pt too wide\)", log)]
 
 
+@pytest.mark.slow
 @needs_tex
 @pytest.mark.parametrize("name", ALL_EXAMPLES)
 def test_every_example_compiles_without_overfull_lines(name):
@@ -54,6 +55,7 @@ def test_report_lists_every_step_with_an_anchor_and_links_to_the_steps_it_used()
         assert rf"\hyperlink{{step{used_number}}}" in block
 
 
+@pytest.mark.slow
 def test_abbreviations_appear_in_the_rotating_black_hole_results():
     tex = ReportExporter().export(derived("spinning_black_hole"))
     assert r"\Sigma" in tex and r"\Delta" in tex
@@ -62,6 +64,7 @@ def test_abbreviations_appear_in_the_rotating_black_hole_results():
     assert r"\Sigma^{3}" in tex
 
 
+@pytest.mark.slow
 def test_same_input_gives_identical_tex_and_fragment():
     d1 = derive(load_metric(EXAMPLES / "twisted_vacuum.toml"))
     d2 = derive(load_metric(EXAMPLES / "twisted_vacuum.toml"))
@@ -69,12 +72,14 @@ def test_same_input_gives_identical_tex_and_fragment():
     assert AppendixExporter().export(d1) == AppendixExporter().export(d2)
 
 
+@pytest.mark.slow
 @needs_tex
 def test_pdf_is_identical_when_built_twice():
     d = derived("round_sphere")
     assert PdfExporter().export(d) == PdfExporter().export(d)
 
 
+@pytest.mark.slow
 @needs_tex
 def test_fragment_compiles_inside_a_minimal_article():
     fragment = AppendixExporter().export(derived("expanding_dust_universe"))
@@ -117,6 +122,7 @@ def test_text_from_the_metric_is_escaped():
     assert escape_text(HOSTILE_TITLE) in tex
 
 
+@pytest.mark.slow
 @needs_tex
 def test_hostile_title_prints_literally_and_runs_nothing(tmp_path, monkeypatch):
     monkeypatch.chdir(tmp_path)
@@ -243,12 +249,14 @@ def test_summary_lists_the_new_verdicts_with_their_evidence():
     assert r"\rho = - \frac{b_{0}^{2}}{8 \pi r^{4}}" in summary
 
 
+@pytest.mark.slow
 def test_same_input_gives_identical_tex_with_matter():
     d1 = derive(load_metric(EXAMPLES / "closed_static_universe.toml"))
     d2 = derive(load_metric(EXAMPLES / "closed_static_universe.toml"))
     assert ReportExporter().export(d1) == ReportExporter().export(d2)
 
 
+@pytest.mark.slow
 @needs_tex
 def test_fragment_with_matter_tables_compiles_inside_a_minimal_article():
     fragment = AppendixExporter().export(derived("wormhole_passage"))

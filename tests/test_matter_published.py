@@ -576,6 +576,7 @@ def kerr_parts(s):
     return M, a, r, theta, Sigma, Delta, A
 
 
+@pytest.mark.slow
 def test_kerr_is_vacuum():
     # Kerr solves R_ij = 0 (Kerr 1963; Carroll sec. 6.6, from memory): every T_ij vanishes
     # and so does the energy density seen by any observer.
@@ -587,6 +588,7 @@ def test_kerr_is_vacuum():
     assert all(exactly_equal(p, 0) for p in pressures(d))
 
 
+@pytest.mark.slow
 def test_kerr_frame_is_the_zero_angular_momentum_observers():
     # Observers normal to t = const in Kerr are the ZAMOs: e_(0) = (d_t + omega d_phi)/alpha
     # with frame-dragging rate omega = 2 M a r / A and lapse alpha^2 = Sigma Delta / A,
@@ -613,6 +615,7 @@ KERR_POINTS = [
 ]
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("point", KERR_POINTS)
 def test_kerr_frame_is_orthonormal_numerically(point):
     # Independent check: g(e_a, e_b) = diag(-1, 1, 1, 1) with the Boyer-Lindquist metric

@@ -17,6 +17,7 @@ import sympy as sp
 from nbclient import NotebookClient
 from nbclient.exceptions import CellExecutionError
 
+from conftest import example_derivation
 from stepper import Metric, derive, load_metric
 from stepper.notebook import _NOTEBOOK_NAMES, NotebookError, _Source, notebook_text
 from stepper.tracer import Verdict
@@ -27,9 +28,9 @@ ALL_EXAMPLES = sorted(p.stem for p in EXAMPLES.glob("*.toml"))
 IN_PROCESS = ["hyperbolic_plane", "five_dimensional_black_hole", "inflating_universe", "twisted_vacuum"]
 
 
-@functools.lru_cache(maxsize=None)
 def derived(name: str):
-    return derive(load_metric(EXAMPLES / f"{name}.toml"))
+    """The shared, once-per-session derivation of an example (tests/conftest.py)."""
+    return example_derivation(name)
 
 
 @functools.lru_cache(maxsize=None)
@@ -68,13 +69,14 @@ def corrupted(derivation, step_id: str, change):
     """The derivation with one step's recorded result replaced by change(result)."""
     steps = [dataclasses.replace(s, result=change(s.result)) if s.id == step_id else s for s in derivation.steps]
     assert any(s.id == step_id for s in steps), step_id
-    return type(derivation)(derivation.metric, steps, derivation.results, derivation.arithmetic, derivation.seconds)
+    return dataclasses.replace(derivation, steps=tuple(steps))
 
 
 # --------------------------------------------------------------------------
 # Running the notebook
 # --------------------------------------------------------------------------
 
+@pytest.mark.slow
 @pytest.mark.parametrize("name", ["compact_star_exterior", "expanding_dust_universe", "round_sphere"])
 def test_notebook_runs_top_to_bottom_in_a_kernel(name, tmp_path):
     nb = nbformat.reads(exported(name), as_version=4)
@@ -84,11 +86,12 @@ def test_notebook_runs_top_to_bottom_in_a_kernel(name, tmp_path):
     assert not any(o.output_type == "error" for c in code_cells(nb) for o in c.outputs)
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("name", IN_PROCESS)
 def test_notebook_runs_in_process(name):
     assert run_in_process(nbformat.reads(exported(name), as_version=4)) is None
 
-
+@pytest.mark.slow
 def test_corrupted_component_fails_in_its_own_cell(tmp_path):
     bad = corrupted(derived("compact_star_exterior"), "christoffel/r,t,t", lambda r: 2 * r)
     nb = nbformat.reads(notebook_text(bad), as_version=4)
@@ -118,6 +121,7 @@ def test_corrupted_component_fails_in_its_own_cell(tmp_path):
     ("verdict/constant_curvature", lambda v: dataclasses.replace(v, holds=True)),
     ("ricci/symmetry", lambda v: dataclasses.replace(v, holds=False)),
 ])
+@pytest.mark.slow
 def test_each_kind_of_corruption_stops_at_that_step(step_id, change):
     bad = corrupted(derived("compact_star_exterior"), step_id, change)
     assert run_in_process(nbformat.reads(notebook_text(bad), as_version=4)) == step_id
@@ -305,7 +309,7 @@ def test_templates_given_first_restyle_the_text(tmp_path):
     folder = tmp_path / "notebook"
     folder.mkdir()
     (folder / "explanations.md.j2").write_text(
-        "{% macro christoffel_component(step, dimension) %}Our seminar's words for {{ step.id }}.{% endmacro %}\n")
+        "<% macro christoffel_component(step, dimension) %>Our seminar's words for << step.id >>.<% endmacro %>\n")
     text = notebook_text(derived("round_sphere"), templates=[tmp_path])
     assert "Our seminar's words for christoffel/theta,phi,phi." in text
     assert text != exported("round_sphere")
@@ -318,7 +322,7 @@ def test_templates_given_first_restyle_the_text(tmp_path):
 
 PAYLOAD = "__import__('os').system('touch pwned')"
 
-
+@pytest.mark.slow
 def test_metric_text_never_reaches_code(tmp_path):
     source = tmp_path / "evil.toml"
     source.write_text(
@@ -336,3 +340,15 @@ def test_metric_text_never_reaches_code(tmp_path):
     assert "pwned" in nb.cells[0].source                  # shown as text in markdown
     run_in_kernel(nb, tmp_path)
     assert not (tmp_path / "pwned").exists()
+
+
+def test_metric_cell_rederives_the_matrix_from_the_line_element():
+    """The line element is written into the notebook as sympy code and expanded there, so the metric step is
+    checked against an independent reading of the input, not against the recorded matrix."""
+    nb = nbformat.reads(exported("compact_star_exterior"), as_version=4)
+    cell = next(c for c in code_cells(nb) if c.metadata.get("stepper", {}).get("step") == "metric")
+    assert "line_element = " in cell.source and "metric_from_line_element(line_element, [dt, dr, dtheta, dphi])" \
+        in cell.source
+    assert "sp.Matrix([" not in cell.source
+    bad = corrupted(derived("compact_star_exterior"), "metric", lambda r: {**r, "r,r": 2 * r["r,r"]})
+    assert run_in_process(nbformat.reads(notebook_text(bad), as_version=4)) == "metric"

@@ -43,6 +43,7 @@ import pytest
 import sympy
 from mpmath import mpf
 
+from conftest import example_derivation
 from stepper import numeric as nc
 from stepper import derive, load_metric
 
@@ -236,7 +237,7 @@ _DERIVATIONS: dict = {}
 
 def derivation(name):
     if name not in _DERIVATIONS:
-        _DERIVATIONS[name] = derive(load_metric(EXAMPLES / f"{name}.toml"))
+        _DERIVATIONS[name] = example_derivation(name)
     return _DERIVATIONS[name]
 
 

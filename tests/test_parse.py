@@ -758,6 +758,7 @@ def _trees(draw: st.DrawFn, depth: int = 3) -> Node:
         raise
 
 
+@pytest.mark.slow
 @settings(max_examples=300, deadline=None)
 @given(_trees())
 def test_generated_expressions_round_trip(tree: Node) -> None:

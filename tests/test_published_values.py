@@ -8,20 +8,20 @@ sympy's cancel() after writing cos^2 = 1 - sin^2, is exactly zero.
 
 from __future__ import annotations
 
-import functools
 from pathlib import Path
 
 import pytest
 import sympy as sp
 
+from conftest import example_derivation
 from stepper import Metric, derive, load_metric
 
 EXAMPLES = Path(__file__).resolve().parent.parent / "examples"
 
 
-@functools.lru_cache(maxsize=None)
 def example(name: str):
-    return derive(load_metric(EXAMPLES / f"{name}.toml"))
+    """The shared, once-per-session derivation of an example (tests/conftest.py)."""
+    return example_derivation(name)
 
 
 def names(d) -> dict[str, sp.Expr]:
@@ -272,6 +272,7 @@ def test_a_wrong_claim_would_be_caught():
     assert not exactly_equal(component(d, "christoffel", "r,t,t"), wrong)
 
 
+@pytest.mark.slow
 def test_charged_rotating_black_hole_kretschmann():
     # Kerr-Newman in Boyer-Lindquist coordinates: R = 0 and
     # K = 8/Sigma^6 [6 M^2 (r^6 - 15 a^2 r^4 c^2 + 15 a^4 r^2 c^4 - a^6 c^6)

@@ -9,7 +9,7 @@ import re
 import shutil
 import subprocess
 import sys
-from pathlib import Path
+
 
 import pytest
 from jsonschema import Draft202012Validator
@@ -145,6 +145,7 @@ def test_render_of_a_saved_trace_gives_the_bytes_derive_wrote(stem, tmp_path):
         assert (tmp_path / "A" / name).read_bytes() == (tmp_path / "B" / name).read_bytes(), name
 
 
+@pytest.mark.slow
 def test_render_of_a_bad_trace_is_one_line_and_status_2(tmp_path):
     (tmp_path / "trace.json").write_text(_tampered(HOSTILE["attribute call"]), encoding="utf-8")
     proc = _run(["render", "trace.json", "-o", "out"], tmp_path)

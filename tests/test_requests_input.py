@@ -152,6 +152,7 @@ def test_the_bad_cases_are_all_different():
     assert len({case.id for case in BAD}) == len(BAD)
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("case", BAD, ids=[c.id for c in BAD])
 def test_bad_request_gives_one_line_and_writes_nothing(bad_runs, case):
     proc, cwd = bad_runs[case.id]

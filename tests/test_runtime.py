@@ -177,3 +177,18 @@ def test_ansatz_helpers_find_the_unknowns_and_the_factors_that_cannot_vanish():
     assert ansatz_runtime.cannot_vanish(A) and ansatz_runtime.cannot_vanish(B)
     assert ansatz_runtime.cannot_vanish(sp.exp(A))
     assert not ansatz_runtime.cannot_vanish(A.diff(r))
+
+
+def test_metric_from_line_element_halves_cross_terms():
+    # ds^2 = -du dv gives g_uv = g_vu = -1/2 (README, "Line element rules"; common practice), and
+    # -(dt + w dx)^2 + dx^2 gives g_tx = -w, g_xx = 1 - w^2.
+    u, v, x, w = sp.symbols("u v x w", real=True)
+    du, dv, dt, dx = sp.symbols("du dv dt dx")
+    set_coordinates(core, ["u", "v"], [u, v])
+    assert core.metric_from_line_element(-du * dv, [du, dv]) == sp.Matrix([[0, -sp.Rational(1, 2)],
+                                                                            [-sp.Rational(1, 2), 0]])
+    set_coordinates(core, ["t", "x"], [t, x])
+    g = core.metric_from_line_element(-(dt + w * dx)**2 + dx**2, [dt, dx])
+    assert g == sp.Matrix([[-1, -w], [-w, 1 - w**2]])
+    with pytest.raises(AssertionError, match="not quadratic"):
+        core.metric_from_line_element(dt**2 + dt, [dt, dx])

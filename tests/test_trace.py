@@ -2,13 +2,13 @@
 
 from __future__ import annotations
 
-import functools
 import json
 from pathlib import Path
 
 import pytest
 import sympy as sp
 
+from conftest import example_derivation
 from stepper import derive, load_metric
 from stepper.trace import trace_data, trace_json, write_atomically
 
@@ -17,9 +17,9 @@ SMALL = ["round_sphere", "hyperbolic_plane", "compact_star_exterior", "expanding
          "inflating_universe", "five_dimensional_black_hole", "twisted_vacuum", "spinning_black_hole"]
 
 
-@functools.lru_cache(maxsize=None)
 def derived(name: str):
-    return derive(load_metric(EXAMPLES / f"{name}.toml"))
+    """The shared, once-per-session derivation of an example (tests/conftest.py)."""
+    return example_derivation(name)
 
 
 def reader_namespace(data: dict) -> dict:
@@ -125,6 +125,7 @@ def test_every_nonzero_christoffel_component_has_its_own_step_with_formula_and_s
         assert step.simplifications and step.simplifications[0].rewrite
 
 
+@pytest.mark.slow
 def test_same_input_gives_identical_bytes(tmp_path):
     first = trace_json(derive(load_metric(EXAMPLES / "twisted_vacuum.toml")))
     second = trace_json(derive(load_metric(EXAMPLES / "twisted_vacuum.toml")))
@@ -152,6 +153,7 @@ def test_interrupted_write_keeps_the_old_file(tmp_path, monkeypatch):
     assert [p.name for p in tmp_path.iterdir()] == ["trace.json"]
 
 
+@pytest.mark.slow
 def test_printer_stable_forms_survive_printing_and_reading():
     # Random products of sums with rational coefficients: the kind sympify rewrites on reading (common practice).
     import random

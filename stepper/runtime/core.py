@@ -41,6 +41,23 @@ def riemann_index_sets():
     return [first + second for position, first in enumerate(pairs) for second in pairs[position:]]
 
 
+def metric_from_line_element(line_element, differentials):
+    """g_ij from ds^2 = g_ij dx^i dx^j, summed over all i and j: the coefficient of (dx^i)^2 on the diagonal,
+    half the coefficient of dx^i dx^j (i != j) off it.  Every term must be quadratic in the differentials."""
+    g = sp.zeros(dimension, dimension)
+    for powers, coefficient in sp.Poly(sp.expand(line_element), *differentials).terms():
+        indices = [k for k, power in enumerate(powers) for _ in range(power)]
+        if len(indices) != 2:
+            raise AssertionError("step metric: a term of the line element is not quadratic in the differentials")
+        i, j = indices
+        if i == j:
+            g[i, i] += coefficient
+        else:
+            g[i, j] += coefficient / 2
+            g[j, i] += coefficient / 2
+    return g
+
+
 def metric_matrix():
     """The recorded metric as a sympy Matrix."""
     return sp.Matrix(dimension, dimension,
