@@ -93,7 +93,7 @@ class _Ansatz:
             "identically_zero": zero,
         }
         lam_words = "" if self.lam == 0 else f" with Lambda = {self.lam}"
-        c.record(id="ansatz/equations", kind="ansatz",
+        c.record(id="ansatz/equations", kind="ansatz", quantity="field_equation", component="equations",
                  annotation=f"Field equations E_ij = G_ij + Lambda g_ij = 0{lam_words} for the unknowns "
                             f"{', '.join(str(f) for f in self.unknowns)}: each listed component's numerator, with "
                             "the factors that cannot vanish removed; duplicates (once reduced, a multiple of another "
@@ -180,7 +180,7 @@ class _Ansatz:
         words = "; ".join(f"E_{k} follows from {', '.join('E_' + o for o in v['from'])} and their derivatives "
                           f"(component {v['bianchi_component']} of the identity, where its coefficient "
                           f"{v['coefficient']} is non-zero)" for k, v in follows.items())
-        c.record(id="ansatz/dependence", kind="ansatz",
+        c.record(id="ansatz/dependence", kind="ansatz", quantity="field_equation", component="dependence",
                  annotation="Independent equations: " + ", ".join("E_" + c.key(*ij) for ij in kept) + ". "
                             + (words + "." if words else "No equation follows from the others by the contracted "
                                                          "Bianchi identity."),
@@ -303,13 +303,13 @@ class _Ansatz:
         if not self.reduced:
             statement = "Every field equation E_ij vanishes identically: any choice of the unknowns is a solution."
             c.results["ansatz"]["check"] = {"holds": True, "evidence": statement}
-            c.record(id="ansatz/solution", kind="ansatz", annotation=statement, formula=FORMULAS["solution"],
+            c.record(id="ansatz/solution", kind="ansatz", quantity="ansatz_solution", annotation=statement, formula=FORMULAS["solution"],
                      uses=(last,), result=Verdict("The ansatz equations are solved.", True, statement))
             return
         if failure:
             c.results["ansatz"]["unsolved"] = failure
         if not solved:
-            c.record(id="ansatz/solution", kind="ansatz",
+            c.record(id="ansatz/solution", kind="ansatz", quantity="ansatz_solution",
                      annotation=f"The system is not solved: {failure}. The independent equations above stand "
                                 "as the result.", formula=FORMULAS["solution"], uses=(last,),
                      result=Verdict("The ansatz equations are solved.", None, failure))
@@ -325,7 +325,7 @@ class _Ansatz:
         c.results["ansatz"]["metric"] = components
         c.results["ansatz"]["rescalings"] = rescaled
         note = "; ".join(f"{k} is removed by rescaling {v}" for k, v in rescaled.items())
-        c.record(id="ansatz/solution", kind="ansatz",
+        c.record(id="ansatz/solution", kind="ansatz", quantity="ansatz_solution",
                  annotation="The metric with the solution put in, with integration constants "
                             f"{', '.join(s.name for s in self.constants) or 'none'}"
                             + (f" ({note})" if note else "") + (f". Not every unknown is solved: {failure}" if failure else "") + ".",
@@ -366,7 +366,7 @@ class _Ansatz:
                        f"remain free; with them free, {how}")
         verdict = Verdict("The solution satisfies every field equation E_ij = 0.", holds, how)
         c.results["ansatz"]["check"] = {"holds": holds, "evidence": how}
-        c.record(id="ansatz/check", kind="check",
+        c.record(id="ansatz/check", kind="check", quantity="ansatz_solution",
                  annotation="Substitute the solution into every component E_ij = G_ij + Lambda g_ij, including the "
                             "duplicates and those that follow by the Bianchi identity.",
                  formula=FORMULAS["check"], uses=("ansatz/solution", "ansatz/equations"), result=verdict)

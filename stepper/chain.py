@@ -245,11 +245,15 @@ class _Chain:
             stage()
         self.progress("done", len(stages), len(stages))
         conventions, conventions_latex = dict(CONVENTIONS), dict(CONVENTIONS_LATEX)
+        convention_data = {**CONVENTION_DATA, "signature": self.signature,
+                           "stored_orderings": {name: QUANTITIES[name].stored for name in QUANTITIES
+                                                if name in self.results and QUANTITIES[name].rank > 1}}
         if self.metric.matter is not None:
             conventions.update(MATTER_CONVENTIONS)
             conventions_latex.update(MATTER_CONVENTIONS_LATEX)
         return Derivation(self.metric, tuple(self.tracer.steps), self.results, self.A.name,
                           arithmetic_description=self.A.description, conventions=conventions,
+                          convention_data=convention_data,
                           conventions_latex=conventions_latex, seconds=time.perf_counter() - start)
 
     def matter(self) -> None:
@@ -270,10 +274,11 @@ class _Chain:
         comps = {self.key(i, j): self.expr(self.g[i][j]) for i in range(n) for j in range(n)
                  if not self.is_zero(self.g[i][j])}
         self.results["metric"] = comps
+        self.signature = metric_signature(self.metric.matrix)
         self.record(id="metric", kind="input", annotation="The metric components g_ij read from the input.",
-                    formula=formula("metric"), uses=(), result=comps,
+                    formula=formula("metric"), uses=(), result=comps, quantity="metric",
                     params={"coordinates": list(self.metric.names), "arithmetic": self.A.name,
-                            "convention": LINE_ELEMENT_CONVENTION})
+                            "convention": LINE_ELEMENT_CONVENTION, "signature": self.signature})
 
     def metric_derivatives(self) -> None:
         n = self.n
@@ -285,7 +290,7 @@ class _Chain:
                     self.dg[k][i][j] = self.dg[k][j][i]
         comps = {f"{self.x[k].name}:{self.key(i, j)}": self.expr(self.dg[k][i][j])
                  for k in range(n) for i in range(n) for j in range(i, n) if not self.is_zero(self.dg[k][i][j])}
-        self.record(id="metric_derivatives", kind="derivative",
+        self.record(id="metric_derivatives", kind="derivative", quantity="metric_derivatives",
                     annotation="First partial derivatives d_k g_ij of the metric, keyed 'k:i,j'; "
                                "those not listed vanish, and d_k g_ji = d_k g_ij.",
                     formula=formula("metric_derivatives"), uses=("metric",), result=comps)
@@ -310,7 +315,7 @@ class _Chain:
         value = self.expr(det)
         self.results["determinant"] = value
         raw = (lambda: sympy.Matrix(self.metric.matrix).det(method="berkowitz")) if n <= 4 else None
-        self.record(id="determinant", kind="determinant", annotation=f"Determinant of the metric ({method}).",
+        self.record(id="determinant", kind="determinant", quantity="determinant", annotation=f"Determinant of the metric ({method}).",
                     formula=formula("determinant"), uses=("metric",), result=value,
                     params={"method": method},
                     simplifications=self.simplification(raw, self.size(g[i][j] for i in range(n) for j in range(n)), det))
@@ -352,14 +357,14 @@ class _Chain:
         comps = {self.key(i, j): self.expr(ginv[i][j]) for i in range(n) for j in range(n)
                  if not self.is_zero(ginv[i][j])}
         self.results["inverse_metric"] = comps
-        self.record(id="inverse_metric", kind="inverse", annotation=f"Inverse metric g^ij ({method}).",
+        self.record(id="inverse_metric", kind="inverse", quantity="inverse_metric", annotation=f"Inverse metric g^ij ({method}).",
                     formula=formula("inverse_metric"), uses=("metric", "determinant"), result=comps,
                     params={"method": method})
         verdict = self.identity_verdict(
             "g^ik g_kj = delta^i_j",
             [sum((ginv[i][k] * g[k][j] for k in range(n)), A.zero) - (1 if i == j else 0)
              for i in range(n) for j in range(n)], "the entries of g^ik g_kj - delta^i_j")
-        self.record(id="inverse_metric/check", kind="check",
+        self.record(id="inverse_metric/check", kind="check", quantity="inverse_metric", component="identity",
                     annotation="The product of the inverse and the metric is the identity.",
                     formula=r"g^{ik} g_{kj} - \delta^i_j = 0", uses=("metric", "inverse_metric"), result=verdict)
 
@@ -398,7 +403,7 @@ class _Chain:
         self.gamma = gamma
         self.results["christoffel"] = dict(sorted(components.items(), key=lambda kv: self._order(kv[0])))
         independent = n * n * (n + 1) // 2
-        self.record(id="christoffel", kind="summary",
+        self.record(id="christoffel", kind="summary", quantity="christoffel",
                     annotation=f"Christoffel symbols of the second kind: {independent - zero_count} of the "
                                f"{independent} independent components (b <= c) are non-zero; the rest vanish, "
                                "and Gamma^a_cb = Gamma^a_bc.",
@@ -454,7 +459,7 @@ class _Chain:
                         uses=("christoffel", "determinant"),
                         result={"sum": self.expr(explicit), "from_determinant": self.expr(from_det)},
                         )
-        self.record(id="contracted_christoffel", kind="check",
+        self.record(id="contracted_christoffel", kind="check", quantity="contracted_christoffel",
                     annotation="The contracted Christoffel symbols equal the derivative of ln sqrt|g| in every direction.",
                     formula=formula("contracted_christoffel"),
                     uses=tuple(f"contracted_christoffel/{c.name}" for c in self.x),
@@ -530,7 +535,7 @@ class _Chain:
         for a, b, c in itertools.product(range(n), repeat=3):
             R[a, b, c, c] = A.zero
         self.results["riemann"] = dict(sorted(components.items(), key=lambda kv: self._order(kv[0])))
-        self.record(id="riemann", kind="summary",
+        self.record(id="riemann", kind="summary", quantity="riemann",
                     annotation=f"Riemann tensor: {total - zero_count} of the {total} components with c < d are non-zero; "
                                "the others vanish, and R^a_bdc = -R^a_bcd.",
                     formula=formula("riemann"),
@@ -611,12 +616,12 @@ class _Chain:
                 if b != d:
                     components[self.key(d, b)] = step.result
         self.results["ricci"] = dict(sorted(components.items(), key=lambda kv: self._order(kv[0])))
-        self.record(id="ricci", kind="summary",
+        self.record(id="ricci", kind="summary", quantity="ricci",
                     annotation="Ricci tensor from the contraction of the Riemann tensor (components not listed vanish).",
                     formula=formula("ricci"),
                     uses=tuple(s.id for s in self.tracer.steps if s.id.startswith("ricci/")) or ("riemann",),
                     result=self.results["ricci"])
-        self.record(id="ricci/symmetry", kind="check",
+        self.record(id="ricci/symmetry", kind="check", quantity="ricci", component="symmetry",
                     annotation="The Ricci tensor is symmetric, R_ij = R_ji.",
                     formula=r"R_{ij} - R_{ji} = 0", uses=("riemann",),
                     result=symmetry)
@@ -643,12 +648,12 @@ class _Chain:
                 route_differences.append(value - self.ric[i][j])
                 if not self.is_zero(value):
                     other[self.key(i, j)] = self.expr(value)
-        self.record(id="ricci_by_trace_identity", kind="route",
+        self.record(id="ricci_by_trace_identity", kind="route", quantity="ricci_by_trace_identity",
                     annotation="Ricci tensor by the second route, from the Christoffel symbols and ln sqrt|g| "
                                "(independent components i <= j; those not listed vanish).",
                     formula=formula("ricci_by_trace_identity"), uses=("christoffel", "contracted_christoffel"),
                     result=other)
-        self.record(id="ricci/agreement", kind="check",
+        self.record(id="ricci/agreement", kind="check", quantity="ricci", component="agreement",
                     annotation="The two routes to the Ricci tensor agree component by component.",
                     formula=r"R^{(1)}_{ij} - R^{(2)}_{ij} = 0",
                     uses=tuple(s.id for s in self.tracer.steps if s.id.startswith("ricci/") and s.kind == "component")
@@ -668,7 +673,7 @@ class _Chain:
         self.R_scalar = value
         t = self.tex
         self.results["scalar"] = self.expr(value)
-        self.record(id="scalar", kind="contraction", annotation="Scalar curvature R = g^ij R_ij.",
+        self.record(id="scalar", kind="contraction", quantity="scalar", annotation="Scalar curvature R = g^ij R_ij.",
                     formula=formula("scalar"),
                     uses=("inverse_metric",) + tuple(f"ricci/{self.key(min(i, j), max(i, j))}" for i, j in parts
                                                      if i <= j),
@@ -700,7 +705,7 @@ class _Chain:
                 if i != j:
                     components[self.key(j, i)] = step.result
         self.results["einstein"] = components
-        self.record(id="einstein", kind="summary",
+        self.record(id="einstein", kind="summary", quantity="einstein",
                     annotation="Einstein tensor G_ij = R_ij - R g_ij / 2 (components not listed vanish).",
                     formula=formula("einstein"),
                     uses=tuple(s.id for s in self.tracer.steps if s.id.startswith("einstein/")) or ("scalar", "metric"),
@@ -720,7 +725,7 @@ class _Chain:
                         components[self.key(a, b)] = self.expr(value)
             self.results[name] = components
             q = QUANTITIES[name]
-            self.record(id=name, kind="raising",
+            self.record(id=name, kind="raising", quantity=name,
                         annotation=f"The {q.words}, keyed (a, b) (components not listed vanish).",
                         formula=q.formula, uses=("inverse_metric", summary), result=components)
 
@@ -744,7 +749,7 @@ class _Chain:
                 verdict = Verdict(statement, True,
                                   f"each of the {len(residues)} components checked vanishes ({how})" + extra)
         self.results.setdefault("verdicts", {})[name] = {"holds": verdict.holds, "evidence": verdict.evidence}
-        self.record(id=f"verdict/{name}", kind="verdict", annotation=statement, formula=formula(name),
+        self.record(id=f"verdict/{name}", kind="verdict", quantity=name, annotation=statement, formula=formula(name),
                     uses=uses, result=verdict)
         return verdict
 
@@ -790,16 +795,16 @@ class _Chain:
         cyclic_residues = [self.full_lowered(a, b, c, d) + self.full_lowered(a, c, d, b) + self.full_lowered(a, d, b, c)
                            for a, b, c, d in _first_bianchi_indices(n)]
         self.results["riemann_lowered"] = comps
-        self.record(id="riemann_lowered", kind="lowering",
+        self.record(id="riemann_lowered", kind="lowering", quantity="riemann_lowered",
                     annotation="Riemann tensor with all indices down, R_abcd = g_ae R^e_bcd, for a < b, c < d, "
                                "(a,b) <= (c,d); the others follow from R_abcd = -R_bacd = -R_abdc = R_cdab.",
                     formula=formula("riemann_lowered"), uses=("metric", "riemann"), result=comps)
-        self.record(id="riemann_lowered/pair_symmetry", kind="check",
+        self.record(id="riemann_lowered/pair_symmetry", kind="check", quantity="riemann_lowered", component="pair_symmetry",
                     annotation="Pair exchange symmetry R_abcd = R_cdab holds for the lowered components.",
                     formula=r"R_{abcd} - R_{cdab} = 0", uses=("riemann_lowered",),
                     result=self.identity_verdict("R_abcd = R_cdab", pair_residues,
                                                  "R_abcd - R_cdab on the independent components"))
-        self.record(id="riemann_lowered/first_bianchi", kind="check",
+        self.record(id="riemann_lowered/first_bianchi", kind="check", quantity="riemann_lowered", component="first_bianchi",
                     annotation="First Bianchi identity: the cyclic sum R_abcd + R_acdb + R_adbc vanishes.",
                     formula=r"R_{abcd} + R_{acdb} + R_{adbc} = 0", uses=("riemann_lowered",),
                     result=self.identity_verdict("R_a[bcd] = 0", cyclic_residues,
@@ -852,7 +857,7 @@ class _Chain:
                     value = value + low * current[a, b, c, d]
         value = value * 4
         self.results["kretschmann"] = self.expr(value)
-        self.record(id="kretschmann", kind="invariant",
+        self.record(id="kretschmann", kind="invariant", quantity="kretschmann",
                     annotation="Kretschmann scalar: the full contraction of the Riemann tensor with itself, "
                                "summed as 4 times the sum over a < b and c < d.",
                     formula=formula("kretschmann"), uses=("riemann_lowered", "inverse_metric"),
@@ -867,7 +872,7 @@ class _Chain:
                       "the Cotton tensor, which stepper does not compute")
             verdict = Verdict("Conformally flat.", True if n == 2 else None, reason)
             self.results.setdefault("verdicts", {})["conformally_flat"] = {"holds": verdict.holds, "evidence": reason}
-            self.record(id="verdict/conformally_flat", kind="verdict", annotation=verdict.statement,
+            self.record(id="verdict/conformally_flat", kind="verdict", quantity="conformally_flat", annotation=verdict.statement,
                         formula=formula("conformally_flat"), uses=("metric",), result=verdict)
             return
         Rs = self.R_scalar
@@ -884,7 +889,7 @@ class _Chain:
             if not self.is_zero(value):
                 comps[self.key(a, b, c, d)] = self.expr(value)
         self.results["weyl"] = comps
-        self.record(id="weyl", kind="tensor",
+        self.record(id="weyl", kind="tensor", quantity="weyl",
                     annotation="Weyl tensor with all indices down, for a < b, c < d, (a,b) <= (c,d); "
                                "components not listed vanish.",
                     formula=formula("weyl"), uses=("riemann_lowered", "ricci", "scalar", "metric"), result=comps)
@@ -956,6 +961,36 @@ def _compute_chunk(job: tuple[str, list[tuple]]) -> list:
 
 class TimeLimitReached(Exception):
     """The run passed its time limit; ``args[0]`` says where it was."""
+
+
+def metric_signature(matrix: sympy.Matrix) -> str | None:
+    """The signs of the metric's eigenvalues, "-+++" style, when the declared signs fix them: for a diagonal
+    metric whose every component has a sign by sympy's assumptions.  None otherwise (not decided)."""
+    n = matrix.rows
+    if any(matrix[i, j] != 0 for i in range(n) for j in range(n) if i != j):
+        return None
+    signs = []
+    for i in range(n):
+        entry = matrix[i, i]
+        if entry.is_positive:
+            signs.append("+")
+        elif entry.is_negative:
+            signs.append("-")
+        else:
+            return None
+    return "".join(signs)
+
+
+#: The conventions as data, for programs reading the trace (the words are in CONVENTIONS).
+CONVENTION_DATA = {
+    "line_element": {"summed_over": "all i and j", "cross_term_2f_gives": "g_ij = g_ji = f"},
+    "christoffel": {"kind": "second", "symmetric_indices": [2, 3]},
+    "riemann": {"upper_index": 1, "derivative_indices": [3, 4], "sign": "a round sphere has R > 0",
+                "lowered": "R_abcd = g_ae R^e_bcd"},
+    "ricci": {"contracted_indices_of_riemann": [1, 3]},
+    "scalar": {"from": "g^bd R_bd"},
+    "einstein": {"definition": "G_ij = R_ij - R g_ij / 2"},
+}
 
 
 def canonical_lowered(indices: tuple[int, int, int, int]) -> tuple[int, tuple[int, int, int, int]]:

@@ -704,7 +704,7 @@ class _Reader(GuardedReader[_Token]):
         if order or primes:
             marker = token if order else primes[0]
             value = self.derivative(value, kind, name, marker, order or len(primes))
-        if kind == "function" and self.at_open("("):
+        if kind == "function" and self.at_open("(") and not self.sized_product(self.vocabulary.functions[name]):
             self.call(self.vocabulary.functions[name], name, base)
             if self.at("^"):
                 mark = self.advance()
@@ -764,6 +764,27 @@ class _Reader(GuardedReader[_Token]):
             self.advance()
             return token.value
         self.unexpected(token, underscore, " (a subscript holds letters and digits only)")
+
+    def sized_product(self, declared: sympy.Expr) -> bool:
+        """Whether ``\\left( ... \\right)`` after a declared function is a factor rather than its arguments:
+        stepper's reports write a(t) times a bracket as ``a \\left(a'\\right)^{2}``, so a sized bracket that
+        does not hold the declared arguments multiplies (a plain ``a(r)`` is still read as a call, and refused)."""
+        if not self.tokens[self.index].text.startswith("\\"):
+            return False
+        saved = (self.index, self.depth, self.bare_digit)
+        try:
+            opening = self.advance()
+            self.enter(opening)
+            arguments = [self.expression()]
+            while self.at(","):
+                self.advance()
+                arguments.append(self.expression())
+            self.close(opening)
+            return tuple(arguments) != tuple(declared.args)
+        except InputError:
+            return False
+        finally:
+            self.index, self.depth, self.bare_digit = saved
 
     def call(self, declared: sympy.Expr, name: str, token: _Token) -> None:
         """Read ``( arguments )`` after a declared function and check them."""

@@ -150,7 +150,7 @@ class _Matter:
                 if i != j:
                     components[c.key(j, i)] = value
         c.results["stress_energy"] = dict(sorted(components.items(), key=lambda kv: c._order(kv[0])))
-        c.record(id="stress_energy", kind="summary",
+        c.record(id="stress_energy", kind="summary", quantity="stress_energy",
                  annotation="Stress-energy tensor with indices down (components not listed vanish).",
                  formula=formula("stress_energy"),
                  uses=tuple(s.id for s in c.tracer.steps if s.id.startswith("stress_energy/")) or ("field_equations",),
@@ -172,7 +172,7 @@ class _Matter:
             comps = {c.key(i, j): self.physical(table[i][j]) for i in range(n) for j in range(n)
                      if not c.is_zero(table[i][j])}
             c.results[name] = comps
-            c.record(id=name, kind="raising", annotation=what + " (components not listed vanish).",
+            c.record(id=name, kind="raising", quantity=name, annotation=what + " (components not listed vanish).",
                      formula=general, uses=("stress_energy", "inverse_metric"), result=comps)
 
     def trace_free(self) -> None:
@@ -190,7 +190,7 @@ class _Matter:
         statement = "Trace-free stress-energy (as for an electromagnetic field in four dimensions): T^i_i = 0."
         verdict = Verdict(statement, verdict.holds, verdict.evidence)
         c.results.setdefault("verdicts", {})["trace_free"] = {"holds": verdict.holds, "evidence": verdict.evidence}
-        c.record(id="verdict/trace_free", kind="verdict", annotation=statement, formula=formula("trace_free"),
+        c.record(id="verdict/trace_free", kind="verdict", quantity="trace_free", annotation=statement, formula=formula("trace_free"),
                  uses=("stress_energy_mixed",), result=verdict,
                  params={"trace": self.physical(trace), "zero_test": zero_test})
 
@@ -278,7 +278,7 @@ class _Matter:
                 if a == b:
                     value = value - (-norms[a] if a == 0 else norms[a])
                 residues.append(value)
-        c.record(id="frame/check", kind="check",
+        c.record(id="frame/check", kind="check", quantity="", component="frame",
                  annotation="The frame is orthonormal: g(e_(a), e_(b)) = diag(-1, 1, ..., 1).",
                  formula=FORMULAS["frame_check"], uses=("frame",),
                  result=c.identity_verdict("g(e_a, e_b) = eta_ab", residues,
@@ -362,7 +362,7 @@ class _Matter:
         c = self.c
         self.F, comps = self.symmetric_frame_components(lambda i, j: self.S[i][j], self.kappa)
         c.results["frame_stress_energy"] = comps
-        c.record(id="frame_stress_energy", kind="frame components",
+        c.record(id="frame_stress_energy", kind="frame components", quantity="frame_stress_energy",
                  annotation="Stress-energy tensor in the orthonormal frame (components not listed vanish).",
                  formula=formula("frame_stress_energy"), uses=("frame", "stress_energy"), result=comps)
 
@@ -373,7 +373,7 @@ class _Matter:
         c, n = self.c, self.n
         _, ricci = self.symmetric_frame_components(lambda i, j: c.ric[i][j])
         c.results["frame_ricci"] = ricci
-        c.record(id="frame_ricci", kind="frame components",
+        c.record(id="frame_ricci", kind="frame components", quantity="frame_ricci",
                  annotation="Ricci tensor in the orthonormal frame (components not listed vanish).",
                  formula=formula("frame_ricci"), uses=("frame", "ricci"), result=ricci)
         riemann = {}
@@ -385,7 +385,7 @@ class _Matter:
                 if shown != 0:
                     riemann[self.frame_key(a, b, cc, d)] = shown
         c.results["frame_riemann"] = riemann
-        c.record(id="frame_riemann", kind="frame components",
+        c.record(id="frame_riemann", kind="frame components", quantity="frame_riemann",
                  annotation="Riemann tensor in the orthonormal frame, for a < b, c < d, (a,b) <= (c,d) in frame order; "
                             "the others follow from the symmetries of R_abcd (components not listed vanish).",
                  formula=formula("frame_riemann"), uses=("frame", "riemann_lowered"), result=riemann)
@@ -447,7 +447,7 @@ class _Matter:
                 verdict = Verdict(statement, False, verdict.evidence +
                                   "; a fluid moving relative to these observers is not tested")
         c.results.setdefault("verdicts", {})["perfect_fluid"] = {"holds": verdict.holds, "evidence": verdict.evidence}
-        c.record(id="verdict/perfect_fluid", kind="verdict", annotation=statement, formula=formula("perfect_fluid"),
+        c.record(id="verdict/perfect_fluid", kind="verdict", quantity="perfect_fluid", annotation=statement, formula=formula("perfect_fluid"),
                  uses=("density_and_pressures",) if self.frame_built else ("frame",), result=verdict, params=params)
 
     def residue_verdict(self, statement: str, residues: dict) -> tuple[Verdict, tuple | None, str]:

@@ -328,49 +328,73 @@ class _Cells:
         self.n = derivation.metric.dimension
 
     def for_step(self, step: Step) -> tuple[str, str]:
-        """(topic, code) for ``step``; the topic names the template macro that explains it."""
-        sid = step.id
-        exact = {
-            "metric": self.metric, "metric_derivatives": self.metric_derivatives,
-            "determinant": self.determinant, "inverse_metric": self.inverse_metric,
-            "inverse_metric/check": self.inverse_check, "christoffel": self.christoffel_summary,
-            "contracted_christoffel": self.contracted_check, "riemann": self.riemann_summary,
-            "ricci": self.ricci_summary, "ricci/symmetry": self.ricci_symmetry,
-            "ricci_by_trace_identity": self.ricci_route, "ricci/agreement": self.ricci_agreement,
-            "scalar": self.scalar, "einstein": self.einstein_summary, "riemann_lowered": self.riemann_lowered,
-            "ricci_mixed": self.ricci_mixed, "einstein_mixed": self.einstein_mixed,
-            "riemann_lowered/pair_symmetry": self.pair_symmetry,
-            "riemann_lowered/first_bianchi": self.first_bianchi,
-            "numeric_verification": self.numeric_verification, "kretschmann": self.kretschmann,
-            "weyl": self.weyl, "verdict/ricci_flat": self.ricci_flat,
-            "verdict/einstein_space": self.einstein_space,
-            "verdict/constant_curvature": self.constant_curvature,
-            "verdict/conformally_flat": self.conformally_flat, "verdict/bianchi": self.bianchi,
-            "field_equations": self.field_equations, "stress_energy": self.stress_energy_summary,
-            "stress_energy_mixed": self.stress_energy_mixed, "stress_energy_up": self.stress_energy_up,
-            "verdict/trace_free": self.trace_free, "frame": self.frame, "frame/check": self.frame_check,
-            "frame_stress_energy": self.frame_stress_energy, "frame_ricci": self.frame_ricci,
-            "frame_riemann": self.frame_riemann, "density_and_pressures": self.density_and_pressures,
-            "verdict/perfect_fluid": self.perfect_fluid, "ansatz/equations": self.ansatz_equations,
-            "ansatz/dependence": self.ansatz_dependence, "ansatz/solution": self.ansatz_solution,
-            "ansatz/check": self.ansatz_check, "geodesic_equations": self.geodesic_equations,
+        """(topic, code) for ``step``, chosen by its kind, quantity and component (never by its id); the topic
+        names the template macro that explains it."""
+        printers = self._printers()
+        kind = step.kind.value
+        method = (printers.get((kind, step.quantity, step.component)) or printers.get((kind, step.quantity, "*"))
+                  or printers.get((kind, "*", "*")))
+        if method is None:
+            return "not_recomputed", self.not_recomputed(step)
+        return method(step)
+
+    def _printers(self) -> dict:
+        """(kind, quantity, component) -> the method writing that step's cell; "*" stands for any component."""
+        return {
+            ("input", "metric", ""): self.metric,
+            ("derivative", "metric_derivatives", ""): self.metric_derivatives,
+            ("determinant", "determinant", ""): self.determinant,
+            ("inverse", "inverse_metric", ""): self.inverse_metric,
+            ("check", "inverse_metric", "identity"): self.inverse_check,
+            ("component", "christoffel", "*"): self.christoffel_component,
+            ("summary", "christoffel", ""): self.christoffel_summary,
+            ("identity", "contracted_christoffel", "*"): self.contracted_component,
+            ("check", "contracted_christoffel", ""): self.contracted_check,
+            ("component", "riemann", "*"): self.riemann_component,
+            ("summary", "riemann", ""): self.riemann_summary,
+            ("component", "ricci", "*"): self.ricci_component,
+            ("summary", "ricci", ""): self.ricci_summary,
+            ("check", "ricci", "symmetry"): self.ricci_symmetry,
+            ("route", "ricci_by_trace_identity", ""): self.ricci_route,
+            ("check", "ricci", "agreement"): self.ricci_agreement,
+            ("contraction", "scalar", ""): self.scalar,
+            ("component", "einstein", "*"): self.einstein_component,
+            ("summary", "einstein", ""): self.einstein_summary,
+            ("raising", "ricci_mixed", ""): self.ricci_mixed,
+            ("raising", "einstein_mixed", ""): self.einstein_mixed,
+            ("lowering", "riemann_lowered", ""): self.riemann_lowered,
+            ("check", "riemann_lowered", "pair_symmetry"): self.pair_symmetry,
+            ("check", "riemann_lowered", "first_bianchi"): self.first_bianchi,
+            ("numeric check", "", ""): self.numeric_verification,
+            ("invariant", "kretschmann", ""): self.kretschmann,
+            ("tensor", "weyl", ""): self.weyl,
+            ("verdict", "ricci_flat", ""): self.ricci_flat,
+            ("verdict", "einstein_space", ""): self.einstein_space,
+            ("verdict", "constant_curvature", ""): self.constant_curvature,
+            ("verdict", "conformally_flat", ""): self.conformally_flat,
+            ("verdict", "bianchi", ""): self.bianchi,
+            ("field equations", "", ""): self.field_equations,
+            ("component", "stress_energy", "*"): self.stress_energy_component,
+            ("summary", "stress_energy", ""): self.stress_energy_summary,
+            ("raising", "stress_energy_mixed", ""): self.stress_energy_mixed,
+            ("raising", "stress_energy_up", ""): self.stress_energy_up,
+            ("verdict", "trace_free", ""): self.trace_free,
+            ("frame", "", ""): self.frame,
+            ("check", "", "frame"): self.frame_check,
+            ("frame components", "frame_stress_energy", ""): self.frame_stress_energy,
+            ("frame components", "frame_ricci", ""): self.frame_ricci,
+            ("frame components", "frame_riemann", ""): self.frame_riemann,
+            ("matter", "", ""): self.density_and_pressures,
+            ("verdict", "perfect_fluid", ""): self.perfect_fluid,
+            ("energy condition", "", "*"): self.energy_condition,
+            ("ansatz", "field_equation", "equations"): self.ansatz_equations,
+            ("ansatz", "field_equation", "dependence"): self.ansatz_dependence,
+            ("ode solution", "", "*"): self.ansatz_solve,
+            ("ansatz", "ansatz_solution", ""): self.ansatz_solution,
+            ("check", "ansatz_solution", ""): self.ansatz_check,
+            ("geodesic", "", ""): self.geodesic_equations,
+            ("claim", "*", "*"): self.claim,
         }
-        by_quantity = {("component", "christoffel"): self.christoffel_component,
-                       ("component", "riemann"): self.riemann_component,
-                       ("component", "ricci"): self.ricci_component,
-                       ("component", "einstein"): self.einstein_component,
-                       ("component", "stress_energy"): self.stress_energy_component,
-                       ("identity", "contracted_christoffel"): self.contracted_component}
-        by_kind = {"claim": self.claim, "energy condition": self.energy_condition, "ode solution": self.ansatz_solve}
-        if (step.kind.value, step.quantity) in by_quantity:
-            topic, body = by_quantity[step.kind.value, step.quantity](step)
-        elif step.kind.value in by_kind:
-            topic, body = by_kind[step.kind.value](step)
-        elif sid in exact:
-            topic, body = exact[sid](step)
-        else:
-            topic, body = "not_recomputed", self.not_recomputed(step)
-        return topic, body
 
     # small pieces ---------------------------------------------------------
     def _id(self, step: Step) -> str:

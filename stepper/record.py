@@ -348,6 +348,9 @@ class Derivation:
     arithmetic_description: str = ""
     conventions: Mapping[str, str] = field(default_factory=dict)
     conventions_latex: Mapping[str, str] = field(default_factory=dict)
+    #: The conventions as data: index positions contracted, the sign of the Riemann tensor, the metric's
+    #: signature when the declared signs fix it (None otherwise), which orderings each table lists.
+    convention_data: Mapping[str, Any] = field(default_factory=dict)
     seconds: float = field(default=0.0, compare=False)
 
     def __post_init__(self) -> None:

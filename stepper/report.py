@@ -787,9 +787,9 @@ class _Model:
         if numeric:
             numeric_line = {
                 "word": {True: "passed", False: "FAILED", None: "not done"}[numeric["passed"]],
-                "deviations": ", ".join(f"{escape_text(q)} {escape_text(v)}" for q, v in numeric["deviations"].items()),
+                "deviations": ", ".join(f"{escape_text(q)} {escape_text(f'{v:.3g}')}" for q, v in numeric["deviations"].items()),
                 "points": len(numeric["points"]), "digits": numeric["digits"],
-                "tolerance": escape_text(numeric["tolerance"]), "link": self.link("numeric_verification")}
+                "tolerance": escape_text(f"{numeric['tolerance']:.3g}"), "link": self.link("numeric_verification")}
         matter_intro = ("The matter the metric requires, a perfect fluid at rest in the frame:" if fluid else
                         "The matter the metric requires, as measured in the orthonormal frame:")
         if not fluid and not r.get("frame_diagonal", True):

@@ -200,6 +200,7 @@ def trace_data(derivation: Derivation) -> dict:
         "arithmetic_description": derivation.arithmetic_description,
         "conventions": dict(derivation.conventions),
         "conventions_latex": dict(derivation.conventions_latex),
+        "convention_data": writer.value(dict(derivation.convention_data)),
         "steps": steps,
         "results": results,
     }
@@ -531,7 +532,8 @@ def load_trace(text: str | bytes, validate: bool = True) -> Derivation:
         arithmetic_description=_text(data.get("arithmetic_description", ""), "arithmetic_description"),
         conventions={k: _text(v, "conventions") for k, v in _mapping(data.get("conventions", {}), "conventions").items()},
         conventions_latex={k: _text(v, "conventions_latex")
-                           for k, v in _mapping(data.get("conventions_latex", {}), "conventions_latex").items()})
+                           for k, v in _mapping(data.get("conventions_latex", {}), "conventions_latex").items()},
+        convention_data=_mapping(reader.value(data.get("convention_data", {}), "convention_data"), "convention_data"))
 
 
 def read_trace_file(path: str | Path) -> Derivation:

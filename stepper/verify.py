@@ -36,12 +36,12 @@ SEED = 20261201
 class NumericCheck:
     """Largest relative deviation per quantity, and where it was measured."""
 
-    deviations: dict[str, str]
+    deviations: dict[str, float]
     points: list[dict[str, str]]
     parameters: dict[str, sympy.Rational]
     functions: dict[str, sympy.Expr]
     digits: int
-    tolerance: str
+    tolerance: float
     passed: bool
     note: str = ""
 
@@ -132,12 +132,12 @@ def numeric_check(coordinates: Sequence[sympy.Symbol], matrix: sympy.Matrix, par
     else:
         note = ""
     return NumericCheck(
-        deviations={q: mpmath.nstr(v, 3, min_fixed=0, max_fixed=0) for q, v in worst.items()},
+        deviations={q: float(mpmath.nstr(v, 3, min_fixed=0, max_fixed=0)) for q, v in worst.items()},
         points=used_points,
         parameters={p.name: v for p, v in parameter_values.items()},
         functions={f.func.__name__: body for f, body in concrete.items()},
         digits=digits,
-        tolerance=mpmath.nstr(TOLERANCE, 3),
+        tolerance=float(mpmath.nstr(TOLERANCE, 3)),
         passed=passed,
         note=note,
     )

@@ -810,3 +810,14 @@ def test_printed_expressions_read_back(expression: sympy.Expr) -> None:
     assume(not expression.has(sympy.I, sympy.zoo, sympy.nan, sympy.oo, -sympy.oo))
     printed = ExpressionWriter().inline(expression)
     assert same_value(parse(printed), expression), printed
+
+
+def test_a_sized_bracket_after_a_function_multiplies_unless_it_holds_its_arguments():
+    # The reports print a(t) (a'(t))^2 as "a \left(a'\right)^{2}" (found by the round-trip property above).
+    t = sympy.Symbol("t", real=True)
+    a = sympy.Function("a")(t)
+    words = Vocabulary({"t": t}, {"a": a}, {})
+    assert parse_latex(r"a \left(a'\right)^{2}", words, "claim") == a * a.diff(t) ** 2
+    assert parse_latex(r"a\left(t\right)", words, "claim") == a
+    with pytest.raises(InputError, match="declared with arguments"):
+        parse_latex("a(t^2)", words, "claim")

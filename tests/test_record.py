@@ -205,3 +205,43 @@ def test_no_template_reads_evidence_text():
     for template in sorted((ROOT / "templates").rglob("*.j2")):
         found = _TEMPLATE_READING.search(template.read_text(encoding="utf-8"))
         assert found is None, (template.name, found and found.group())
+
+
+def test_conventions_are_recorded_as_data():
+    # Conventions of stepper's chain (README, "Conventions"): R^a_bcd with the derivative on c, d; Ricci
+    # contracts the first index with the third; a round sphere has positive curvature.
+    data = json.loads(example_trace("round_sphere"))["convention_data"]
+    assert data["riemann"]["derivative_indices"] == [3, 4] and data["ricci"]["contracted_indices_of_riemann"] == [1, 3]
+    # rho^2 sin(theta)^2 vanishes at the poles, and theta is only declared positive: no signature is claimed
+    assert data["signature"] is None
+    assert "christoffel" in data["stored_orderings"]
+    # the upper half-plane with y > 0 and L > 0: L^2/y^2 > 0 twice (Riemannian, common practice)
+    assert example_derivation("hyperbolic_plane").convention_data["signature"] == "++"
+
+
+def test_signature_only_when_the_declared_signs_fix_it():
+    import sympy as sp
+    from stepper import Metric, derive
+    t, x, y, z = sp.symbols("t x y z", real=True)
+    flat = derive(Metric.from_matrix([t, x, y, z], sp.diag(-1, 1, 1, 1)), curvature_invariants=False)
+    assert flat.convention_data["signature"] == "-+++"  # Minkowski space (common practice)
+    # Schwarzschild without r > 2M declared: the sign of 1 - 2M/r is not fixed, so no signature is claimed
+    assert example_derivation("compact_star_exterior").convention_data["signature"] is None
+
+
+def test_the_notebook_chooses_a_steps_code_by_its_fields_not_its_id():
+    tree = ast.parse((ROOT / "stepper" / "notebook.py").read_text(encoding="utf-8"))
+    dispatch = [node for node in ast.walk(tree) if isinstance(node, ast.FunctionDef)
+                and node.name in ("for_step", "_printers")]
+    assert len(dispatch) == 2
+    for function in dispatch:
+        assert not [n for n in ast.walk(function) if isinstance(n, ast.Attribute) and n.attr == "id"], function.name
+
+
+@pytest.mark.parametrize("stem", ["compact_star_exterior", "wormhole_passage", "exterior_from_ansatz"])
+def test_every_step_has_a_notebook_printer(stem):
+    from stepper.notebook import _Cells, _Source
+    d = example_derivation(stem)
+    cells = _Cells(d, _Source(d))
+    missing = [s.id for s in d.steps if cells.for_step(s)[0] == "not_recomputed"]
+    assert missing == []
