@@ -182,6 +182,7 @@ def test_de_sitter_flat_slicing_is_maximally_symmetric():
 
 # --- rotating and higher-dimensional black holes -----------------------------------
 
+@pytest.mark.slow  # the rotating black hole: a large example
 def test_rotating_black_hole_is_ricci_flat():
     # The Kerr metric solves the vacuum equations.
     # Source: Kerr, Phys. Rev. Lett. 11, 237 (1963); Carroll, Spacetime and Geometry, sec. 6.6 (from memory).
