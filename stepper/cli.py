@@ -129,7 +129,7 @@ def summary(derivation: Derivation, out_dir: Path, written: Sequence[str]) -> st
         if len(evidence) > 110:
             evidence = evidence[:107] + "..."
         fluid = derivation.results.get("perfect_fluid") if key == "perfect_fluid" and verdict["holds"] else None
-        if fluid and "vacuum" not in evidence:
+        if fluid and not derivation.step("verdict/perfect_fluid").params.get("vacuum"):
             evidence += f"; density rho = {fluid['density']}, pressure p = {fluid['pressure']}"
         lines.append(f"  {VERDICTS[key].label}: {word} ({evidence})")
     lines += _matter_lines(derivation.results)

@@ -3,6 +3,9 @@
 Each module holds, between two marker lines, the helper functions stepper inlines into the setup cell of
 derivation.ipynb; :func:`inlined_source` returns that part.  The notebook stays self-contained plain sympy
 (it never imports stepper), and the helpers are importable and unit-tested here like any other code.
+
+The helpers call ``sp.sympify`` only to turn the values the notebook's cells bound (sympy expressions and
+Python integers, printed by stepper as code) into sympy objects; no text ever reaches it.
 """
 
 from __future__ import annotations
