@@ -983,7 +983,7 @@ pressures.update(recorded["pressures"])
         return "density_and_pressures", code
 
     def _frame_built(self) -> bool:
-        return any(s.id == "frame" and not isinstance(s.result, Verdict) for s in self.d.steps)
+        return any(s.kind == "frame" and not isinstance(s.result, Verdict) for s in self.d.steps)
 
     def perfect_fluid(self, step):
         holds = step.result.holds
@@ -1338,11 +1338,11 @@ def _setup_code(source: _Source, steps: Sequence[Step]) -> str:
               "coordinate = dict(zip(index_names, coordinates))",
               "dimension = len(coordinates)", "", "", ""]
     blocks = [_HELPERS]
-    if any(step.id == "field_equations" for step in steps):
+    if any(step.stage == "matter" for step in steps):
         blocks.append(_MATTER_HELPERS)
     if any(step.stage == "ansatz" for step in steps):
         blocks.append(_ANSATZ_HELPERS)
-    if any(step.id == "geodesic_equations" for step in steps):
+    if any(step.kind == "geodesic" for step in steps):
         blocks.append(_GEODESIC_HELPERS)
     return "\n".join(lines) + "\n\n\n".join(blocks)
 
@@ -1374,7 +1374,7 @@ def notebook_text(derivation: Derivation, templates: list[Path] | None = None) -
         text = step_template.render(step=step, number=number, topic=topic, verdict=verdict,
                                     dimension=metric.dimension)
         step_cells.append((step.id, text.strip("\n"), code, None))
-        if step.id == "geodesic_equations" and step.params.get("orbit"):
+        if step.kind == "geodesic" and step.params.get("orbit"):
             text = env.get_template("notebook/orbit.md.j2").render(step=step, number=number, orbit=step.params["orbit"],
                                                                    dimension=metric.dimension)
             step_cells.append((step.id, text.strip("\n"), writer.orbit(step), "orbit"))
@@ -1388,9 +1388,9 @@ def notebook_text(derivation: Derivation, templates: list[Path] | None = None) -
         "conventions": derivation.conventions,
         "arithmetic": derivation.arithmetic,
         "step_count": len(derivation.steps),
-        "matter": any(step.id == "field_equations" for step in derivation.steps),
+        "matter": any(step.stage == "matter" for step in derivation.steps),
         "ansatz": any(step.stage == "ansatz" for step in derivation.steps),
-        "orbit": any(step.id == "geodesic_equations" and step.params.get("orbit") for step in derivation.steps),
+        "orbit": any(step.kind == "geodesic" and step.params.get("orbit") for step in derivation.steps),
     }
     cells = []
 

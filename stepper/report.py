@@ -35,36 +35,37 @@ SECTION_TITLES = {
     "geodesics": "Geodesic equations",
 }
 
-#: Typeset annotations of the matter and ansatz steps (the trace keeps the plain-text ones).
+#: Typeset annotations of the matter and ansatz steps (the trace keeps the plain-text ones), keyed by the
+#: step's (kind, quantity, component).
 ANNOTATIONS = {
-    "stress_energy": r"The stress-energy tensor with both indices down, \(T_{ij}\).",
-    "stress_energy_mixed": (r"The stress-energy tensor with its first index raised, \(T^i{}_j = g^{ik} T_{kj}\) "
+    ("summary", "stress_energy", ""): r"The stress-energy tensor with both indices down, \(T_{ij}\).",
+    ("raising", "stress_energy_mixed", ""): (r"The stress-energy tensor with its first index raised, \(T^i{}_j = g^{ik} T_{kj}\) "
                             r"(components not listed vanish)."),
-    "stress_energy_up": (r"The stress-energy tensor with both indices raised, \(T^{ij} = g^{ik} g^{jl} T_{kl}\) "
+    ("raising", "stress_energy_up", ""): (r"The stress-energy tensor with both indices raised, \(T^{ij} = g^{ik} g^{jl} T_{kl}\) "
                          r"(components not listed vanish)."),
-    "verdict/trace_free": (r"Is the stress-energy tensor trace-free, \(T^i{}_i = 0\), as that of an electromagnetic "
+    ("verdict", "trace_free", ""): (r"Is the stress-energy tensor trace-free, \(T^i{}_i = 0\), as that of an electromagnetic "
                            r"field in four dimensions is?"),
-    "frame/check": (r"The frame is orthonormal: \(g(e_{(a)}, e_{(b)}) = \eta_{(a)(b)} = "
+    ("check", "", "frame"): (r"The frame is orthonormal: \(g(e_{(a)}, e_{(b)}) = \eta_{(a)(b)} = "
                     r"\operatorname{diag}(-1, 1, \dots, 1)\)."),
-    "frame_stress_energy": (r"The stress-energy tensor in the orthonormal frame, \(T_{(a)(b)}\) (components not "
+    ("frame components", "frame_stress_energy", ""): (r"The stress-energy tensor in the orthonormal frame, \(T_{(a)(b)}\) (components not "
                             r"listed vanish)."),
-    "frame_ricci": r"The Ricci tensor in the orthonormal frame, \(R_{(a)(b)}\) (components not listed vanish).",
-    "frame_riemann": (r"The Riemann tensor in the orthonormal frame, \(R_{(a)(b)(c)(d)}\), for \(a < b\), \(c < d\) "
+    ("frame components", "frame_ricci", ""): r"The Ricci tensor in the orthonormal frame, \(R_{(a)(b)}\) (components not listed vanish).",
+    ("frame components", "frame_riemann", ""): (r"The Riemann tensor in the orthonormal frame, \(R_{(a)(b)(c)(d)}\), for \(a < b\), \(c < d\) "
                       r"and \((a, b) \le (c, d)\) in frame order; the others follow from the symmetries of "
                       r"\(R_{abcd}\) (components not listed vanish)."),
-    "verdict/perfect_fluid": (r"Is the matter a perfect fluid at rest in the frame, "
+    ("verdict", "perfect_fluid", ""): (r"Is the matter a perfect fluid at rest in the frame, "
                               r"\(T_{ij} = (\rho + p)\,u_i u_j + p\,g_{ij}\) with \(u = e_{(0)}\), the 4-velocity of "
                               r"the frame's observers?"),
-    "ansatz/check": (r"Put the solution into every component \(E_{ij} = G_{ij} + \Lambda g_{ij}\), including the "
+    ("check", "ansatz_solution", ""): (r"Put the solution into every component \(E_{ij} = G_{ij} + \Lambda g_{ij}\), including the "
                      r"duplicates and those that follow by the Bianchi identity."),
 }
 
-#: Typeset statements of the new verdicts.
+#: Typeset statements of the new verdicts, keyed like ANNOTATIONS.
 STATEMENTS = {
-    "verdict/trace_free": r"Trace-free stress-energy, \(T^i{}_i = 0\)",
-    "verdict/perfect_fluid": r"Perfect fluid at rest in the frame",
-    "frame/check": r"\(g(e_{(a)}, e_{(b)}) = \eta_{(a)(b)}\)",
-    "ansatz/check": r"The solution satisfies every field equation \(E_{ij} = 0\)",
+    ("verdict", "trace_free", ""): r"Trace-free stress-energy, \(T^i{}_i = 0\)",
+    ("verdict", "perfect_fluid", ""): r"Perfect fluid at rest in the frame",
+    ("check", "", "frame"): r"\(g(e_{(a)}, e_{(b)}) = \eta_{(a)(b)}\)",
+    ("check", "ansatz_solution", ""): r"The solution satisfies every field equation \(E_{ij} = 0\)",
 }
 
 #: Width (in characters of LaTeX) of an expression shown in a table cell before it is broken.
@@ -80,6 +81,11 @@ def breakable_text(text: str) -> str:
     def soften(match: re.Match) -> str:
         return re.sub(r"([*+,(=/])", r"\1\\allowbreak{}", match.group())
     return _LONG_WORD.sub(soften, escaped)
+
+
+def fields(step: Step) -> tuple[str, str, str]:
+    """What a step is: its (kind, quantity, component)."""
+    return step.kind.value, step.quantity, step.component
 
 
 def _id_text(step_id: str) -> str:
@@ -184,7 +190,7 @@ class _Model:
     def equations_for(self, step: Step) -> list[dict]:
         result = step.result
         if isinstance(result, Verdict) or result is None:
-            if step.id == "verdict/trace_free" and "trace" in step.params:
+            if fields(step) == ("verdict", "trace_free", "") and "trace" in step.params:
                 return [self.eq(r"T^i{}_i", step.params["trace"])]
             return []
         if step.kind == "component":
@@ -196,22 +202,22 @@ class _Model:
                     (rf"\frac{{\partial_{{{name}}} g}}{{2g}}", result["from_determinant"])]
             return [self.eq(lhs, value) for lhs, value in rows]
         special = {
-            "field_equations": self.field_equations_lines,
-            "frame": self.frame_lines,
-            "density_and_pressures": self.density_lines,
-            "ansatz/equations": self.ansatz_equation_lines,
-            "ansatz/solution": self.ansatz_solution_lines,
-            "geodesic_equations": self.geodesic_lines,
+            ("field equations", "", ""): self.field_equations_lines,
+            ("frame", "", ""): self.frame_lines,
+            ("matter", "", ""): self.density_lines,
+            ("ansatz", "field_equation", "equations"): self.ansatz_equation_lines,
+            ("ansatz", "ansatz_solution", ""): self.ansatz_solution_lines,
+            ("geodesic", "", ""): self.geodesic_lines,
         }
-        if step.id in special:
-            return special[step.id](result)
+        if fields(step) in special:
+            return special[fields(step)](result)
         if step.kind == "ode solution":
             return self.ode_lines(step)
         if isinstance(result, dict):
-            if step.id not in QUANTITIES:
+            if step.quantity not in QUANTITIES or step.component:  # only a whole table of components
                 return []
-            return [{"tex": tex, "long": long} for tex, long in mapping_lines(result, step.id, self.writer)]
-        lhs = {"determinant": "g", "scalar": "R", "kretschmann": "K"}.get(step.id, escape_text(step.id))
+            return [{"tex": tex, "long": long} for tex, long in mapping_lines(result, step.quantity, self.writer)]
+        lhs = QUANTITIES[step.quantity].symbol if step.quantity in QUANTITIES else escape_text(step.id)
         return [self.eq(lhs, result)]
 
     def field_equations_lines(self, result: dict) -> list[dict]:
@@ -266,7 +272,7 @@ class _Model:
     def velocity_name(self, coordinate: str) -> str:
         """The name the geodesic step recorded for d(coordinate)/dtau: u_r, or uu_r on a clash."""
         for step in self.d.steps:
-            if step.id == "geodesic_equations":
+            if step.kind == "geodesic":
                 return str(step.params.get("velocity_symbols", {}).get(coordinate, f"u_{coordinate}"))
         return f"u_{coordinate}"
 
@@ -297,27 +303,26 @@ class _Model:
         r, p = step.result, step.params
         if step.kind == "summary" and isinstance(r, dict) and not r:
             notes.append("Every component vanishes.")
-        elif step.id in QUANTITIES and step.id.startswith(("frame_", "stress_energy_")) and isinstance(r, dict) \
-                and not r:
+        elif step.kind in ("frame components", "raising") and isinstance(r, dict) and not r:
             notes.append("Every component vanishes.")
-        if step.id == "field_equations":
+        if step.kind == "field equations":
             units = p.get("units", "")
             notes.append("Geometric units, \\(G = c = 1\\)." if units == "geometric" else
                          "Physical units: \\(G\\) and \\(c\\) are kept as symbols." if units == "physical" else "")
-        if step.id == "verdict/perfect_fluid" and isinstance(r, Verdict) and r.holds and "fluid" in p:
+        if fields(step) == ("verdict", "perfect_fluid", "") and isinstance(r, Verdict) and r.holds and "fluid" in p:
             notes.append(self.perfect_fluid_sentence(p["fluid"]))
-        if step.id == "ansatz/equations":
+        if fields(step) == ("ansatz", "field_equation", "equations"):
             notes += self.ansatz_equation_notes(p)
-        if step.id == "ansatz/dependence" and isinstance(r, dict):
+        if fields(step) == ("ansatz", "field_equation", "dependence") and isinstance(r, dict):
             notes += self.dependence_notes(r, p)
         if step.kind == "ode solution":
             branches = p.get("other_branches", [])
             if branches:
                 shown = ", ".join(rf"\({self.writer.inline(r['unknown'])} = {self.value_tex(b)}\)" for b in branches)
                 notes.append(f"Other branches of the solution, not followed: {shown}.")
-        if step.id == "ansatz/solution" and isinstance(r, dict):
+        if fields(step) == ("ansatz", "ansatz_solution", "") and isinstance(r, dict):
             notes += self.solution_notes(p)
-        if step.id == "geodesic_equations" and "orbit" in p:
+        if step.kind == "geodesic" and "orbit" in p:
             notes.append(self.orbit_sentence(p["orbit"]))
         return [n for n in notes if n]
 
@@ -403,14 +408,14 @@ class _Model:
         r = step.result
         if step.kind == "energy condition":
             return self.condition_statement(step.component) + "."
-        if step.id == "density_and_pressures" and isinstance(r, dict):
+        if step.kind == "matter" and isinstance(r, dict):
             if r.get("diagonal"):
                 return (r"The stress-energy tensor is diagonal in the frame, so \(\rho\) and the \(p_{(k)}\) are the "
                         r"energy density and the principal pressures measured by the frame's observers.")
             return (r"The stress-energy tensor is not diagonal in the frame: its diagonal entries are listed, but they "
                     r"are not the principal pressures (stepper does not diagonalise \(T\)), and the energy conditions "
                     r"are not decided from them.")
-        if step.id == "frame" and isinstance(r, dict):
+        if step.kind == "frame" and isinstance(r, dict):
             time = self.sym(step.params.get("time", ""))
             diagonal = all(len(v) == 1 for v in r.get("vectors", {}).values())
             how = ("the metric is diagonal, so each frame vector is a coordinate direction divided by its length"
@@ -419,31 +424,31 @@ class _Model:
                     rf"({how}). The frame vector \(e_{{(x)}}\) starts from the coordinate direction \(\partial_x\); "
                     r"\(N_{(x)}\) is the squared norm of the vector before it is normalised, and the frame exists "
                     r"where every \(N_{(x)} > 0\).")
-        if step.id in ANNOTATIONS and not (step.id == "stress_energy" and not isinstance(r, dict)):
-            return ANNOTATIONS[step.id]
-        if step.id == "field_equations" and isinstance(r, dict):
+        if fields(step) in ANNOTATIONS and not (fields(step) == ("summary", "stress_energy", "") and not isinstance(r, dict)):
+            return ANNOTATIONS[fields(step)]
+        if step.kind == "field equations" and isinstance(r, dict):
             return (r"Einstein's field equations with the cosmological constant "
                     rf"\(\Lambda = {self.writer.inline(r['cosmological_constant'])}\), solved for the stress-energy "
                     r"tensor \(T_{ij}\) that the metric requires.")
-        if step.id == "ansatz/equations" and isinstance(r, dict):
+        if fields(step) == ("ansatz", "field_equation", "equations") and isinstance(r, dict):
             unknowns = ", ".join(rf"\({self.function_tex(f)}\)" for f in step.params.get("unknowns", []))
             return (rf"The field equations \(E_{{ij}} = G_{{ij}} + \Lambda g_{{ij}} = 0\) for the unknowns {unknowns}: "
                     r"each listed equation is a component's numerator with the factors that cannot vanish removed; "
                     r"duplicates (a multiple of another component by a factor free of the unknowns) and components "
                     r"that vanish identically are named below.")
-        if step.id == "ansatz/dependence":
+        if fields(step) == ("ansatz", "field_equation", "dependence"):
             return ("Which equations follow from the others by the contracted Bianchi identity, which holds for "
                     "every metric and ties the components \\(E_{ij}\\) and their derivatives together.")
         if step.kind == "ode solution" and isinstance(r, dict):
             key = step.params.get("component", "")
             return (rf"Solve \({self.E(key)} = 0\) (with the earlier solutions put in) for "
                     rf"\({self.function_tex(r['unknown'])}\) with sympy's \texttt{{dsolve}}.")
-        if step.id == "ansatz/solution" and isinstance(r, dict):
+        if fields(step) == ("ansatz", "ansatz_solution", "") and isinstance(r, dict):
             return "The metric with the solution put in."
-        if step.kind == "raising" and step.id in QUANTITIES and step.id not in ANNOTATIONS:
-            q = QUANTITIES[step.id]
+        if step.kind == "raising" and step.quantity in QUANTITIES and fields(step) not in ANNOTATIONS:
+            q = QUANTITIES[step.quantity]
             return rf"The {escape_text(q.words)}, \({q.formula}\) (components not listed vanish)."
-        if step.id == "geodesic_equations":
+        if step.kind == "geodesic":
             return (r"Geodesic equations as a first-order system in \(x^a\) and \(u^a = dx^a/d\tau\): the "
                     r"accelerations \(du^a/d\tau = -\Gamma^a_{bc}\,u^b u^c\), summed over all \(b\) and \(c\), so "
                     r"that each cross term \(b \ne c\) appears twice.")
@@ -573,7 +578,7 @@ class _Model:
     def verdict_statement(self, step: Step) -> str:
         if step.kind == "energy condition":
             return self.condition_statement(step.component)
-        return STATEMENTS.get(step.id) or escape_text(step.result.statement)
+        return STATEMENTS.get(fields(step)) or escape_text(step.result.statement)
 
     def verdict_evidence(self, step: Step) -> str:
         """A verdict's evidence as LaTeX text."""
@@ -592,21 +597,21 @@ class _Model:
     def evidence_tex(self, step: Step) -> str:
         """A verdict's evidence as LaTeX text, typeset from the step's fields where it has them."""
         verdict, p = step.result, step.params
-        if step.id == "verdict/perfect_fluid" and "residue" in p:
+        if fields(step) == ("verdict", "perfect_fluid", "") and "residue" in p:
             residue = self.residue_tex(p["residue"])
             if verdict.holds is False:
                 return residue + " is not zero; a fluid moving relative to these observers is not tested"
             return residue + ": " + breakable_text(p.get("zero_test", ""))
-        if step.id == "verdict/perfect_fluid" and verdict.holds and not p.get("vacuum"):
+        if fields(step) == ("verdict", "perfect_fluid", "") and verdict.holds and not p.get("vacuum"):
             return f"each of the {p['checked']} conditions checked vanishes exactly"
-        if step.id == "verdict/trace_free" and "trace" in p:
+        if fields(step) == ("verdict", "trace_free", "") and "trace" in p:
             if verdict.holds is False:
                 return rf"the trace \(T^i{{}}_i = {self.value_tex(p['trace'])}\) is not zero"
             if verdict.holds:
                 return rf"the trace \(T^i{{}}_i\) vanishes ({breakable_text(p.get('zero_test', ''))})"
             return (rf"the trace \(T^i{{}}_i = {self.value_tex(p['trace'])}\) is not proven zero: "
                     + breakable_text(p.get("zero_test", "")))
-        if step.id == "frame/check" and p.get("residues") == "unnormalised frame":
+        if fields(step) == ("check", "", "frame") and p.get("residues") == "unnormalised frame":
             return (r"\(g(w_{(a)}, w_{(b)}) - \eta_{(a)(b)} N_{(a)}\) for the unnormalised vectors: "
                     + self.check_outcome_tex(verdict.holds, p["count"]))
         return breakable_text(verdict.evidence)

@@ -20,6 +20,7 @@ from pathlib import Path
 import pytest
 import sympy as sp
 
+from conftest import example_derivation
 from stepper import derive
 from stepper.metricfile import metric_from_data, read_toml
 
@@ -62,9 +63,8 @@ def constants(d) -> list[sp.Symbol]:
 
 # ------------------------------------------------------------------ Schwarzschild
 
-@functools.lru_cache(maxsize=None)
 def schwarzschild_ansatz():
-    return derive(metric_from_data(read_toml(EXAMPLES / "exterior_from_ansatz.toml")))
+    return example_derivation("exterior_from_ansatz")
 
 
 @functools.lru_cache(maxsize=None)

@@ -278,6 +278,7 @@ def test_example_homework_file_has_right_and_wrong_claims_of_the_new_kinds():
     assert data["results"]["audit"]["earliest_wrong"] == earliest and earliest
 
 
+@pytest.mark.slow  # builds the whole report
 @pytest.mark.skipif(not HAVE_TEX, reason="pdflatex is not installed")
 def test_audit_section_typesets_the_new_quantities():
     import re

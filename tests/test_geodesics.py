@@ -198,6 +198,7 @@ def taub_nut(m, n):
     return metric
 
 
+@pytest.mark.slow  # finite differences at 30 digits
 @pytest.mark.parametrize("point", [("1", "0.5", "4", "0.7"), ("2", "1.3", "7.5", "2.2")])
 def test_cross_terms_against_numeric_christoffel_symbols(point):
     # du^a/dtau = -Gamma^a_bc u^b u^c summed over all b, c (Carroll sec. 3.4, from memory; common practice),

@@ -749,6 +749,7 @@ LATEX_PIECES = [
         st.text(st.characters(codec="utf-8", exclude_categories=["Cs"]), max_size=30),
     )
 )
+@pytest.mark.slow  # a property test over hundreds of generated texts
 def test_any_text_parses_or_raises_input_error(
     text: str, tmp_path: Path, monkeypatch: pytest.MonkeyPatch
 ) -> None:
@@ -804,6 +805,7 @@ def same_value(left: sympy.Expr, right: sympy.Expr) -> bool:
     return sympy.expand(difference) == 0 or sympy.simplify(difference) == 0
 
 
+@pytest.mark.slow  # a property test over hundreds of generated texts
 @settings(max_examples=250, deadline=None)
 @given(expressions())
 def test_printed_expressions_read_back(expression: sympy.Expr) -> None:

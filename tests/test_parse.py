@@ -424,6 +424,7 @@ def test_nesting_limit_for_powers() -> None:
     ],
     ids=["sin-5000", "open-50000", "cos-199", "sin-sum-199", "minus-20000"],
 )
+@pytest.mark.slow  # deeply nested texts, slow by design
 def test_deep_texts_never_raise_recursion_error(text: str) -> None:
     try:
         value = parse(text)

@@ -192,6 +192,7 @@ def test_rotating_black_hole_is_ricci_flat():
     assert d.results["scalar"] == 0
 
 
+@pytest.mark.slow  # the rotating black hole: a large example
 def test_rotating_black_hole_kretschmann():
     # K = 48 M^2 (r^6 - 15 r^4 a^2 c^2 + 15 r^2 a^4 c^4 - a^6 c^6) / Sigma^6, c = cos(theta).
     # Source: Henry, Astrophys. J. 535, 350 (2000), with Q = 0 (from memory).
@@ -213,6 +214,7 @@ def test_five_dimensional_black_hole_kretschmann():
     assert exactly_equal(d.results["kretschmann"], 72 * s["mu"] ** 2 / s["r"] ** 8)
 
 
+@pytest.mark.slow  # the twisted vacuum: a large example
 def test_twisted_vacuum_is_ricci_flat():
     # The Taub-NUT metric, written with the cross term from (dt + 2 n cos(theta) dphi)^2, is a vacuum solution.
     # Source: Griffiths and Podolsky, Exact Space-Times, sec. 12.1 (from memory).
@@ -253,6 +255,7 @@ def test_three_sphere_has_constant_curvature():
     assert d.results["verdicts"]["conformally_flat"]["holds"] is None
 
 
+@pytest.mark.slow  # every example, the large ones included
 def test_every_example_satisfies_the_contracted_bianchi_identity_and_trace_identity():
     # nabla^i G_ij = 0 identically; Gamma^l_li = d_i ln sqrt|g|.
     # Source: Carroll, Spacetime and Geometry, sec. 3.7 and eq. (3.33) (from memory); common practice.

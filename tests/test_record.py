@@ -47,12 +47,14 @@ def test_every_example_trace_validates_and_loads_back_to_the_same_bytes(stem):
     assert loaded.metric.coordinates == original.metric.coordinates  # same names and assumptions
 
 
-def test_loaded_values_are_the_recorded_sympy_objects():
-    original = example_derivation("spinning_black_hole")
-    loaded = load_trace(example_trace("spinning_black_hole"))
+@pytest.mark.parametrize("stem", ["exterior_from_ansatz", "spinning_black_hole"])
+def test_loaded_values_are_the_recorded_sympy_objects(stem):
+    original = example_derivation(stem)
+    loaded = load_trace(example_trace(stem))
     for quantity in ("christoffel", "riemann", "ricci", "inverse_metric"):
         assert dict(loaded.results[quantity]) == dict(original.results[quantity]), quantity
     assert loaded.results["kretschmann"] == original.results["kretschmann"]
+    assert loaded.metric.functions == original.metric.functions
     for before, after in zip(original.steps, loaded.steps):
         assert before.result == after.result or isinstance(before.result, (dict, tuple)), before.id
 
@@ -246,3 +248,16 @@ def test_every_step_has_a_notebook_printer(stem):
     cells = _Cells(d, _Source(d))
     missing = [s.id for s in d.steps if cells.for_step(s)[0] == "not_recomputed"]
     assert missing == []
+
+
+@pytest.mark.parametrize("module", ["report.py", "notebook.py", "latex.py", "exporters.py"])
+def test_exporters_decide_nothing_from_a_steps_id(module):
+    """A step's id is for links and anchors; what to print is chosen from its kind, quantity and component."""
+    tree = ast.parse((ROOT / "stepper" / module).read_text(encoding="utf-8"))
+
+    def is_id(node):
+        return isinstance(node, ast.Attribute) and node.attr == "id"
+    found = [node.lineno for node in ast.walk(tree)
+             if (isinstance(node, ast.Compare) and (is_id(node.left) or any(is_id(c) for c in node.comparators)))
+             or (isinstance(node, ast.Call) and isinstance(node.func, ast.Attribute) and is_id(node.func.value))]
+    assert found == [], f"{module}: decisions from step ids on lines {found}"
