@@ -7,6 +7,7 @@ nothing is written unless the whole derivation succeeded.
 from __future__ import annotations
 
 import argparse
+import math
 import os
 import sys
 import time
@@ -213,7 +214,7 @@ def _derive_and_export(args: argparse.Namespace, metric, out_dir: Path, title: s
     formats, templates = _output_options(args, out_dir)
     if args.jobs is not None and args.jobs < 1:
         raise InputError("--jobs must be at least 1")
-    if args.time_limit is not None and args.time_limit <= 0:
+    if args.time_limit is not None and not (math.isfinite(args.time_limit) and args.time_limit > 0):
         raise InputError("--time-limit must be a positive number of seconds")
     jobs = args.jobs if args.jobs is not None else default_jobs()
     try:

@@ -87,7 +87,7 @@ _NOTEBOOK_NAMES = _runtime_names() | frozenset("""
 #: The only sympy names a printed expression may contain: the elementary functions a metric file may
 #: use (see stepper.parse), their sympy spellings, and what the printer writes for numbers and derivatives.
 _PRINTABLE_SYMPY_NAMES = frozenset("""
-    sin cos tan cot sec csc sinh cosh tanh coth exp log sqrt Abs pi E I
+    sin cos tan cot sec csc sinh cosh tanh coth exp log sqrt Abs pi E I sign DiracDelta Heaviside
     Derivative Rational Integer Function Symbol S
 """.split())
 

@@ -63,6 +63,24 @@ def _concrete_functions(functions: Sequence[sympy.Expr], rng: random.Random) -> 
     return out
 
 
+def _dirac_delta(x, *order):
+    """DiracDelta (and its derivatives) away from its support: zero; at the support the point is not used."""
+    if x == 0:
+        raise ValueError("a point on the support of a delta distribution")
+    return mpmath.mpf(0)
+
+
+def _heaviside(x, *at_zero):
+    if x == 0:
+        raise ValueError("a point where a step function jumps")
+    return mpmath.mpf(1) if x > 0 else mpmath.mpf(0)
+
+
+#: The distributions that derivatives of |x| and sign(x) bring into symbolic results, evaluated at the random
+#: points (where their argument is not zero); everything else is mpmath's.
+MODULES = [{"DiracDelta": _dirac_delta, "Heaviside": _heaviside}, "mpmath"]
+
+
 def _substitute(expr: sympy.Expr, functions: Mapping, values: Mapping) -> sympy.Expr:
     if functions:
         expr = expr.subs(functions).doit()
@@ -79,7 +97,7 @@ def numeric_check(coordinates: Sequence[sympy.Symbol], matrix: sympy.Matrix, par
     concrete = _concrete_functions(functions, rng)
     parameter_values = {p: _sample(p, rng) for p in parameters}
     g = sympy.Matrix(matrix).subs(concrete).doit().subs(parameter_values)
-    metric_function = sympy.lambdify([coordinates], g, modules="mpmath")
+    metric_function = sympy.lambdify([coordinates], g, modules=MODULES)
 
     def metric(x):
         return mpmath.matrix(metric_function(list(x)))
@@ -91,9 +109,9 @@ def numeric_check(coordinates: Sequence[sympy.Symbol], matrix: sympy.Matrix, par
         keys = list(comps)
         exprs = [_substitute(comps[k], concrete, parameter_values) for k in keys]
         index_keys = [tuple(names.index(part) for part in k.split(",")) for k in keys]
-        prepared[quantity] = (index_keys, sympy.lambdify([coordinates], exprs, modules="mpmath") if exprs else None)
+        prepared[quantity] = (index_keys, sympy.lambdify([coordinates], exprs, modules=MODULES) if exprs else None)
     scalar_function = sympy.lambdify([coordinates], _substitute(results["scalar"], concrete, parameter_values),
-                                     modules="mpmath")
+                                     modules=MODULES)
 
     worst = {q: mpmath.mpf(0) for q in list(quantities) + ["scalar"]}
     used_points = []

@@ -233,6 +233,14 @@ def test_output_folder_below_a_file_is_a_one_line_error(tmp_path):
     assert leftovers(tmp_path) == []
 
 
+@pytest.mark.parametrize("limit", ["nan", "inf", "-1", "0"])
+def test_time_limit_must_be_a_finite_positive_number(tmp_path, limit):
+    (tmp_path / "good.toml").write_text(GOOD_SMALL, encoding="utf-8")
+    proc = run_stepper(["derive", "good.toml", "-o", "result", "--time-limit", limit], tmp_path)
+    assert_one_line_error(proc, "--time-limit must be a positive number")
+    assert leftovers(tmp_path) == []
+
+
 def test_unknown_command_line_option_is_one_line(tmp_path):
     proc = run_stepper(["derive", "x.toml", "--no-such-option"], tmp_path)
     assert_one_line_error(proc, "--no-such-option")

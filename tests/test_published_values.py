@@ -292,3 +292,19 @@ def test_charged_rotating_black_hole_kretschmann():
         + Q**4 * (7 * r**4 - 34 * a**2 * r**2 * c**2 + 7 * a**4 * c**4))
     assert d.results["scalar"] == 0
     assert exactly_equal(d.results["kretschmann"], published)
+
+
+def test_absolute_value_in_a_metric_is_derived_and_verified():
+    # -|x| dt^2 + dx^2 + dy^2 is, on each side of x = 0, a static metric -N^2 dt^2 + dx^2 with N = sqrt|x|,
+    # whose scalar curvature is R = -2 N''/N = 1/(2 x^2) (common practice). Derivatives of |x| bring sign(x)
+    # and DiracDelta(x); the numeric verification evaluates them away from x = 0.
+    import sympy as sp
+    from stepper import Metric
+    from stepper.notebook import notebook_text
+    t, x, y = sp.symbols("t x y", real=True)
+    d = derive(Metric.from_matrix([t, x, y], sp.diag(-sp.Abs(x), 1, 1)))
+    R = d.results["scalar"]
+    for value in (sp.Rational(3, 2), -sp.Rational(2, 5), 7):
+        assert sp.simplify(R.subs(x, value) - 1 / (2 * value**2)) == 0
+    assert d.results["numeric_verification"]["passed"] is True
+    assert "sign(" in notebook_text(d)
