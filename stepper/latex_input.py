@@ -773,21 +773,14 @@ class _Reader(GuardedReader[_Token]):
             return False
         saved = (self.index, self.depth, self.bare_digit)
         try:
-            opening = self.advance()
-            self.enter(opening)
-            arguments = [self.expression()]
-            while self.at(","):
-                self.advance()
-                arguments.append(self.expression())
-            self.close(opening)
-            return tuple(arguments) != tuple(declared.args)
+            return tuple(self.bracket_arguments()) != tuple(declared.args)
         except InputError:
             return False
         finally:
             self.index, self.depth, self.bare_digit = saved
 
-    def call(self, declared: sympy.Expr, name: str, token: _Token) -> None:
-        """Read ``( arguments )`` after a declared function and check them."""
+    def bracket_arguments(self) -> list[sympy.Expr]:
+        """Read ``( expression, ... )``."""
         opening = self.advance()
         self.enter(opening)
         arguments = [self.expression()]
@@ -796,7 +789,11 @@ class _Reader(GuardedReader[_Token]):
             arguments.append(self.expression())
         self.close(opening)
         self.depth -= 1
-        self.check_call(name, declared, arguments, token, " (write \\cdot for a product)")
+        return arguments
+
+    def call(self, declared: sympy.Expr, name: str, token: _Token) -> None:
+        """Read ``( arguments )`` after a declared function and check them."""
+        self.check_call(name, declared, self.bracket_arguments(), token, " (write \\cdot for a product)")
 
     # -- names
 
