@@ -326,11 +326,12 @@ class _Cells:
         self.d = derivation
         self.s = source
         self.n = derivation.metric.dimension
+        self.printers = self._printers()
 
     def for_step(self, step: Step) -> tuple[str, str]:
         """(topic, code) for ``step``, chosen by its kind, quantity and component (never by its id); the topic
         names the template macro that explains it."""
-        printers = self._printers()
+        printers = self.printers
         kind = step.kind.value
         method = (printers.get((kind, step.quantity, step.component)) or printers.get((kind, step.quantity, "*"))
                   or printers.get((kind, "*", "*")))
