@@ -27,7 +27,7 @@ from typing import Callable, Iterable, Sequence
 import sympy
 
 from .algebra import choose_arithmetic, printer_stable
-from .errors import InputError
+from .errors import InputError, TimeLimitReached
 from .metric import LINE_ELEMENT_CONVENTION, Metric
 from .quantities import QUANTITIES, formula
 from .record import Derivation, Simplification, Step, Verdict
@@ -213,7 +213,7 @@ class _Chain:
         out = []
         context = multiprocessing.get_context("fork")
         try:
-            with context.Pool(self.jobs) as pool:
+            with context.Pool(self.jobs, initializer=_quiet_worker) as pool:
                 for packed in pool.imap(_compute_chunk, chunks):
                     for data, display in packed:
                         element = self.A.unpack(data)
@@ -240,8 +240,9 @@ class _Chain:
             stages.append(self.ansatz)
         stages.append(self.geodesics)
         for number, stage in enumerate(stages):
-            self.check_time(f"{stage.__name__} (stage {number + 1} of {len(stages)})")
-            self.progress(stage.__name__, number, len(stages))
+            label = f"{stage.__name__.replace('_', ' ')} (stage {number + 1} of {len(stages)})"
+            self.check_time(label)
+            self.progress(label, number, len(stages))
             stage()
         self.progress("done", len(stages), len(stages))
         conventions, conventions_latex = dict(CONVENTIONS), dict(CONVENTIONS_LATEX)
@@ -948,6 +949,30 @@ def _numeric_evidence(check) -> str:
     return text + (f"; {check.note}" if check.note else "")
 
 
+def _quiet_worker() -> None:
+    """In a forked worker: die with the parent and quietly.
+
+    The parent stops its pool with SIGTERM (which here takes the default,
+    silent action instead of the parent's cleanup handler); Ctrl-C and the
+    parent's alarm are the parent's business; and Linux sends SIGTERM to the
+    worker when the parent dies, so no orphan goes on computing or writes a
+    traceback into a closed pipe.
+    """
+    import signal
+    signal.signal(signal.SIGTERM, signal.SIG_DFL)
+    signal.signal(signal.SIGHUP, signal.SIG_DFL)
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    signal.signal(signal.SIGALRM, signal.SIG_IGN)
+    try:
+        import ctypes
+        ctypes.CDLL(None, use_errno=True).prctl(1, signal.SIGTERM)  # PR_SET_PDEATHSIG
+    except (AttributeError, OSError):
+        pass
+    parent = multiprocessing.parent_process()
+    if parent is not None and os.getppid() != parent.pid:  # the parent died before the line above took effect
+        os._exit(0)
+
+
 def _compute_chunk(job: tuple[str, list[tuple]]) -> list:
     """In a forked worker: compute a share of the components and pack them."""
     method, items = job
@@ -957,10 +982,6 @@ def _compute_chunk(job: tuple[str, list[tuple]]) -> list:
         element = getattr(chain, method)(*item)
         out.append((chain.A.pack(element), chain.A.to_expr(element)))
     return out
-
-
-class TimeLimitReached(Exception):
-    """The run passed its time limit; ``args[0]`` says where it was."""
 
 
 def metric_signature(matrix: sympy.Matrix) -> str | None:

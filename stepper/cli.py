@@ -1,7 +1,10 @@
 """Command line: ``stepper derive FILE``, ``stepper audit CLAIMS``, ``stepper render TRACE``.
 
-Bad input prints one line, ``stepper: error: ...``, and exits with status 2;
-nothing is written unless the whole derivation succeeded.
+Bad input prints one line, ``stepper: error: ...``, and exits with status 2.
+A run's outputs replace the previous set in its folder all at once
+(:mod:`stepper.outputs`); whatever stops a run before that (bad input, the
+time limit, a signal, a full disk, a TeX failure) leaves the previous set as
+it was.
 """
 
 from __future__ import annotations
@@ -9,18 +12,20 @@ from __future__ import annotations
 import argparse
 import math
 import os
+import signal
 import sys
 import time
+from contextlib import contextmanager
 from pathlib import Path
-from typing import Sequence
+from typing import Iterator, Sequence
 
 from .version import __version__
-from .chain import TimeLimitReached, default_jobs, derive
+from .chain import default_jobs, derive
 from .quantities import VERDICTS
 from .record import CONDITION_WORDS, HOLDS_WORDS, Derivation
-from .errors import InputError
+from .errors import InputError, Stopped, TimeLimitReached
 from .metricfile import load_metric
-from .trace import write_atomically
+from .outputs import SwapState, check_output_folder, replace_output_set
 
 
 #: Exit status of a bug in stepper (distinct from 1, a disagreement, and 2, bad input).
@@ -80,7 +85,8 @@ def _add_output_options(run: argparse.ArgumentParser) -> None:
                      help="processes for the largest stages (default: the cores of this machine; "
                           "the results are the same for every N)")
     run.add_argument("--time-limit", type=float, metavar="SECONDS",
-                     help="stop cleanly, writing nothing, when the derivation takes longer than this")
+                     help="stop cleanly, keeping the previous outputs, when the run (reading, deriving and "
+                          "writing the reports) takes longer than this")
     run.add_argument("--templates", metavar="DIR",
                      help="folder of templates that override the project's templates/ (same file names)")
 
@@ -93,13 +99,15 @@ class _Progress:
         self.quiet = quiet
         self.start = time.perf_counter()
         self.live = sys.stderr.isatty()
-        self.last = ""
+        self.last = "reading the input"
         self.printed_at = 0.0
 
     def __call__(self, label: str, done: int, total: int) -> None:
-        if self.quiet or label == self.last:
+        if label == self.last:
             return
         self.last = label
+        if self.quiet:
+            return
         elapsed = time.perf_counter() - self.start
         if self.live:
             sys.stderr.write(f"\r\033[K[{elapsed:6.1f}s] {label}")
@@ -177,16 +185,20 @@ def _matter_lines(results: dict) -> list[str]:
 
 
 def run_derive(args: argparse.Namespace) -> int:
+    out_dir = Path(args.output) if args.output else _default_folder(args.file)
+    formats, templates = _output_options(args, out_dir)
+    args.folder = out_dir
     metric = load_metric(args.file)
-    out_dir = Path(args.output) if args.output else Path("out") / Path(args.file).stem
-    return _derive_and_export(args, metric, out_dir)
+    return _derive_and_export(args, metric, out_dir, formats, templates)
 
 
 def run_audit(args: argparse.Namespace) -> int:
     from .claims import load_claims
+    out_dir = Path(args.output) if args.output else _default_folder(args.file)
+    formats, templates = _output_options(args, out_dir)
+    args.folder = out_dir
     metric, title, claims = load_claims(args.file)
-    out_dir = Path(args.output) if args.output else Path("out") / Path(args.file).stem
-    return _derive_and_export(args, metric, out_dir, title=title, claims=claims)
+    return _derive_and_export(args, metric, out_dir, formats, templates, title=title, claims=claims)
 
 
 def run_render(args: argparse.Namespace) -> int:
@@ -195,38 +207,43 @@ def run_render(args: argparse.Namespace) -> int:
     trace_path = Path(args.file)
     out_dir = Path(args.output) if args.output else trace_path.parent
     formats, templates = _output_options(args, out_dir)
+    args.folder = out_dir
     record = read_trace_file(trace_path)
     status = 1 if "audit" in record.results and not record.results["audit"]["all_agree"] else 0
-    return _export_and_write(args, record, out_dir, formats, templates, status)
+    # Rendering into the trace's own folder rewrites part of a set that came from the same trace: keep the rest.
+    same_folder = os.path.abspath(out_dir) == os.path.abspath(trace_path.parent)
+    keep = ("trace.json", "report.tex", "appendix.tex", "report.pdf", "derivation.ipynb") if same_folder else ()
+    return _export_and_write(args, record, out_dir, formats, templates, status, keep=keep)
+
+
+def _default_folder(input_file: str) -> Path:
+    """out/<file name without its extension>; a name that would not make a folder of its own is refused."""
+    stem = Path(input_file).stem
+    if stem.strip(".") == "":
+        raise InputError(f"cannot name an output folder after '{Path(input_file).name}'; give one with -o")
+    return Path("out") / stem
 
 
 def _output_options(args: argparse.Namespace, out_dir: Path) -> tuple[list[str], list[Path]]:
     formats = _formats(args.formats)
-    if out_dir.exists() and not out_dir.is_dir():
-        raise InputError(f"output folder {out_dir} exists and is not a folder")
+    check_output_folder(out_dir)
     templates = [Path(args.templates)] if args.templates else []
     if templates and not templates[0].is_dir():
         raise InputError(f"template folder {templates[0]} does not exist")
     return formats, templates
 
 
-def _derive_and_export(args: argparse.Namespace, metric, out_dir: Path, title: str = "", claims=None) -> int:
-    formats, templates = _output_options(args, out_dir)
+def _derive_and_export(args: argparse.Namespace, metric, out_dir: Path, formats: list[str],
+                       templates: list[Path], title: str = "", claims=None) -> int:
     if args.jobs is not None and args.jobs < 1:
         raise InputError("--jobs must be at least 1")
-    if args.time_limit is not None and not (math.isfinite(args.time_limit) and args.time_limit > 0):
-        raise InputError("--time-limit must be a positive number of seconds")
     jobs = args.jobs if args.jobs is not None else default_jobs()
-    try:
-        derivation = derive(metric, progress=_Progress(args.quiet), curvature_invariants=not args.skip_invariants,
-                            jobs=jobs, time_limit=args.time_limit)
-    except TimeLimitReached as stop:
-        sys.stderr.write(f"stepper: stopped: the time limit of {args.time_limit:g} s was reached during {stop}; "
-                         "nothing was written\n")
-        return 3
+    derivation = derive(metric, progress=args.progress, curvature_invariants=not args.skip_invariants,
+                        jobs=jobs)
     status = 0
     if claims is not None:
         from .audit import audit, record_audit
+        args.progress("checking the claims", 0, 1)
         verdicts, earliest = audit(derivation, claims)
         derivation = record_audit(derivation, title, verdicts, earliest)
         if not derivation.results["audit"]["all_agree"]:
@@ -235,7 +252,7 @@ def _derive_and_export(args: argparse.Namespace, metric, out_dir: Path, title: s
 
 
 def _export_and_write(args: argparse.Namespace, derivation: Derivation, out_dir: Path, formats: list[str],
-                      templates: list[Path], status: int) -> int:
+                      templates: list[Path], status: int, keep: tuple[str, ...] = ()) -> int:
     """Write the asked outputs of a derivation, all made from its trace as ``stepper render`` would."""
     # Imported here so that a run writing only trace.json does not pay for templates and TeX.
     import jinja2
@@ -248,35 +265,24 @@ def _export_and_write(args: argparse.Namespace, derivation: Derivation, out_dir:
     problems: list[str] = []
     for name in formats:
         exporter = EXPORTERS[name](templates)
+        args.progress(f"writing {exporter.file_name}", 0, 1)
         try:
             contents[exporter.file_name] = text if name == "trace" else exporter.export(record)
         except TexMissing as err:
             problems.append(f"stepper: warning: no report.pdf: {err}")
             status = 1 if args.formats else status
         except TexFailed as err:
-            contents["report.log"] = err.log
-            problems.append(f"stepper: error: no report.pdf: {err} (TeX's log: {out_dir / 'report.log'})")
-            status = 1
+            raise _tex_failure(err, out_dir, bool(templates)) from None
         except jinja2.TemplateError as err:
             raise InputError(f"template problem in {name} output: {err}") from None
-    if "pdf" in formats and "report.pdf" not in contents:
-        stale = out_dir / "report.pdf"  # an older PDF would no longer match the new trace
-        if stale.exists():
-            stale.unlink()
-    if "report.log" not in contents and (out_dir / "report.log").exists():
-        (out_dir / "report.log").unlink()
-    written = []
-    for file_name, content in contents.items():
-        target = out_dir / file_name
-        try:
-            write_atomically(target, content)
-        except OSError as err:
-            raise InputError(f"cannot write {target}: {err.strerror or err}") from None
-        written.append(file_name)
+    _cancel_time_limit()
+    replace_output_set(out_dir, contents, keep=tuple(name for name in keep if name not in contents),
+                       state=args.swap)
+    written = list(contents)
     if not args.quiet:
-        print(summary(derivation, out_dir, written))
+        print(terminal_text(summary(derivation, out_dir, written)))
         if "audit" in derivation.results:
-            print(audit_summary(derivation))
+            print(terminal_text(audit_summary(derivation)))
     numeric = derivation.results.get("numeric_verification", {})
     if numeric and numeric["passed"] is False:
         problems.append("stepper: error: the numeric verification disagrees with the symbolic results "
@@ -285,8 +291,28 @@ def _export_and_write(args: argparse.Namespace, derivation: Derivation, out_dir:
     elif numeric and numeric["passed"] is None:
         problems.append(f"stepper: warning: no numeric verification: {numeric['note']}")
     for line in problems:
-        sys.stderr.write(line + "\n")
+        sys.stderr.write(terminal_text(line) + "\n")
     return status
+
+
+class _TexFailure(InputError):
+    """pdflatex failed: the previous outputs are kept; status 4 for stepper's own templates (a bug), 2 for
+    templates the user gave."""
+
+    def __init__(self, message: str, exit_status: int) -> None:
+        super().__init__(message)
+        self.exit_status = exit_status
+
+
+def _tex_failure(err, out_dir: Path, user_templates: bool) -> _TexFailure:
+    """Keep TeX's log in the system's temporary folder (nothing is written into the output folder)."""
+    import tempfile
+    handle, log_path = tempfile.mkstemp(prefix="stepper-tex-", suffix=".log")
+    with os.fdopen(handle, "w", encoding="utf-8") as log:
+        log.write(err.log)
+    kept = "the previous outputs there are kept" if out_dir.exists() else "nothing was written"
+    return _TexFailure(f"no report.pdf: {err} (TeX's log: {log_path}); {kept} in {out_dir}",
+                       2 if user_templates else INTERNAL_ERROR)
 
 
 def audit_summary(derivation: Derivation) -> str:
@@ -329,23 +355,96 @@ def main(argv: Sequence[str] | None = None) -> int:
     if args.command is None:
         parser.print_help()
         return 2
+    args.progress = _Progress(args.quiet)
+    args.swap = SwapState()
+    args.folder = None
     try:
-        return {"audit": run_audit, "render": run_render}.get(args.command, run_derive)(args)
+        time_limit = getattr(args, "time_limit", None)
+        if time_limit is not None and not (math.isfinite(time_limit) and time_limit > 0):
+            raise InputError("--time-limit must be a positive number of seconds")
+        with _stopping_signals(), _time_limit(time_limit, args.progress):
+            return {"audit": run_audit, "render": run_render}.get(args.command, run_derive)(args)
     except InputError as err:
-        sys.stderr.write(f"\nstepper: error: {err.message}\n" if sys.stderr.isatty() else
-                         f"stepper: error: {err.message}\n")
-        return 2
+        _say_error(f"stepper: error: {err.message}")
+        return getattr(err, "exit_status", 2)
+    except TimeLimitReached as stop:
+        _say_error(f"stepper: stopped: the time limit of {time_limit:g} s was reached during {stop}; "
+                   f"{_what_was_kept(args)}")
+        return 3
+    except (KeyboardInterrupt, Stopped) as stop:
+        name = stop.signal_name if isinstance(stop, Stopped) else "Ctrl-C"
+        _say_error(f"stepper: stopped by {name}; {_what_was_kept(args)}")
+        return stop.exit_status if isinstance(stop, Stopped) else 130
     except BrokenPipeError:  # the reader of our output went away (stepper ... | head): stop quietly
         devnull = os.open(os.devnull, os.O_WRONLY)
         os.dup2(devnull, sys.stdout.fileno())
         return 141
-    except KeyboardInterrupt:
-        sys.stderr.write("stepper: interrupted; nothing was written\n")
-        return 130
-    except Exception as err:  # a bug in stepper, not in the input: one line, no traceback
-        sys.stderr.write(f"stepper: internal error while working on {args.file}: {type(err).__name__}: "
-                         f"{' '.join(str(err).split())[:300]} (please report it with that file)\n")
+    except MemoryError:
+        _say_error(f"stepper: error: out of memory while working on {args.file}; the input asks for more than "
+                   f"this machine has ({_what_was_kept(args)})")
         return INTERNAL_ERROR
+    except Exception as err:  # a bug in stepper, not in the input: one line, no traceback
+        _say_error(f"stepper: internal error while working on {args.file}: {type(err).__name__}: "
+                   f"{' '.join(str(err).split())[:300]} (please report it with that file; "
+                   f"{_what_was_kept(args)})")
+        return INTERNAL_ERROR
+
+
+def _what_was_kept(args: argparse.Namespace) -> str:
+    folder = args.folder
+    if args.swap.replaced:
+        return f"the new outputs were already complete in {folder}"
+    if folder is not None and Path(folder).is_dir() and any(Path(folder).iterdir()):
+        return f"the previous outputs in {folder} are kept"
+    return "nothing was written"
+
+
+@contextmanager
+def _stopping_signals() -> Iterator[None]:
+    """SIGTERM and SIGHUP stop a run as Ctrl-C does: by an exception, so that cleanup runs."""
+    def stop(number, frame):
+        raise Stopped(signal.Signals(number).name, 128 + number)
+    previous = {number: signal.signal(number, stop) for number in (signal.SIGTERM, signal.SIGHUP)}
+    try:
+        yield
+    finally:
+        for number, handler in previous.items():
+            signal.signal(number, handler)
+
+
+@contextmanager
+def _time_limit(seconds: float | None, progress: _Progress) -> Iterator[None]:
+    """A watchdog over the whole run, reading included: SIGALRM interrupts whatever is running,
+    inside sympy too, and names the stage the progress line last showed."""
+    if seconds is None:
+        yield
+        return
+
+    def expire(number, frame):
+        raise TimeLimitReached(progress.last)
+    previous = signal.signal(signal.SIGALRM, expire)
+    signal.setitimer(signal.ITIMER_REAL, seconds)
+    try:
+        yield
+    finally:
+        signal.setitimer(signal.ITIMER_REAL, 0)
+        signal.signal(signal.SIGALRM, previous)
+
+
+def _cancel_time_limit() -> None:
+    """The outputs are made: the swap that follows is short and must not be cut."""
+    signal.setitimer(signal.ITIMER_REAL, 0)
+
+
+def terminal_text(text: str) -> str:
+    """``text`` without control characters (terminal escape sequences, bells, carriage returns),
+    newlines kept: what comes from an input file never drives the terminal."""
+    return "".join(ch for ch in text if ch == "\n" or (ch >= " " and not 0x7f <= ord(ch) <= 0x9f))
+
+
+def _say_error(line: str) -> None:
+    line = terminal_text(line)
+    sys.stderr.write(f"\n{line}\n" if sys.stderr.isatty() else f"{line}\n")
 
 
 if __name__ == "__main__":

@@ -72,6 +72,47 @@ MAX_DIGITS = 700
 """More significant digits than a number of MAX_NUMBER_BITS bits can have;
 a literal this long is refused before it is converted."""
 
+MAX_SUM_EXPONENT = 64
+"""Largest integer power of a sum accepted; metrics in use need small powers (squares, cubes)."""
+
+MAX_EXPANDED_TERMS = 20_000
+"""Most terms a power of a sum may have multiplied out: ``(1 + x^2 + y^2 + z^2)^2`` has 10,
+``(M + r + theta + phi)^1000`` about 1.7 * 10^8, which would fill memory."""
+
+MAX_FUNCTION_NESTING = 12
+"""Deepest nesting of elementary functions of the coordinates accepted (``sin(sin(...))``);
+simplification time grows steeply with it, and metrics in use need two or three."""
+
+EXPANSION_CAP = 10**9
+
+
+def expanded_terms(node: sympy.Basic, child_terms: Sequence[int]) -> int:
+    """Estimated number of terms of ``node`` multiplied out, from its children's: a sum adds them, a
+    product multiplies them, a sum of t terms to the integer power k has C(t + k - 1, k); capped."""
+    if node.is_Add:
+        count = sum(child_terms)
+    elif node.is_Mul:
+        count = 1
+        for terms in child_terms:
+            count = min(EXPANSION_CAP, count * terms)
+    elif node.is_Pow and node.exp.is_Integer and child_terms and child_terms[0] > 1:
+        power = min(abs(int(node.exp)), EXPANSION_CAP)
+        count = _multichoose(child_terms[0], power)
+    else:
+        count = 1
+    return min(count, EXPANSION_CAP)
+
+
+def _multichoose(kinds: int, power: int) -> int:
+    """C(kinds + power - 1, power), stopping as soon as it passes EXPANSION_CAP."""
+    count = 1
+    for step in range(1, min(power, kinds - 1) + 1):
+        count = count * (power + kinds - step) // step
+        if count > EXPANSION_CAP:
+            return EXPANSION_CAP
+    return count
+
+
 UNDEFINED: frozenset[sympy.Expr] = frozenset({sympy.zoo, sympy.nan, sympy.oo, -sympy.oo})
 """The values a text may not produce."""
 
@@ -127,6 +168,8 @@ class Facts(NamedTuple):
     nesting: int | None  # powers and functions deep, for a constant; None if it has a symbol
     has_log: bool
     undefined: bool  # contains zoo, nan or an infinity
+    terms: int  # terms of the expression multiplied out (an estimate, capped at EXPANSION_CAP)
+    functions: int  # elementary functions nested inside one another, symbols or not
 
 
 def rational_bits(number: sympy.Rational) -> int:
@@ -245,6 +288,9 @@ class GuardedReader(Generic[TokenT]):
                 nesting=nesting,
                 has_log=isinstance(node, sympy.log) or any(c.has_log for c in children),
                 undefined=node in UNDEFINED or any(c.undefined for c in children),
+                terms=expanded_terms(node, [child.terms for child in children]),
+                functions=(1 if node.is_Function and not isinstance(node, AppliedUndef) else 0)
+                + max((child.functions for child in children), default=0),
             )
         return memo[expression]
 
@@ -280,8 +326,28 @@ class GuardedReader(Generic[TokenT]):
                 token.column,
             )
 
+    def check_expansion(self, base: sympy.Expr, exponent: sympy.Expr, token: Located) -> None:
+        """Refuse a power of a sum that multiplied out (as the chain's arithmetic does) would have
+        more than MAX_EXPANDED_TERMS terms, or whose exponent exceeds MAX_SUM_EXPONENT."""
+        if not (exponent.is_Integer and abs(exponent) > 1) or self.facts(base).terms < 2:
+            return
+        power = abs(int(exponent))
+        if power > MAX_SUM_EXPONENT:
+            self.fail(f"power too large: {show(token.text)} raises a sum to the power {power} "
+                      f"(the limit is {MAX_SUM_EXPONENT})", token.column)
+        if _multichoose(self.facts(base).terms, power) > MAX_EXPANDED_TERMS:
+            self.fail(f"expression too large: {show(token.text)} multiplied out would have more than "
+                      f"{MAX_EXPANDED_TERMS} terms", token.column)
+
+    def check_function_nesting(self, argument: sympy.Expr, token: Located) -> None:
+        """Refuse functions nested more than MAX_FUNCTION_NESTING deep, on which simplification stalls."""
+        if self.facts(argument).functions >= MAX_FUNCTION_NESTING:
+            self.fail(f"functions nested too deeply: {show(token.text)} makes more than "
+                      f"{MAX_FUNCTION_NESTING} levels (the limit)", token.column)
+
     def power(self, base: sympy.Expr, exponent: sympy.Expr, token: Located) -> sympy.Expr:
         """``base**exponent``, after estimating the size of what sympy would compute."""
+        self.check_expansion(base, exponent, token)
         base_facts = self.facts(base)
         if exponent.is_Rational:
             estimate = base_facts.bits * max(1, abs(exponent.p))
@@ -305,6 +371,7 @@ class GuardedReader(Generic[TokenT]):
         if function is sympy.exp:
             self.check_size(self.exp_bits(argument), token)
         self.check_nesting((argument,), token)
+        self.check_function_nesting(argument, token)
         result = function(argument)
         if self.facts(result).undefined:
             self.fail(

@@ -34,6 +34,7 @@ Optional requests beyond curvature::
 from __future__ import annotations
 
 import re
+import stat
 import tomllib
 from pathlib import Path
 from typing import Any
@@ -68,6 +69,36 @@ def load_metric(path: str | Path) -> Metric:
     return metric_from_data(read_toml(path), default_title=path.stem)
 
 
+MAX_INPUT_BYTES = 1024 * 1024
+"""Largest metric or claims file read, in bytes (a metric of dimension 10 with long components is far smaller)."""
+
+
+def read_input_file(path: Path, limit: int = MAX_INPUT_BYTES) -> bytes:
+    """The bytes of the regular file at ``path``, refused with a one-line :class:`InputError` when it is
+    missing, a folder, a device or pipe (``/dev/zero`` would never end) or larger than ``limit``."""
+    try:
+        info = path.stat()
+    except FileNotFoundError:
+        raise InputError(f"cannot read {path}: no such file") from None
+    except OSError as err:
+        raise InputError(f"cannot read {path}: {err.strerror or err}") from None
+    if stat.S_ISDIR(info.st_mode):
+        raise InputError(f"cannot read {path}: it is a folder")
+    if not stat.S_ISREG(info.st_mode):
+        raise InputError(f"cannot read {path}: not a regular file (a device, pipe or socket)")
+    if info.st_size > limit:
+        raise InputError(f"cannot read {path}: larger than {limit // 1024} KiB, far more than a metric or "
+                         "claims file needs")
+    try:
+        with open(path, "rb") as handle:
+            raw = handle.read(limit + 1)
+    except OSError as err:
+        raise InputError(f"cannot read {path}: {err.strerror or err}") from None
+    if len(raw) > limit:
+        raise InputError(f"cannot read {path}: larger than {limit // 1024} KiB")
+    return raw
+
+
 def read_toml(path: str | Path) -> dict[str, Any]:
     """The table in the TOML file at ``path``.
 
@@ -76,14 +107,7 @@ def read_toml(path: str | Path) -> dict[str, Any]:
     the file.
     """
     path = Path(path)
-    try:
-        raw = path.read_bytes()
-    except FileNotFoundError:
-        raise InputError(f"cannot read {path}: no such file") from None
-    except IsADirectoryError:
-        raise InputError(f"cannot read {path}: it is a folder") from None
-    except OSError as err:
-        raise InputError(f"cannot read {path}: {err.strerror or err}") from None
+    raw = read_input_file(path)
     try:
         text = raw.decode("utf-8")
     except UnicodeDecodeError:

@@ -458,11 +458,28 @@ def test_shared_subexpressions_are_checked_once() -> None:
     # only about 180 distinct nodes, and every check walks distinct nodes.
     huge = x
     for _ in range(60):
-        huge = sympy.sin(huge) + sympy.cos(huge)
+        huge = x * huge + (x + 1) * huge**3
     vocabulary = Vocabulary(symbols={"x": x}, abbreviations={"A": huge})
     started = time.monotonic()
-    assert parse_expression("2*A^2 - exp(A)", vocabulary, WHERE) == 2 * huge**2 - sympy.exp(huge)
+    assert parse_expression("2*A - x*A", vocabulary, WHERE) == 2 * huge - x * huge
+    # Squaring it would multiply out to far more terms than memory holds: refused, as quickly.
+    with pytest.raises(InputError, match="multiplied out would have more than"):
+        parse_expression("A^2", vocabulary, WHERE)
     assert time.monotonic() - started < 10
+
+
+def test_powers_of_sums_are_bounded_before_they_are_computed() -> None:
+    # (1 + x^2)^64 is accepted; a sum to the power 65, or to a power whose expansion would
+    # have more than MAX_EXPANDED_TERMS terms (a sum of 4 terms to the power 60: 39711), is not.
+    assert parse("(1 + x^2)^64") == (1 + x**2) ** 64
+    assert "raises a sum to the power 65" in error_of("(1 + x)^65")
+    assert "multiplied out would have more than" in error_of("(1 + x + x^2 + x^3)^60")
+    assert parse("(1 + x + x^2 + x^3)^20") == (1 + x + x**2 + x**3) ** 20  # 1771 terms
+
+
+def test_functions_of_symbols_nest_at_most_twelve_deep() -> None:
+    assert parse("sin(" * 12 + "x" + ")" * 12) is not None
+    assert "functions nested too deeply" in error_of("sin(" * 13 + "x" + ")" * 13)
 
 
 def test_logarithms_alone_are_not_large_numbers() -> None:
@@ -477,8 +494,9 @@ def test_constant_nesting_limit() -> None:
     assert parse("sin(" * depth + "1" + ")" * depth) is not None
     message = error_of("sin(" * (depth + 1) + "1" + ")" * (depth + 1))
     assert_names(message, "constant too deeply nested: 'sin'", 1)
-    # With a symbol inside, sympy needs no numerical evaluation: no limit.
-    assert parse("sin(" * (depth + 5) + "x" + ")" * (depth + 5)) is not None
+    # With a symbol inside, sympy needs no numerical evaluation: only the looser limit on
+    # functions of symbols (MAX_FUNCTION_NESTING, twelve) applies.
+    assert parse("sin(" * (depth + 3) + "x" + ")" * (depth + 3)) is not None
 
 
 @pytest.mark.parametrize(
