@@ -130,7 +130,8 @@ def summary(derivation: Derivation, out_dir: Path, written: Sequence[str]) -> st
     if numeric:
         word = {True: "passed", False: "FAILED", None: "not done"}[numeric["passed"]]
         deviations = ", ".join(f"{q} {v}" for q, v in numeric["deviations"].items())
-        lines.append(f"  numeric verification {word}: largest relative deviations {deviations} "
+        lines.append(f"  numeric verification not done: {numeric['note']}" if numeric["passed"] is None else
+                     f"  numeric verification {word}: largest relative deviations {deviations} "
                      f"at {len(numeric['points'])} random points")
     for key, verdict in derivation.results.get("verdicts", {}).items():
         word = HOLDS_WORDS[verdict["holds"]]
@@ -217,9 +218,10 @@ def run_render(args: argparse.Namespace) -> int:
 
 
 def _default_folder(input_file: str) -> Path:
-    """out/<file name without its extension>; a name that would not make a folder of its own is refused."""
+    """out/<file name without its extension>; a name that would not make a visible folder of its own
+    (``...toml`` has the stem ``..``, ``.toml`` the stem ``.toml``) is refused."""
     stem = Path(input_file).stem
-    if stem.strip(".") == "":
+    if stem.startswith(".") or not stem.strip():
         raise InputError(f"cannot name an output folder after '{Path(input_file).name}'; give one with -o")
     return Path("out") / stem
 

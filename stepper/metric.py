@@ -86,6 +86,11 @@ def _validate(coordinates: tuple, matrix: sympy.ImmutableMatrix) -> None:
     if matrix.rows != n:
         raise InputError(f"the metric matrix is {matrix.rows} x {matrix.cols} but there are {n} coordinates")
     for i in range(n):
+        for j in range(i, n):
+            if matrix[i, j].has(sympy.I):
+                raise InputError(f"the metric is not real: g[{coordinates[i]},{coordinates[j]}] = {matrix[i, j]} "
+                                 "(write the components of a real metric)")
+    for i in range(n):
         for j in range(i + 1, n):
             if sympy.cancel(matrix[i, j] - matrix[j, i]) != 0:
                 raise InputError(

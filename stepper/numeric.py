@@ -132,11 +132,19 @@ def _evaluate(metric, x: list, n: int) -> list:
 
 
 def _invert(g: list, n: int) -> list:
-    m = mpmath.matrix(g)
+    """g^{-1}, computed as S (S g S)^{-1} S with S = diag(1/sqrt(max_j |g_ij|)), so that components of
+    very different sizes (10^300 beside 1) do not make mpmath's relative singularity test fail."""
+    scales = []
+    for i in range(n):
+        largest = max(abs(v) for v in g[i])
+        if largest == 0:
+            raise ValueError("metric is singular at this point")
+        scales.append(1 / mpmath.sqrt(largest))
+    m = mpmath.matrix([[scales[i] * g[i][j] * scales[j] for j in range(n)] for i in range(n)])
     if mpmath.det(m) == 0:
         raise ValueError("metric is singular at this point")
     inv = mpmath.inverse(m)
-    return [[inv[i, j] for j in range(n)] for i in range(n)]
+    return [[scales[i] * inv[i, j] * scales[j] for j in range(n)] for i in range(n)]
 
 
 def _jet(metric, point, dps: int):

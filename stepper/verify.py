@@ -87,6 +87,14 @@ def _substitute(expr: sympy.Expr, functions: Mapping, values: Mapping) -> sympy.
     return expr.subs(values)
 
 
+def _size_spread(g: mpmath.matrix) -> int:
+    """Decimal orders of magnitude between the largest and the smallest nonzero component of ``g``."""
+    sizes = [abs(g[i, j]) for i in range(g.rows) for j in range(g.cols) if g[i, j] != 0]
+    if not sizes:
+        return 0
+    return int(mpmath.floor(mpmath.log10(max(sizes) / min(sizes))))
+
+
 def numeric_check(coordinates: Sequence[sympy.Symbol], matrix: sympy.Matrix, parameters: Sequence[sympy.Symbol],
                   functions: Sequence[sympy.Expr], results: Mapping[str, object],
                   points: int = POINTS, digits: int = DIGITS) -> NumericCheck:
@@ -116,11 +124,17 @@ def numeric_check(coordinates: Sequence[sympy.Symbol], matrix: sympy.Matrix, par
     worst = {q: mpmath.mpf(0) for q in list(quantities) + ["scalar"]}
     used_points = []
     attempts = 0
+    spread_note = ""
     with mpmath.workdps(digits + 10):
         while len(used_points) < points and attempts < 60:
             attempts += 1
             point = [mpmath.mpf(v.p) / v.q for v in (_sample(c, rng) for c in coordinates)]
             try:
+                spread = _size_spread(metric(point))
+                if spread > digits:
+                    spread_note = (f"the metric's components differ in size by a factor of about 10^{spread}, "
+                                   f"more than a {digits}-digit numeric check can resolve")
+                    continue
                 reference = numeric.curvature(metric, point, dps=digits)
                 symbolic = {}
                 for quantity, (index_keys, function) in prepared.items():
@@ -143,7 +157,9 @@ def numeric_check(coordinates: Sequence[sympy.Symbol], matrix: sympy.Matrix, par
             worst["scalar"] = max(worst["scalar"], numeric.compare({(): symbolic_scalar}, {(): reference.scalar}))
             used_points.append({name: mpmath.nstr(value, 12) for name, value in zip(names, point)})
     passed = bool(used_points) and all(v <= TOLERANCE for v in worst.values())
-    if not used_points:
+    if spread_note and not used_points:
+        note = spread_note
+    elif not used_points:
         note = f"no usable point in {attempts} tries (the metric was singular, degenerate or not real there)"
     elif len(used_points) < points:
         note = f"only {len(used_points)} of {points} random points were usable"
