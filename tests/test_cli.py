@@ -228,7 +228,7 @@ def test_output_folder_below_a_file_is_a_one_line_error(tmp_path):
     (tmp_path / "good.toml").write_text(GOOD_SMALL, encoding="utf-8")
     (tmp_path / "afile").write_text("keep me\n")
     proc = run_stepper(["derive", "good.toml", "-o", "afile/sub"], tmp_path)
-    assert_one_line_error(proc, "cannot write")
+    assert_one_line_error(proc, "cannot create output folder", "is not a folder")
     assert (tmp_path / "afile").read_text() == "keep me\n"
     assert leftovers(tmp_path) == []
 
