@@ -207,9 +207,9 @@ def run_render(args: argparse.Namespace) -> int:
     from .trace import read_trace_file
     trace_path = Path(args.file)
     out_dir = Path(args.output) if args.output else trace_path.parent
+    record = read_trace_file(trace_path)
     formats, templates = _output_options(args, out_dir)
     args.folder = out_dir
-    record = read_trace_file(trace_path)
     status = 1 if "audit" in record.results and not record.results["audit"]["all_agree"] else 0
     # Rendering into the trace's own folder rewrites part of a set that came from the same trace: keep the rest.
     same_folder = os.path.abspath(out_dir) == os.path.abspath(trace_path.parent)

@@ -15,6 +15,7 @@ Delimiters are ``<% %>`` for statements, ``<< >>`` for values and
 from __future__ import annotations
 
 import os
+import re
 import shutil
 import subprocess
 import sys
@@ -142,11 +143,36 @@ def compile_latex(source: str, job: str = "report") -> tuple[bytes, str]:
                 [engine, "-no-shell-escape", "-interaction=nonstopmode", "-halt-on-error", f"{job}.tex"],
                 cwd=folder, env=environment, stdin=subprocess.DEVNULL, capture_output=True, timeout=600)
             log_file = Path(folder) / f"{job}.log"
-            log = log_file.read_text(encoding="latin-1") if log_file.exists() else run.stdout.decode("latin-1")
+            log = (log_file.read_bytes() if log_file.exists() else run.stdout).decode("utf-8", errors="replace")
             if run.returncode != 0:
-                first = next((line for line in log.splitlines() if line.startswith("!")), "unknown TeX error")
-                raise TexFailed(f"pdflatex failed: {first}", log)
+                raise TexFailed(f"pdflatex failed: {tex_error(log, f'{job}.tex')}", log)
         return (Path(folder) / f"{job}.pdf").read_bytes(), log
+
+
+#: Plain words for TeX errors whose own message does not say what went wrong.
+_TEX_ERROR_WORDS = {
+    "Dimension too large": "a length grew beyond what TeX can hold, usually a line or formula far too long to set",
+    "TeX capacity exceeded": "the document is too large or too deeply nested for TeX",
+}
+
+
+def tex_error(log: str, file_name: str = "report.tex") -> str:
+    """The first error of a TeX log in one line: its "!" line, the input line it happened on (the "l.123"
+    line after it), plain words for errors that need them, and how many lines were overfull (too wide for
+    the page) before it."""
+    lines = log.splitlines()
+    start = next((i for i, line in enumerate(lines) if line.startswith("!")), None)
+    if start is None:
+        return "unknown TeX error (no error line in the log)"
+    message = lines[start]
+    numbers = [found.group(1) for found in map(re.compile(r"l\.(\d+) ").match, lines[start + 1:]) if found]
+    if numbers:
+        message += f" (on line {numbers[0]} of {file_name})"
+    words = [plain for key, plain in _TEX_ERROR_WORDS.items() if key in message]
+    overfull = sum(1 for line in lines[:start] if line.startswith(("Overfull \\hbox", "Overfull \\vbox")))
+    if overfull:
+        words.append(f"{overfull} overfull line{'s' if overfull > 1 else ''} (too wide for the page) before it")
+    return message + "".join(f"; {w}" for w in words)
 
 
 class PdfExporter(ReportExporter):

@@ -14,6 +14,7 @@ All settings come in through the constructor; nothing is global.
 
 from __future__ import annotations
 
+import unicodedata
 from typing import Iterable, Mapping, Sequence
 
 import sympy
@@ -29,10 +30,175 @@ SHORT_LATEX = 90
 SHORT_DENOMINATOR = 70
 
 
+#: A run of characters without a space longer than this gets break opportunities (a long label, a title
+#: without spaces), so that it cannot run off the page; ordinary words and step ids are shorter.
+LONG_RUN = 40
+#: In such a run, TeX may break after every this many characters.
+BREAK_EVERY = 8
+
+_GREEK = {
+    # lower case, with the final sigma; ε and φ as text fonts draw them (\varepsilon, \varphi), ϵ and ϕ below
+    "α": r"\alpha", "β": r"\beta", "γ": r"\gamma", "δ": r"\delta", "ε": r"\varepsilon", "ζ": r"\zeta",
+    "η": r"\eta", "θ": r"\theta", "ι": r"\iota", "κ": r"\kappa", "λ": r"\lambda", "μ": r"\mu", "ν": r"\nu",
+    "ξ": r"\xi", "ο": "o", "π": r"\pi", "ρ": r"\rho", "ς": r"\varsigma", "σ": r"\sigma", "τ": r"\tau",
+    "υ": r"\upsilon", "φ": r"\varphi", "χ": r"\chi", "ψ": r"\psi", "ω": r"\omega",
+    # upper case: those that look like Latin letters are upright Latin letters
+    "Α": r"\mathrm{A}", "Β": r"\mathrm{B}", "Γ": r"\Gamma", "Δ": r"\Delta", "Ε": r"\mathrm{E}",
+    "Ζ": r"\mathrm{Z}", "Η": r"\mathrm{H}", "Θ": r"\Theta", "Ι": r"\mathrm{I}", "Κ": r"\mathrm{K}",
+    "Λ": r"\Lambda", "Μ": r"\mathrm{M}", "Ν": r"\mathrm{N}", "Ξ": r"\Xi", "Ο": r"\mathrm{O}", "Π": r"\Pi",
+    "Ρ": r"\mathrm{P}", "Σ": r"\Sigma", "Τ": r"\mathrm{T}", "Υ": r"\Upsilon", "Φ": r"\Phi",
+    "Χ": r"\mathrm{X}", "Ψ": r"\Psi", "Ω": r"\Omega",
+    # variant forms
+    "ϐ": r"\beta", "ϑ": r"\vartheta", "ϒ": r"\Upsilon", "ϕ": r"\phi", "ϖ": r"\varpi", "ϝ": r"\digamma",
+    "ϰ": r"\varkappa", "ϱ": r"\varrho", "ϴ": r"\Theta", "ϵ": r"\epsilon", "϶": r"\backepsilon",
+}
+
+#: Accents on Greek letters (as the accented letters decompose), as math accents.
+_GREEK_ACCENTS = {"\u0301": r"\acute", "\u0300": r"\grave", "\u0308": r"\ddot", "\u0342": r"\tilde",
+                  "\u0304": r"\bar", "\u0306": r"\breve"}
+
+_MATH_SYMBOLS = {
+    # operators
+    "\u2212": "-", "±": r"\pm", "∓": r"\mp", "×": r"\times", "·": r"\cdot", "⋅": r"\cdot", "÷": r"\div",
+    "∗": "*", "∘": r"\circ", "√": r"\surd", "⊗": r"\otimes", "⊕": r"\oplus", "⊙": r"\odot", "∧": r"\wedge",
+    "∨": r"\vee", "¬": r"\neg", "∪": r"\cup", "∩": r"\cap", "∖": r"\setminus", "†": r"\dagger",
+    # relations
+    "≤": r"\le", "≥": r"\ge", "⩽": r"\leqslant", "⩾": r"\geqslant", "≠": r"\ne", "≈": r"\approx",
+    "≃": r"\simeq", "≅": r"\cong", "≡": r"\equiv", "∼": r"\sim", "∝": r"\propto", "≪": r"\ll", "≫": r"\gg",
+    "≲": r"\lesssim", "≳": r"\gtrsim", "∈": r"\in", "∉": r"\notin", "∋": r"\ni", "⊂": r"\subset",
+    "⊃": r"\supset", "⊆": r"\subseteq", "⊇": r"\supseteq", "⊥": r"\perp", "∥": r"\parallel", "∣": r"\mid",
+    "⊢": r"\vdash", "⊤": r"\top",
+    # arrows
+    "→": r"\to", "←": r"\leftarrow", "↔": r"\leftrightarrow", "⇒": r"\Rightarrow", "⇐": r"\Leftarrow",
+    "⇔": r"\Leftrightarrow", "↦": r"\mapsto", "↑": r"\uparrow", "↓": r"\downarrow", "⟶": r"\longrightarrow",
+    "⟵": r"\longleftarrow", "⟹": r"\Longrightarrow", "⟺": r"\Longleftrightarrow", "⇌": r"\rightleftharpoons",
+    # big operators, calculus, letter-like symbols
+    "∑": r"\sum", "∏": r"\prod", "∫": r"\int", "∬": r"\iint", "∮": r"\oint", "∂": r"\partial",
+    "∇": r"\nabla", "∆": r"\Delta", "∞": r"\infty", "∀": r"\forall", "∃": r"\exists", "∄": r"\nexists",
+    "∅": r"\emptyset", "ℓ": r"\ell", "ħ": r"\hbar", "ℏ": r"\hbar", "ℜ": r"\Re", "ℑ": r"\Im", "ℵ": r"\aleph",
+    "℘": r"\wp", "ℝ": r"\mathbb{R}", "ℂ": r"\mathbb{C}", "ℕ": r"\mathbb{N}", "ℤ": r"\mathbb{Z}",
+    "ℚ": r"\mathbb{Q}", "∠": r"\angle", "∴": r"\therefore", "∵": r"\because", "∎": r"\blacksquare",
+    "□": r"\square",
+    # delimiters, dots, primes, degrees
+    "⟨": r"\langle", "⟩": r"\rangle", "⌊": r"\lfloor", "⌋": r"\rfloor", "⌈": r"\lceil", "⌉": r"\rceil",
+    "⋯": r"\cdots", "⋮": r"\vdots", "⋱": r"\ddots", "′": "'", "″": "''", "‴": "'" * 3, "°": r"^{\circ}",
+}
+
+_SUPERSCRIPTS = dict(zip("⁰¹²³⁴⁵⁶⁷⁸⁹⁺⁻⁼⁽⁾ⁱⁿ", "0123456789+-=()in"))
+_SUBSCRIPTS = dict(zip("₀₁₂₃₄₅₆₇₈₉₊₋₌₍₎ₐₑₒₓₕₖₗₘₙₚₛₜ", "0123456789+-=()aeoxhklmnpst"))
+
+#: Characters pdflatex typesets through the report's preamble (T1 fonts, utf8 inputenc, textcomp), kept
+#: as they are: Latin-1 Supplement and Latin Extended-A less the few letters inputenc has nothing for
+#: (found by compiling every one), and typographic punctuation.
+_TYPESET_AS_IS = frozenset(
+    [chr(c) for c in range(0xA1, 0x180) if c not in (0x126, 0x127, 0x138, 0x13F, 0x140, 0x149, 0x166, 0x167, 0x17F)]
+    + list("‐‑‒–—―‖‘’‚“”„‡•…‰‹›€™")
+)
+
+#: Spaces that must not break a line, and their LaTeX.
+_NO_BREAK_SPACES = {"\u00a0": "~", "\u2007": "~", "\u202f": r"\,"}
+
+
 def escape_text(text: str) -> str:
-    """Text from a metric file, safe to place in LaTeX: every special character
-    is escaped, so ``\\input{...}`` or ``\\write18`` print literally."""
-    return escape_latex(" ".join(str(text).split()))
+    r"""Text from a metric or claims file as LaTeX that pdflatex always compiles and that prints it literally.
+
+    * ASCII: every special character is escaped, so ``\input{...}`` or ``\write18`` print as written.
+    * Greek letters (both cases, the final sigma, the variant forms, with accents) and common mathematical
+      symbols (``− ± × · ÷ ≤ ≥ ≠ ≈ ∞ ∂ ∇ → ⇒ ∈ ∑ ∫ √ ° ′ ⊗ ∧ ℓ ħ`` ...) become math-mode commands in
+      ``\ensuremath{...}``; superscript and subscript digits, signs and letters become ``^{..}`` and ``_{..}``.
+    * Accented Latin letters (Latin-1 Supplement, Latin Extended-A) and typographic punctuation
+      (``– — ‘ ’ “ ” … €``) stay UTF-8, which the preamble's inputenc and T1 fonts set; a no-break space
+      becomes ``~``.
+    * Removed: control characters (C0 and C1, DEL) and invisible format characters (zero-width spaces and
+      joiners, bidirectional controls, the byte order mark, soft hyphens); blanks run together as one space.
+    * Any other character (CJK, emoji, ...) becomes a visible placeholder such as ``\texttt{[U+1F600]}``,
+      after which the line may break.
+    * A run of more than ``LONG_RUN`` characters without a blank may break after every ``BREAK_EVERY``.
+    """
+    return " ".join(_breakable_run(run) for run in _runs(str(text)))
+
+
+def pdf_string(text: str) -> str:
+    r"""Text from an input file for the PDF's metadata (hyperref's ``pdftitle``), where nothing is typeset:
+    ASCII escaped and invisible characters removed as by :func:`escape_text`, blanks run together, every other
+    character kept as UTF-8, which hyperref writes into the PDF string as it is (a lone surrogate, which
+    cannot be written, becomes ``[U+D800]``)."""
+    def character(c: str) -> str:
+        if c < "\x7f":
+            return escape_latex(c)
+        return f"[U+{ord(c):04X}]" if unicodedata.category(c) == "Cs" else c
+    return " ".join("".join(character(c) for c in run) for run in _runs(str(text)))
+
+
+def without_invisible(text: str) -> str:
+    """``text`` with accents composed (NFC) and without control characters other than blanks (C0, DEL, C1)
+    and format characters (zero-width spaces and joiners, bidirectional controls, the byte order mark, soft
+    hyphens): what neither a report nor a notebook should carry from an input file."""
+    return "".join(c for c in unicodedata.normalize("NFC", str(text)) if not _is_invisible(c))
+
+
+def _runs(text: str) -> list[str]:
+    """The runs of characters between blanks, after composing accents and dropping invisible characters."""
+    visible = without_invisible(text)
+    runs: list[str] = []
+    current = ""
+    for c in visible:
+        if c.isspace() and c not in _NO_BREAK_SPACES:
+            if current:
+                runs.append(current)
+            current = ""
+        else:
+            current += c
+    return runs + [current] if current else runs
+
+
+def _is_invisible(c: str) -> bool:
+    """A control character other than tab, line and page breaks, or a format character (zero-width,
+    bidirectional, BOM, soft hyphen)."""
+    category = unicodedata.category(c)
+    return (category == "Cc" and c not in "\t\n\r\v\f") or category == "Cf"
+
+
+def _breakable_run(run: str) -> str:
+    """LaTeX for a run of characters without blanks; a long run may break after every ``BREAK_EVERY`` characters."""
+    pieces = [_character_tex(c) for c in run]
+    if len(pieces) > LONG_RUN:
+        pieces = [piece + r"\allowbreak{}" if i % BREAK_EVERY == 0 and i < len(pieces) else piece
+                  for i, piece in enumerate(pieces, start=1)]
+    return "".join(pieces)
+
+
+def _character_tex(c: str) -> str:
+    """LaTeX for one visible character (see :func:`escape_text`)."""
+    if c < "\x7f":
+        return escape_latex(c)
+    if c in _NO_BREAK_SPACES:
+        return _NO_BREAK_SPACES[c]
+    math = _math_tex(c)
+    if math is not None:
+        return rf"\ensuremath{{{math}}}"
+    if c in _TYPESET_AS_IS:
+        return c
+    return rf"\texttt{{[U+{ord(c):04X}]}}\allowbreak{{}}"  # a line of CJK text may break after any character
+
+
+def _math_tex(c: str) -> str | None:
+    """Math-mode LaTeX for a Greek letter, a mathematical symbol or a super- or subscript; None for others."""
+    if c in _GREEK:
+        return _GREEK[c]
+    if c in _MATH_SYMBOLS:
+        return _MATH_SYMBOLS[c]
+    if c in _SUPERSCRIPTS:
+        return f"^{{{_SUPERSCRIPTS[c]}}}"
+    if c in _SUBSCRIPTS:
+        return f"_{{{_SUBSCRIPTS[c]}}}"
+    base, *accents = unicodedata.normalize("NFD", c)
+    if base in _GREEK and accents and all(a in _GREEK_ACCENTS for a in accents):
+        tex = _GREEK[base]
+        for accent in accents:
+            tex = f"{_GREEK_ACCENTS[accent]}{{{tex}}}"
+        return tex
+    return None
 
 
 class _Printer(LatexPrinter):

@@ -64,6 +64,8 @@ Reading rules (the decisions a reader of LaTeX has to make):
   respect to its one argument is ``a'``, ``a''``, ``\dot a``, ``\ddot a``
   (``\dot{a}``, ``a'(t)``, ``\dot a^2`` = (da/dt)^2).  A declared function
   followed by ``(`` is always a call, checked against its declaration.
+* The Unicode minus sign ``−`` (U+2212) is ``-``; the multiplication signs ``× · ⋅`` are
+  ``\times``.
 * Spacing (``\, \; \: \! \quad \qquad ~`` and ``\`` followed by a space),
   ``\displaystyle``, ``\left.`` and ``\right.`` are ignored; so is one
   trailing ``.`` or ``,``, and one pair of surrounding ``$...$``,
@@ -140,6 +142,9 @@ _CHARACTER_HINTS = MappingProxyType(
         "|": " (absolute values are not accepted)",
     }
 )
+_UNICODE_OPERATORS = MappingProxyType({"\u2212": "-", "\u00d7": "*", "\u00b7": "*", "\u22c5": "*"})
+"""Operators as typed in Unicode (copied from a web page or a word processor): the minus sign U+2212 and the
+multiplication signs U+00D7, U+00B7 and U+22C5, read as ``-`` and ``*``."""
 _DECLARABLE = re.compile(r"[A-Za-z][A-Za-z0-9]*")
 _WRAPPERS = (("$$", "$$"), ("$", "$"), ("\\(", "\\)"), ("\\[", "\\]"))
 _BLANK = " \t\r\n"
@@ -268,6 +273,8 @@ def _tokenize(text: str, start: int, stop: int) -> list[_Token]:
             add("close", end, piece)
         elif piece in "+-*/^_',":
             add("operator", end, piece)
+        elif piece in _UNICODE_OPERATORS:
+            add("operator", end, _UNICODE_OPERATORS[piece])
         elif piece == ".":
             add("dot", end, piece)
         else:
@@ -431,7 +438,8 @@ class _Reader(GuardedReader[_Token]):
                 if not self.at("*", "/"):
                     break
                 operator = self.advance()
-            terms.add(self.multiply(factors), sign)
+            # The sum reads a sign by its text: a Unicode minus passes as the '-' it stands for.
+            terms.add(self.multiply(factors), sign if sign is None else sign._replace(text=sign.value))
             if not self.at("+", "-"):
                 return terms.value()
             sign = self.advance()

@@ -53,6 +53,7 @@ from .record import ASSUMPTION_WORDS, HOLDS_WORDS, Decision, Method, Step, Verdi
 
 #: The project's own templates; user directories given to :func:`notebook_text` come first.
 from .exporters import template_environment  # noqa: E402  (one environment for every template set)
+from .latex import without_invisible  # noqa: E402
 
 KERNELSPEC = {"display_name": "Python 3", "language": "python", "name": "python3"}
 
@@ -1299,20 +1300,44 @@ def _environment(templates: Sequence[Path] | None) -> jinja2.Environment:
         "code": _inline_code, "fenced": _fenced})
 
 
+#: ASCII characters that can start or shape Markdown (CommonMark with GitHub's extensions, as notebooks render
+#: it): HTML, links, images, autolinks, emphasis, headings, lists, tables, quotes, code, footnotes; ':', '.'
+#: and '@' so that no bare "https://", "javascript:", "www." or e-mail address is linked.
+_MARKDOWN_SIGNIFICANT = frozenset("`*_{}[]()#+-.!|<>~&:=^@")
+#: Characters that start math in a notebook ($, and \ before ( [ or begin): backslash escapes do not stop the
+#: notebook's math renderer, which runs on the rendered page, so these are shown in code spans, where it never looks.
+_MATH_STARTERS = re.compile(r"[$\\]+")
+
+
 def _markdown_text(value) -> str:
-    """Free text shown as markdown: HTML-like characters are neutralised."""
-    return str(value).replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")
+    """Free text from an input file as Markdown that renders as that literal text and nothing else.
+
+    Invisible characters are removed and leading blanks of each line dropped (no indented code block); each
+    Markdown-significant ASCII character (``_MARKDOWN_SIGNIFICANT``) is backslash-escaped, so the text makes
+    no link, image, autolink, HTML, heading, list, table, quote or emphasis; runs of ``$`` and ``\\`` become
+    code spans, so it makes no math either: math comes only from stepper's own LaTeX."""
+    return "\n".join(_markdown_line(line.lstrip()) for line in without_invisible(value).splitlines())
+
+
+def _markdown_line(line: str) -> str:
+    """One line of :func:`_markdown_text`."""
+    pieces = []
+    for plain, starters in zip(_MATH_STARTERS.split(line), _MATH_STARTERS.findall(line) + [""]):
+        pieces.append("".join("\\" + c if c in _MARKDOWN_SIGNIFICANT else c for c in plain))
+        if starters:
+            pieces.append(f"`{starters}`")
+    return "".join(pieces)
 
 
 def _inline_code(value) -> str:
-    text = " ".join(str(value).split())
+    text = " ".join(without_invisible(value).split())
     fence = "`" * (max((len(run) for run in re.findall(r"`+", text)), default=0) + 1)
     pad = " " if text.startswith("`") or text.endswith("`") else ""
     return f"{fence}{pad}{text}{pad}{fence}"
 
 
 def _fenced(value) -> str:
-    text = str(value).strip("\n")
+    text = without_invisible(value).strip("\n")
     fence = "`" * max(3, max((len(run) for run in re.findall(r"`+", text)), default=0) + 1)
     return f"{fence}\n{text}\n{fence}"
 

@@ -168,6 +168,9 @@ _TOKEN = re.compile(
     r"|(?P<name>[A-Za-z_][A-Za-z0-9_]*)"
     r"|(?P<operator>\*\*|[-+*/^(),])"
 )
+_UNICODE_OPERATORS = {"\u2212": "-", "\u00d7": "*", "\u00b7": "*", "\u22c5": "*"}
+"""Operators pasted from typeset text: the minus sign, the times sign and the dots read as * ."""
+
 _NUMBER_PARTS = re.compile(r"([0-9]*)(?:\.([0-9]*))?(?:[eE]([+-]?[0-9]+))?")
 
 
@@ -182,6 +185,10 @@ def _tokenize(text: str) -> list[_Token]:
     position = 0
     while position < len(text):
         match = _TOKEN.match(text, position)
+        if match is None and text[position] in _UNICODE_OPERATORS:
+            tokens.append(_Token("operator", _UNICODE_OPERATORS[text[position]], position + 1))
+            position += 1
+            continue
         if match is None:
             tokens.append(_Token("bad", text[position], position + 1))
             break

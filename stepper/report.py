@@ -21,7 +21,7 @@ import sympy
 
 from .record import Derivation
 from .latex import (SHORT_LATEX, ExpressionWriter, component_symbol, escape_text, frame_index,
-                    has_component_symbol, mapping_lines)
+                    has_component_symbol, mapping_lines, pdf_string)
 from .quantities import QUANTITIES, VERDICTS
 from .record import CONDITION_WORDS, HOLDS_WORDS, Decision, Method, Step, Verdict
 
@@ -721,6 +721,7 @@ class _Model:
         assumptions = dict(m.assumptions)
         return {
             "title": escape_text(m.title),
+            "pdf_title": pdf_string(m.title),
             "notes": escape_text(m.notes) if m.notes else "",
             "dimension": m.dimension,
             "coordinates": [w.symbol(n) for n in m.names],

@@ -426,7 +426,7 @@ def test_reads_back_what_the_report_writer_prints(expression: sympy.Expr) -> Non
         ("$$r$", "unexpected character '$'", 2),
         ("|r|", "unexpected character '|'", 1),
         ("r < M", "unexpected character '<'", 3),
-        ("r\u2212M", "unexpected character '\u2212' (U+2212)", 2),
+        ("r\u2013M", "unexpected character '\u2013' (U+2013)", 2),
         ("\u03b8", "unexpected character '\u03b8' (U+03B8)", 1),
         ("r\x00", "unexpected character U+0000", 2),
         ("r \\", "unexpected character '\\'", 3),

@@ -789,3 +789,10 @@ def test_generated_expressions_round_trip(tree: Node) -> None:
 def test_whitespace_does_not_matter(tree: Node, space: str) -> None:
     spaced = tree.text.replace(" ", space)
     assert parse(spaced) == tree.value, spaced
+
+
+def test_operators_pasted_from_typeset_text() -> None:
+    # U+2212 MINUS SIGN, U+00D7 MULTIPLICATION SIGN, U+00B7 MIDDLE DOT, U+22C5 DOT OPERATOR (common practice:
+    # what a PDF or a word processor gives when a formula is copied).
+    assert parse("1 \u2212 2\u00d7x\u00b7x \u22c5 3") == 1 - 6 * x**2
+    assert "unexpected character" in error_of("1 \u2013 x")  # an en dash is not a minus
