@@ -190,3 +190,38 @@ def test_the_kink_metrics_give_the_static_formula(runs):
         for value in (sympy.Rational(3, 7), sympy.Rational(-5, 2)):
             point = {s: value for s in scalar.free_symbols if s.name == "x"}
             assert sympy.simplify(scalar.subs(point).subs(sympy.DiracDelta(value), 0)) == 1 / (2 * value**2)
+
+
+# The same hang cases with the size bounds lifted: the time limit alone must stop them, wherever they
+# are (reading, factoring, expanding, simplifying), within 15 s of starting and with exit status 3.
+UNBOUNDED = """
+import sys
+import stepper.guards as guards
+guards.MAX_SUM_EXPONENT = 10**9
+guards.MAX_EXPANDED_TERMS = 10**12
+guards.MAX_FUNCTION_NESTING = 10**6
+from stepper import cli
+sys.exit(cli.main(sys.argv[1:]))
+"""
+
+HANG_CASES = {
+    "power of a sum to the 1000th": "-(M+r)^1000*dt^2 + dr^2 + r^2*dtheta^2 + r^2*sin(theta)^2*dphi^2",
+    "four-term sum to the 1000th": "-(M+r+theta+phi)^1000*dt^2 + dr^2 + r^2*dtheta^2 + r^2*sin(theta)^2*dphi^2",
+    "sin nested 150 deep": f"-dt^2 + ({NESTED_SIN})^2*dr^2 + r^2*dtheta^2 + r^2*sin(theta)^2*dphi^2",
+}
+
+
+@pytest.mark.parametrize("name", list(HANG_CASES))
+def test_the_time_limit_alone_stops_the_hang_cases(tmp_path, previous_set, name):
+    (tmp_path / "m.toml").write_text(metric_file(HANG_CASES[name]), encoding="utf-8")
+    shutil.copytree(previous_set, tmp_path / "OUT")
+    before = snapshot(tmp_path)
+    started = time.monotonic()
+    proc = subprocess.run([sys.executable, "-c", UNBOUNDED, "derive", "m.toml", "-o", "OUT", "--time-limit", "5"],
+                          cwd=tmp_path, capture_output=True, text=True, timeout=BOUND, stdin=subprocess.DEVNULL)
+    seconds = time.monotonic() - started
+    lines = proc.stderr.strip().splitlines()
+    assert proc.returncode == 3 and seconds < 15, (proc.returncode, seconds, proc.stderr[-500:])
+    assert len(lines) == 1 and lines[0].startswith("stepper: stopped: the time limit of 5 s was reached"), lines
+    assert "the previous outputs in OUT are kept" in lines[0]
+    assert snapshot(tmp_path) == before
