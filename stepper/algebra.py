@@ -792,12 +792,19 @@ def _sample_value(symbol: sympy.Symbol, rng: random.Random) -> sympy.Rational:
 
 
 def _concrete_functions(expr, functions, rng):
-    """Replace each free function by a random low-degree polynomial in its arguments."""
+    """Replace each free function by a random polynomial in its arguments: of degree 4 in each argument, with
+    every product of two arguments, so that no derivative a claim may hold (up to fourth order in one
+    variable, mixed second ones) vanishes by the choice of the polynomial alone."""
     mapping = {}
     for f in functions:
         poly = sympy.Rational(rng.randint(5, 15), 7)
         for a in f.args:
             poly += sympy.Rational(rng.randint(1, 9), 11) * a + sympy.Rational(rng.randint(1, 9), 13) * a**2
+        for a in f.args:
+            poly += sympy.Rational(rng.randint(1, 9), 17) * a**3 + sympy.Rational(rng.randint(1, 9), 19) * a**4
+        for i, a in enumerate(f.args):
+            for b in f.args[i + 1:]:
+                poly += sympy.Rational(rng.randint(1, 9), 23) * a * b
         mapping[f.func] = sympy.Lambda(f.args, poly)
     if not mapping:
         return expr

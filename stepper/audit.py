@@ -22,7 +22,8 @@ file.
 from __future__ import annotations
 
 import itertools
-from dataclasses import dataclass
+from dataclasses import dataclass, field, replace
+from typing import Any, Mapping
 
 import sympy
 from sympy.core.function import AppliedUndef
@@ -31,8 +32,9 @@ from .algebra import choose_arithmetic, printer_stable
 from .chain import canonical_lowered
 from .record import Derivation
 from .claims import Claim
-from .quantities import QUANTITIES, claimable
-from .record import Step, Verdict
+from .quantities import (QUANTITIES, claimable, component_text, in_position, index_positions, indexed_tex,
+                         position_words, route)
+from .record import Step, Verdict, as_expression
 
 AGREES, DIFFERS, UNDECIDED, UNREADABLE = "agrees", "differs", "cannot be decided", "unreadable"
 
@@ -63,6 +65,82 @@ class ClaimVerdict:
     evidence: str
     #: For an ansatz solution: the values of the recorded integration constants that make it the claim.
     constants: tuple[tuple[str, sympy.Expr], ...] = ()
+    #: The slip the diagnosis names, as data, for the slips that have a form (see :func:`slip_sentence`,
+    #: which makes the diagnosis from it): {"kind": "index_position", "positions": the other position, ...}
+    #: or {"kind": "metric_factor", "factor": [table, component]}; empty otherwise.
+    slip: Mapping[str, Any] = field(default_factory=dict)
+    #: Steps the audit recorded to check this claim: its component raised or lowered into the claimed
+    #: index position when the derivation holds none in that position.
+    steps: tuple[Step, ...] = ()
+    #: How the rewrites of :mod:`stepper.identities` decided the difference, when they were tried (as data:
+    #: the rewrites applied, the one that settled it, the function signs used, what stopped them).
+    zero_test: Mapping[str, Any] = field(default_factory=dict)
+
+
+# index positions -------------------------------------------------------------------
+def subject(claim: Claim) -> Claim:
+    """The claim as the quantity it is compared with: a claim in another index position than its quantity's
+    becomes a claim of the registry's quantity in that position (einstein "ud" is einstein_mixed); when the
+    registry has none, a claim of the tensor (its ``tensor`` entry) with the positions as ``indices``."""
+    if not claim.indices or claim.indices == QUANTITIES[claim.quantity].positions:
+        return replace(claim, indices="")
+    member = in_position(claim.quantity, claim.indices)
+    if member is not None:
+        return replace(claim, quantity=member.name, indices="")
+    return replace(claim, quantity=QUANTITIES[claim.quantity].tensor)
+
+
+def is_positioned(claim: Claim) -> bool:
+    """Is ``claim`` (a :func:`subject`) in an index position no quantity of the registry holds?"""
+    return bool(claim.indices) and in_position(claim.quantity, claim.indices) is None
+
+
+def position_step_id(tensor: str, positions: str, component: str) -> str:
+    return f"position/{tensor}/{positions}/{component}"
+
+
+_DUMMIES = "cdefhkmnpqs"
+
+
+def _factor_text(factor) -> str:
+    table, key = factor
+    return component_text("g", "uu" if table == "inverse_metric" else "dd", key.split(","))
+
+
+def relation_text(tensor: str, positions: str, other: str, component: str, terms: list) -> str:
+    """X in ``positions`` at ``component`` written with X in ``other`` positions: G^t_t = g^tt G_tt; when the
+    sum has more than four terms, with dummy indices (G^t_r = g^tc G_cr, summed over c)."""
+    symbol = QUANTITIES[tensor].symbol
+    names = component.split(",")
+    lhs = component_text(symbol, positions, names)
+    if len(terms) <= 4:
+        shown = [" ".join([_factor_text(f) for f in t["factors"]] +
+                          [component_text(symbol, other, t["component"].split(","))]) for t in terms]
+        return f"{lhs} = {' + '.join(shown) or '0'}"
+    free = [d for d in _DUMMIES if d not in names]
+    inner, factors, used = list(names), [], []
+    for k, (old, new) in enumerate(zip(other, positions)):
+        if old != new:
+            dummy = free[len(used)]
+            used.append(dummy)
+            factors.append(component_text("g", new * 2, [names[k], dummy]))
+            inner[k] = dummy
+    return f"{lhs} = {' '.join(factors)} {component_text(symbol, other, inner)}, summed over {', '.join(used)}"
+
+
+def slip_sentence(slip: Mapping[str, Any]) -> str:
+    """The diagnosis in words, made from the slip's data (ClaimVerdict.slip)."""
+    if slip.get("kind") == "index_position":
+        tensor, component = slip["tensor"], slip["component"]
+        other = component_text(QUANTITIES[tensor].symbol, slip["positions"], component.split(","))
+        relation = relation_text(tensor, slip["claimed"], slip["positions"], component, slip["terms"])
+        return (f"an index raised or lowered: the claim is {other}, the component with "
+                f"{position_words(slip['positions'])}; {relation}")
+    if slip.get("kind") == "metric_factor":
+        g = _factor_text(slip["factor"])
+        words = "inverse-metric" if slip["factor"][0] == "inverse_metric" else "metric"
+        return f"off by a factor of the {words} component {g}: the claim is {g} times the correct value"
+    raise ValueError(f"unknown slip {slip.get('kind')!r}")
 
 
 def _unknown_named(derivation: Derivation, name: str) -> sympy.Expr | None:
@@ -179,6 +257,8 @@ class Auditor:
         self.lam = fe.get("cosmological_constant", sympy.Integer(0))
         self.fitted: dict[sympy.Symbol, sympy.Expr] = {}  # integration constants fixed by earlier claims
         self.fitted_by: dict[sympy.Symbol, int] = {}
+        self.moved: dict[tuple[str, str, str], sympy.Expr] = {}  # components raised or lowered, unsimplified
+        self.position_steps: dict[str, Step] = {}
 
     def arithmetic_for(self, *expressions: sympy.Expr):
         coordinates = set(self.m.coordinates)
@@ -188,9 +268,26 @@ class Auditor:
         return choose_arithmetic(self.m.coordinates, list(self.m.matrix) + list(expressions), tuple(known) + tuple(extra))
 
     def vanishes(self, expr: sympy.Expr) -> tuple[bool | None, str]:
+        original = expr
         expr = expr.xreplace({sympy.pi: PI})
         A = self.arithmetic_for(expr)
         test = A.zero_test(A.from_expr(expr))
+        # The stronger zero test (stepper.identities) where the arithmetic's own could not prove a zero:
+        # rewrites that settle trigonometric, hyperbolic, exponential and logarithmic identities, with free
+        # functions carrying their declared signs.  A "non-zero" found by sampling, which gives free
+        # functions no declared sign, is re-examined when the expression holds a function with one.
+        # What it found, as data, is kept in self.identity_tests (keyed by the expression tested).
+        from .identities import prove_zero, uses_signed_functions
+        signs = self.m.function_signs
+        if test.vanishes is True or (test.vanishes is False and
+                                     (A.name == "field" or not uses_signed_functions(original, signs))):
+            return test.vanishes, test.evidence
+        found = prove_zero(original, signs)
+        self.__dict__.setdefault("identity_tests", {})[original] = found
+        if found.vanishes:
+            return True, found.sentence()
+        if test.vanishes is None:
+            return None, f"{test.evidence}; {found.sentence()}"
         return test.vanishes, test.evidence
 
     def simplified(self, expr: sympy.Expr) -> sympy.Expr:
@@ -198,26 +295,138 @@ class Auditor:
         A = self.arithmetic_for(expr)
         return A.to_expr(A.from_expr(expr)).xreplace({PI: sympy.pi})
 
+    # index positions --------------------------------------------------------
+    def value_in(self, quantity: str, positions: str, component: str) -> sympy.Expr:
+        """The component of the tensor of ``quantity`` in ``positions``: recorded when the registry has a
+        quantity in that position, else raised or lowered from one (unsimplified)."""
+        member = in_position(quantity, positions)
+        if member is not None:
+            return correct_value(self.d, member.name, component)[0]
+        key = (QUANTITIES[quantity].tensor, positions, component)
+        if key not in self.moved:
+            source, _, _ = route(quantity, positions)
+            self.moved[key] = self.moved_from(source.name, source.positions, positions, component)[0]
+        return self.moved[key]
+
+    def moved_from(self, source: str, source_positions: str, positions: str, component: str) -> tuple[sympy.Expr, list]:
+        """The component in ``positions`` from the tensor in ``source_positions`` (the registry quantity
+        ``source`` or, when none holds that position, the value :meth:`value_in` gives): each index that is
+        down there and up here raised with g^ab, each the other way lowered with g_ab.  With the non-zero
+        terms as data: [{"factors": [[table, component], ...], "component": the source's component}]."""
+        names = component.split(",")
+        slots = [k for k, (old, new) in enumerate(zip(source_positions, positions)) if old != new]
+        results = self.d.results
+        total, terms = sympy.Integer(0), []
+        for dummies in itertools.product(self.m.names, repeat=len(slots)):
+            factors, product, inner = [], sympy.Integer(1), list(names)
+            for k, e in zip(slots, dummies):
+                table = "inverse_metric" if positions[k] == "u" else "metric"
+                key = f"{names[k]},{e}"
+                g = as_expression(results.get(table, {}).get(key, 0))
+                if g == 0:
+                    break
+                factors.append([table, key])
+                product *= g
+                inner[k] = e
+            else:
+                key = ",".join(inner)
+                value = (correct_value(self.d, source, key)[0] if QUANTITIES[source].positions == source_positions
+                         else self.value_in(source, source_positions, key))
+                if value == 0:
+                    continue
+                terms.append({"factors": factors, "component": key})
+                total += product * value
+        return total, terms
+
+    def position_step(self, quantity: str, positions: str, component: str) -> Step:
+        """The step that raises or lowers a component into ``positions`` for the audit (one per tensor,
+        position and component, however many claims read it)."""
+        tensor = QUANTITIES[quantity].tensor
+        step_id = position_step_id(tensor, positions, component)
+        if step_id in self.position_steps:
+            return self.position_steps[step_id]
+        source, kind, slots = route(quantity, positions)
+        total, terms = self.moved_from(source.name, source.positions, positions, component)
+        value = printer_stable(self.simplified(total))
+        metric = "inverse_metric" if kind == "raising" else "metric"
+        uses = [metric]
+        for term in terms:
+            _, used = correct_value(self.d, source.name, term["component"])
+            if used not in uses:
+                uses.append(used)
+        if len(uses) == 1:
+            uses.append(correct_value(self.d, source.name, component)[1])
+        head = QUANTITIES[tensor].symbol
+        names = component.split(",")
+        letters = "abcdef"[:len(positions)]
+        dummies = [d for d in "cdefhk" if d not in letters]
+        inner = list(letters)
+        metric_tex = []
+        for n, k in enumerate(slots):
+            inner[k] = dummies[n]
+            metric_tex.append(indexed_tex("g", positions[k] * 2, [letters[k], dummies[n]]))
+        staggered = QUANTITIES[tensor].staggered
+        general = (indexed_tex(head, positions, list(letters), staggered) + " = " + " ".join(metric_tex) + " "
+                   + indexed_tex(head, source.positions, inner, staggered))
+        tex = ["{" + sympy.latex(sympy.Symbol(n)) + "}" for n in names]
+        shown = []
+        for term in terms:
+            factor_tex = [indexed_tex("g", "uu" if table == "inverse_metric" else "dd",
+                                      ["{" + sympy.latex(sympy.Symbol(n)) + "}" for n in key.split(",")])
+                          for table, key in term["factors"]]
+            source_tex = indexed_tex(head, source.positions,
+                                     ["{" + sympy.latex(sympy.Symbol(n)) + "}" for n in term["component"].split(",")],
+                                     staggered)
+            shown.append(" ".join(factor_tex) + " " + source_tex)
+        what = component_text(head, positions, names)
+        step = Step(
+            id=step_id, kind=kind, stage="audit", quantity=tensor, component=component,
+            annotation=(f"The {QUANTITIES[tensor].words} with {position_words(positions)}, {what}, for the audit: "
+                        f"{'raised' if kind == 'raising' else 'lowered'} from the {QUANTITIES[source.name].words} "
+                        f"with the {'inverse metric' if kind == 'raising' else 'metric'}."),
+            formula=general,
+            substituted=indexed_tex(head, positions, tex, staggered) + " = " + (" + ".join(shown) or "0"),
+            uses=tuple(uses), result=value,
+            params={"positions": positions, "source": source.name, "source_positions": source.positions,
+                    "slots": list(slots), "terms": terms})
+        self.position_steps[step_id] = step
+        return step
+
     def check(self, claim: Claim) -> ClaimVerdict:
+        seen = subject(claim)
         component = "" if QUANTITIES[claim.quantity].rank == 0 else claim.component
-        correct, step_id = correct_value(self.d, claim.quantity, component)
-        missing = unavailable(self.d, claim.quantity, component)
-        if missing:
-            return ClaimVerdict(claim, UNDECIDED, step_id, None, None, "", missing)
+        steps: tuple[Step, ...] = ()
+        if is_positioned(seen):
+            source, _, _ = route(seen.quantity, seen.indices)
+            missing = unavailable(self.d, source.name, component)
+            if missing:
+                return ClaimVerdict(claim, UNDECIDED, correct_value(self.d, source.name, component)[1], None, None,
+                                    "", missing)
+            step = self.position_step(seen.quantity, seen.indices, component)
+            correct, step_id, steps = step.result, step.id, (step,)
+        else:
+            correct, step_id = correct_value(self.d, seen.quantity, component)
+            missing = unavailable(self.d, seen.quantity, component)
+            if missing:
+                return ClaimVerdict(claim, UNDECIDED, step_id, None, None, "", missing)
         if claim.expr is None:
             return ClaimVerdict(claim, UNREADABLE, step_id, correct, None, "",
-                                f"the claimed value could not be read: {claim.problem}")
+                                f"the claimed value could not be read: {claim.problem}", steps=steps)
         if claim.quantity == "ansatz_solution":
             return self.check_solution(claim, correct, step_id)
         difference = claim.expr - correct
         zero, evidence = self.vanishes(difference)
+        found = getattr(self, "identity_tests", {}).get(difference)
+        zero_test = found.as_data() if found is not None else {}
         if zero is True:
-            return ClaimVerdict(claim, AGREES, step_id, correct, sympy.Integer(0), "", f"the difference: {evidence}")
+            return ClaimVerdict(claim, AGREES, step_id, correct, sympy.Integer(0), "", f"the difference: {evidence}",
+                                steps=steps, zero_test=zero_test)
         if zero is None:
             return ClaimVerdict(claim, UNDECIDED, step_id, correct, self.simplified(difference), "",
-                                f"the difference: {evidence}")
+                                f"the difference: {evidence}", steps=steps, zero_test=zero_test)
+        words, slip = self.diagnosis(seen, correct)
         return ClaimVerdict(claim, DIFFERS, step_id, correct, self.simplified(difference),
-                            self.diagnose(claim, correct), f"the difference: {evidence}")
+                            words, f"the difference: {evidence}", slip=slip, steps=steps)
 
     # ansatz solutions -------------------------------------------------------
     def recorded_constants(self) -> list[sympy.Symbol]:
@@ -316,22 +525,73 @@ class Auditor:
 
     # slips ----------------------------------------------------------------
     def diagnose(self, claim: Claim, correct: sympy.Expr) -> str:
+        return self.diagnosis(claim, correct)[0]
+
+    def diagnosis(self, claim: Claim, correct: sympy.Expr) -> tuple[str, dict]:
+        """The likely slip in words, and as data when it has a form (see :func:`slip_sentence`).  ``claim``
+        is the :func:`subject` of the claim as written."""
         claimed = claim.expr
         if self.vanishes(correct)[0]:
-            return "the correct value is 0: this component vanishes"
+            return "the correct value is 0: this component vanishes", {}
         if self.vanishes(claimed)[0]:
-            return "the claim says 0, but this component does not vanish"
+            return "the claim says 0, but this component does not vanish", {}
         special = self.matter_slip(claim, correct) or self.geodesic_slip(claim, correct)
         if special:
-            return special
+            return special, {}
         ratio = self.simplified(claimed / correct)
         words = self.ratio_words(ratio, claim.quantity)
-        if words:
-            return words
+        if words:  # a constant factor first: where g_tt g_rr = -1, a sign flip is also an index moved
+            return words, {}
+        slip = self.index_position_slip(claim)
+        if slip:
+            return slip_sentence(slip), slip
+        slip = self.metric_factor_slip(claim, correct)
+        if slip:
+            return slip_sentence(slip), slip
         swapped = self.swapped_indices(claim)
         if swapped:
-            return swapped
-        return "no typical slip explains the difference"
+            return swapped, {}
+        return "no typical slip explains the difference", {}
+
+    def other_positions(self, claim: Claim) -> list[str]:
+        """The index positions of the claim's tensor other than the claimed one: the registry's first (in
+        its order), then the others, fewest changed indices first."""
+        if claim.quantity not in QUANTITIES or not index_positions(claim.quantity) or not claim.component:
+            return []
+        positions = claim.positions
+        known = [p for p in index_positions(claim.quantity) if p != positions]
+        rest = sorted((("".join(p) for p in itertools.product("ud", repeat=len(positions))
+                        if "".join(p) != positions and "".join(p) not in known)),
+                      key=lambda p: (sum(a != b for a, b in zip(p, positions)), p.replace("u", "0").replace("d", "1")))
+        return known + rest
+
+    def index_position_slip(self, claim: Claim) -> dict:
+        """The claimed value is the same component in another index position (G_tt claimed as G^t_t)."""
+        positions = claim.positions
+        for other in self.other_positions(claim):
+            value = self.value_in(claim.quantity, other, claim.component)
+            if value == 0 or self.vanishes(claim.expr - value)[0] is not True:
+                continue
+            _, terms = self.moved_from(claim.quantity, other, positions, claim.component)
+            return {"kind": "index_position", "tensor": QUANTITIES[claim.quantity].tensor,
+                    "component": claim.component, "claimed": positions, "positions": other, "terms": terms}
+        return {}
+
+    def metric_factor_slip(self, claim: Claim, correct: sympy.Expr) -> dict:
+        """claimed / correct is a component of the metric or of its inverse (a factor g_rr too many)."""
+        q = QUANTITIES.get(claim.quantity)
+        if q is None or not q.positions or set(q.positions) - {"u", "d"}:
+            return {}
+        names = self.m.names
+        for table in ("metric", "inverse_metric"):
+            for key, g in self.d.results.get(table, {}).items():
+                i, j = key.split(",")
+                g = as_expression(g)
+                if names.index(i) > names.index(j) or g.is_number:
+                    continue
+                if self.vanishes(claim.expr - g * correct)[0] is True:
+                    return {"kind": "metric_factor", "factor": [table, key]}
+        return {}
 
     def ratio_words(self, ratio: sympy.Expr, quantity: str) -> str:
         if not ratio.is_Rational:
@@ -389,6 +649,9 @@ class Auditor:
                     "frame_stress_energy": "G_" + "".join(f"({x})" for x in c.split(",")),
                     "energy_density": f"G_({frame})({frame})",
                     "pressure": f"G_({c})({c})"}[q]
+        if is_positioned(claim):  # T in a position of its own: Lambda multiplies g in that position
+            metric_part = self.value_in("metric", claim.indices, c)
+            einstein = component_text("G", claim.indices, c.split(","))
         candidates = []
         if self.lam == 0:
             candidates.append((kappa * correct, f"a missing 1/({kappa_words}): the claim is {kappa_words} times "
@@ -464,7 +727,9 @@ class Auditor:
             other = [parts[i] for i in order]
             if other == parts:
                 continue
-            value, _ = correct_value(self.d, claim.quantity, ",".join(other))
+            key = ",".join(other)
+            value = (self.value_in(claim.quantity, claim.indices, key) if is_positioned(claim)
+                     else correct_value(self.d, claim.quantity, key)[0])
             if self.vanishes(claim.expr - value)[0]:
                 return (f"swapped indices: the claim equals the component ({','.join(other)}) "
                         f"rather than ({claim.component})")
@@ -526,6 +791,12 @@ def _sources(derivation: Derivation, quantity: str, component: str) -> set[str] 
         out = {"inverse_metric"}
         out |= {f"stress_energy/{_pair(derivation, k, j)}" for k in names if nonzero("inverse_metric", i, k)}
         return out & ids
+    if quantity in ("ricci_mixed", "einstein_mixed"):
+        i, j = parts
+        lowered = QUANTITIES[quantity].tensor
+        out = {"inverse_metric"}
+        out |= {f"{lowered}/{_pair(derivation, k, j)}" for k in names if nonzero("inverse_metric", i, k)}
+        return out & ids
     if quantity == "stress_energy_up":
         i, j = parts
         out = {"inverse_metric"}
@@ -567,9 +838,30 @@ def _expand(derivation: Derivation, before: dict[str, set[str]], step_id: str) -
     return {step_id} | before.get(step_id, set())
 
 
+def _moved_sources(derivation: Derivation, step: Step) -> set[str]:
+    """What a component raised or lowered for the audit is built from: the metric components it was
+    multiplied by and the components it was raised or lowered from (with what those are built from)."""
+    source = step.params["source"]
+    out: set[str] = set()
+    for term in step.params["terms"]:
+        out |= {f"{table}#{key}" for table, key in term["factors"]}
+        inner = _sources(derivation, source, term["component"])
+        if inner is None:
+            _, used = correct_value(derivation, source, term["component"])
+            table_step = used in (QUANTITIES[source].step_id, "metric")
+            inner = {f"{used}#{term['component']}" if table_step else used}
+        out |= inner
+    return out
+
+
 def _upstream(derivation: Derivation, before: dict[str, set[str]], v: ClaimVerdict) -> set[str]:
     """Every step, and every component of a table step, the claimed value depends on."""
-    sources = _sources(derivation, v.claim.quantity, v.claim.component)
+    seen = subject(v.claim)
+    moved = next((s for s in v.steps if s.id == v.checked_against), None)
+    if moved is not None:
+        sources = _moved_sources(derivation, moved)
+    else:
+        sources = _sources(derivation, seen.quantity, seen.component)
     if sources is None:
         return set(before.get(v.checked_against, set()))
     out: set[str] = set()
@@ -577,7 +869,9 @@ def _upstream(derivation: Derivation, before: dict[str, set[str]], v: ClaimVerdi
         if "#" in s:  # one component of a table: what that component is built from
             out.add(s)
             step, component = s.split("#", 1)
-            inner = _sources(derivation, step, component) if step in ("frame_stress_energy", "frame_ricci") else None
+            refined = ("frame_stress_energy", "frame_ricci", "stress_energy_mixed", "stress_energy_up", "ricci_mixed",
+                       "einstein_mixed")
+            inner = _sources(derivation, step, component) if step in refined else None
             if inner is None:
                 out |= before.get(step, set())
             else:
@@ -588,9 +882,21 @@ def _upstream(derivation: Derivation, before: dict[str, set[str]], v: ClaimVerdi
     return out
 
 
+def audit_steps(verdicts: list[ClaimVerdict]) -> list[Step]:
+    """The steps the audit recorded to check the claims (components raised or lowered), each once."""
+    steps: dict[str, Step] = {}
+    for v in verdicts:
+        for step in v.steps:
+            steps.setdefault(step.id, step)
+    return list(steps.values())
+
+
 def earliest_wrong(derivation: Derivation, verdicts: list[ClaimVerdict]) -> list[int]:
     """Numbers of the wrong claims that depend on no other wrong claim."""
     wrong = [v for v in verdicts if v.outcome == DIFFERS]
+    extra = tuple(s for s in audit_steps(verdicts) if s.id not in {t.id for t in derivation.steps})
+    if extra:
+        derivation = derivation.with_steps(extra, {})
     before = ancestors(derivation)
     roots = []
     for v in wrong:
@@ -610,7 +916,7 @@ def audit(derivation: Derivation, claims: list[Claim]) -> tuple[list[ClaimVerdic
 def record_audit(derivation: Derivation, title: str, verdicts: list[ClaimVerdict], earliest: list[int]) -> Derivation:
     """A new derivation: this one with a step per claim and an ``audit`` entry in the results."""
     rows = []
-    steps = []
+    steps = [s for s in audit_steps(verdicts) if s.id not in {t.id for t in derivation.steps}]
     for v in verdicts:
         c = v.claim
         holds = {AGREES: True, DIFFERS: False}.get(v.outcome)
@@ -620,6 +926,12 @@ def record_audit(derivation: Derivation, title: str, verdicts: list[ClaimVerdict
         params = {"number": c.number, "label": c.label, "quantity": c.quantity, "component": c.component,
                   "syntax": c.syntax, "text": c.text, "outcome": v.outcome, "diagnosis": v.diagnosis,
                   "earliest_wrong": c.number in earliest}
+        if c.indices:
+            params["indices"] = c.indices
+        if v.slip:
+            params["slip"] = dict(v.slip)
+        if v.zero_test:
+            params["zero_test"] = dict(v.zero_test)
         if c.expr is not None:
             params["claimed"] = printer_stable(c.expr)
         if v.correct is not None:
@@ -634,7 +946,9 @@ def record_audit(derivation: Derivation, title: str, verdicts: list[ClaimVerdict
             formula=r"X_{\text{claimed}} - X_{\text{derived}} = 0", uses=(v.checked_against,),
             result=Verdict(f"{c.name} agrees with the derivation", holds, evidence), params=params))
         rows.append({"number": c.number, "label": c.label, "quantity": c.quantity, "component": c.component,
+                     **({"indices": c.indices} if c.indices else {}),
                      "syntax": c.syntax, "text": c.text, "outcome": v.outcome, "diagnosis": v.diagnosis,
+                     **({"slip": dict(v.slip)} if v.slip else {}),
                      "evidence": v.evidence, "checked_against": v.checked_against,
                      **({"claimed": printer_stable(c.expr)} if c.expr is not None else {}),
                      **({"correct": v.correct} if v.correct is not None else {}),

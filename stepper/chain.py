@@ -731,7 +731,8 @@ class _Chain:
                         formula=q.formula, uses=("inverse_metric", summary), result=components)
 
     # verdicts -----------------------------------------------------------
-    def _verdict(self, name: str, statement: str, residues: dict, uses: tuple, extra: str = "") -> Verdict:
+    def _verdict(self, name: str, statement: str, residues: dict, uses: tuple, extra: str = "",
+                 params: dict | None = None) -> Verdict:
         """All residues vanish -> holds; the first that does not is named as evidence."""
         undecided = []
         for key, element in residues.items():
@@ -751,7 +752,7 @@ class _Chain:
                                   f"each of the {len(residues)} components checked vanishes ({how})" + extra)
         self.results.setdefault("verdicts", {})[name] = {"holds": verdict.holds, "evidence": verdict.evidence}
         self.record(id=f"verdict/{name}", kind="verdict", quantity=name, annotation=statement, formula=formula(name),
-                    uses=uses, result=verdict)
+                    uses=uses, result=verdict, params=params or {})
         return verdict
 
     def verdict_ricci_flat(self) -> None:
@@ -767,10 +768,29 @@ class _Chain:
         residues = {f"R_{self.key(i, j)} - lambda g_{self.key(i, j)}": self.ric[i][j] - lam * self.g[i][j]
                     for i in range(n) for j in range(i, n)}
         extra = f"; lambda = R/{n} = {self.expr(lam)}"
+        params = {}
         if n == 2:
+            constant = self.constancy(lam)
+            params["lambda_constant"] = constant
             extra += "; in two dimensions every metric satisfies R_ij = (R/2) g_ij"
+            if constant is False:
+                extra += (", and here lambda = R/2 is not constant: this is that identity, not an Einstein space "
+                          "with a constant lambda (the surface does not have constant curvature)")
+            elif constant:
+                extra += ", and here lambda is constant: a surface of constant curvature"
         self._verdict("einstein_space", f"Einstein manifold: R_ij = lambda g_ij with lambda = R/{n}.", residues,
-                      ("scalar", "metric", "ricci/symmetry"), extra)
+                      ("scalar", "metric", "ricci/symmetry"), extra, params)
+
+    def constancy(self, element) -> bool | None:
+        """Whether ``element`` is constant: True when every coordinate derivative vanishes, False when one
+        does not, None when the zero test cannot decide one."""
+        undecided = False
+        for i in range(self.n):
+            test = self.A.zero_test(self.A.diff(element, i))
+            if test.vanishes is False:
+                return False
+            undecided = undecided or test.vanishes is None
+        return None if undecided else True
 
     def riemann_lowered(self) -> None:
         n, A, g, R = self.n, self.A, self.g, self.R

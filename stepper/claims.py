@@ -12,10 +12,13 @@ A claims file is TOML::
     quantity = "christoffel"     # a claimable quantity of stepper.quantities
     component = "r,t,t"          # coordinate names; omit for scalars; for a pressure the
                                  # frame direction, for ansatz_solution the unknown function
-    value = "M*(r - 2*M)/r^3"    # stepper's plain syntax ...
-    # latex = "\\frac{M(r-2M)}{r^{3}}"   # ... or LaTeX as printed in a paper (TOML literal strings
-    #                                    #     '...' need no doubled backslashes)
+    value = "M*(r - 2*M)/r^3"    # stepper's plain syntax (derivatives: diff(w, x), diff(w, x, y), diff(w, x, 2)) ...
+    # latex = '''\\frac{M(r-2M)}{r^{3}}'''  # ... or LaTeX as printed in a paper: a triple-quoted literal string
+    #                                    #     needs no doubled backslashes and may hold primes (a'(t))
     label = "my notes, eq. 4"    # optional, shown in the report
+    # indices = "ud"             # optional: the index positions, one letter per index, u up, d down
+    #                            # (metric, Ricci, Einstein, stress-energy, Riemann, Weyl; default: the
+    #                            # quantity's own, as in stepper.quantities); G^t_t is einstein "t,t" "ud"
 
 Matter quantities (stress_energy, ..., pressure) need a [matter] table in the
 metric file, ansatz_solution an [ansatz] table; without them the claims are
@@ -33,6 +36,7 @@ unreadable; the other claims are still checked.
 
 from __future__ import annotations
 
+import shlex
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -43,12 +47,12 @@ from .latex_input import parse_latex
 from .metric import Metric
 from .metricfile import load_metric, read_toml
 from .parse import Vocabulary, check_identifier, parse_expression
-from .quantities import claimable
+from .quantities import QUANTITIES, claimable, index_positions
 
 #: Integration constants a claim may always use (the names stepper gives them).
 DEFAULT_CONSTANTS = tuple(f"C{k}" for k in range(1, 10))
 
-CLAIM_KEYS = ("quantity", "component", "value", "latex", "label")
+CLAIM_KEYS = ("quantity", "component", "value", "latex", "label", "indices")
 FILE_KEYS = ("metric", "title", "constants", "claim")
 
 
@@ -64,11 +68,19 @@ class Claim:
     syntax: str
     expr: sympy.Expr | None
     problem: str = ""
+    #: The index positions as the claims file gave them ("ud": first up, second down); "" when not given.
+    indices: str = ""
+
+    @property
+    def positions(self) -> str:
+        """The index positions claimed: ``indices`` when given, else the quantity's own (stepper.quantities)."""
+        return self.indices or QUANTITIES[self.quantity].positions
 
     @property
     def name(self) -> str:
         where = f" {self.component}" if self.component else ""
-        return f"claim {self.number} ({self.quantity}{where})"
+        indices = f", indices {self.indices}" if self.indices else ""
+        return f"claim {self.number} ({self.quantity}{where}{indices})"
 
 
 def metric_vocabulary(metric: Metric) -> Vocabulary:
@@ -78,7 +90,7 @@ def metric_vocabulary(metric: Metric) -> Vocabulary:
     for s in getattr(metric, "extra_symbols", ()):
         symbols.setdefault(s.name, s)
     functions = {f.func.__name__: f for f in metric.functions}
-    return Vocabulary(symbols, functions, dict(metric.abbreviations))
+    return Vocabulary(symbols, functions, dict(metric.abbreviations), coordinates=tuple(metric.names))
 
 
 def velocity_symbols(metric: Metric) -> dict[str, sympy.Symbol]:
@@ -99,9 +111,11 @@ def claim_vocabulary(metric: Metric, quantity: str, constants: tuple[str, ...] =
     geodesic acceleration and integration constants for an ansatz solution."""
     base = metric_vocabulary(metric)
     if quantity == "geodesic_acceleration":
-        return Vocabulary({**base.symbols, **velocity_symbols(metric)}, base.functions, base.abbreviations)
+        return Vocabulary({**base.symbols, **velocity_symbols(metric)}, base.functions, base.abbreviations,
+                          coordinates=base.coordinates)
     if quantity == "ansatz_solution":
-        return Vocabulary({**constant_symbols(metric, constants), **base.symbols}, base.functions, base.abbreviations)
+        return Vocabulary({**constant_symbols(metric, constants), **base.symbols}, base.functions, base.abbreviations,
+                          coordinates=base.coordinates)
     return base
 
 
@@ -109,6 +123,11 @@ def load_claims(path: str | Path) -> tuple[Metric, str, list[Claim]]:
     """The metric the claims are about, the title, and the claims."""
     path = Path(path)
     data = read_toml(path)
+    if "metric" not in data and "claim" not in data and any(
+            key in data for key in ("coordinates", "line_element", "components")):
+        raise InputError(f"{path.name} is a metric file; stepper audit expects a claims file (see README, "
+                         f"'Auditing a hand calculation') — to derive the metric use: "
+                         f"stepper derive {shlex.quote(str(path))}")
     unknown = [k for k in data if k not in FILE_KEYS]
     if unknown:
         raise InputError(f"unknown key '{unknown[0]}' in {path.name} (known keys: {', '.join(FILE_KEYS)})")
@@ -169,6 +188,7 @@ def read_claim(number: int, entry: dict, metric: Metric, vocabulary: Vocabulary 
     label = entry.get("label", "")
     if not isinstance(label, str):
         raise InputError(f"{where}: label must be text")
+    indices = read_indices(where, entry, quantity)
     has_plain, has_latex = "value" in entry, "latex" in entry
     if has_plain == has_latex:
         raise InputError(f"{where}: give exactly one of 'value' (plain syntax) and 'latex'")
@@ -186,4 +206,28 @@ def read_claim(number: int, entry: dict, metric: Metric, vocabulary: Vocabulary 
         problem = ""
     except InputError as err:
         expr, problem = None, err.message
-    return Claim(number, label, quantity, ",".join(parts), text, syntax, expr, problem)
+    return Claim(number, label, quantity, ",".join(parts), text, syntax, expr, problem, indices)
+
+
+def read_indices(where: str, entry: dict, quantity: str) -> str:
+    """The claim's ``indices``: one letter per index, u (up) or d (down); "" when not given.  Only the
+    quantities that are one index position of a tensor (stepper.quantities, ``tensor``) take it."""
+    if "indices" not in entry:
+        return ""
+    value = entry["indices"]
+    q = QUANTITIES[quantity]
+    if not index_positions(quantity):
+        tensors = ", ".join(name for name, other in claimable().items() if other.tensor == name)
+        what = "it is a scalar" if q.rank == 0 else "its indices stay where stepper.quantities puts them"
+        raise InputError(f"{where}: {quantity} has no index positions to choose ({what}); 'indices' is for "
+                         f"the tensors {tensors} and their mixed forms")
+    example = "u" + "d" * (q.rank - 1)
+    if not isinstance(value, str) or not value or set(value) - {"u", "d"}:
+        shown = (repr(value) if len(value) <= 12 else "other letters") if isinstance(value, str) \
+            else type(value).__name__
+        raise InputError(f"{where}: 'indices' must be one letter per index, u (up) or d (down), such as "
+                         f"\"{example}\"; got {shown}")
+    if len(value) != q.rank:
+        raise InputError(f"{where}: {quantity} has {q.rank} indices, so 'indices' needs {q.rank} letters "
+                         f"(u up, d down), such as \"{example}\"; got {len(value)}")
+    return value

@@ -69,7 +69,18 @@ def build_parser() -> argparse.ArgumentParser:
     render.add_argument("--formats", metavar="LIST", help="comma-separated outputs to write (as for derive)")
     render.add_argument("--templates", metavar="DIR",
                         help="folder of templates that override the project's templates/ (same file names)")
+    _add_appendix_options(render)
     return parser
+
+
+def _add_appendix_options(run: argparse.ArgumentParser) -> None:
+    from .exporters import HEADING_LEVELS
+    run.add_argument("--appendix-heading", choices=HEADING_LEVELS, default="section",
+                     help="top heading level of appendix.tex (default: section)")
+    run.add_argument("--anchor-prefix", metavar="TEXT",
+                     help="start of every link target in appendix.tex (letters, digits, - . :); default: made "
+                          "from the metric's title and a hash of its line element, so that appendices of "
+                          "different metrics can share one paper")
 
 
 def _add_output_options(run: argparse.ArgumentParser) -> None:
@@ -89,6 +100,7 @@ def _add_output_options(run: argparse.ArgumentParser) -> None:
                           "writing the reports) takes longer than this")
     run.add_argument("--templates", metavar="DIR",
                      help="folder of templates that override the project's templates/ (same file names)")
+    _add_appendix_options(run)
 
 
 class _Progress:
@@ -135,6 +147,8 @@ def summary(derivation: Derivation, out_dir: Path, written: Sequence[str]) -> st
                      f"at {len(numeric['points'])} random points")
     for key, verdict in derivation.results.get("verdicts", {}).items():
         word = HOLDS_WORDS[verdict["holds"]]
+        if key == "einstein_space" and derivation.step("verdict/einstein_space").params.get("lambda_constant") is False:
+            word += " only as the two-dimensional identity R_ij = (R/2) g_ij: lambda = R/2 is not constant"
         evidence = verdict["evidence"]
         if len(evidence) > 110:
             evidence = evidence[:107] + "..."
@@ -228,6 +242,9 @@ def _default_folder(input_file: str) -> Path:
 
 def _output_options(args: argparse.Namespace, out_dir: Path) -> tuple[list[str], list[Path]]:
     formats = _formats(args.formats)
+    from .exporters import valid_anchor_prefix
+    if args.anchor_prefix is not None and not valid_anchor_prefix(args.anchor_prefix):
+        raise InputError("--anchor-prefix may hold only letters, digits, '-', '.' and ':' (at most 64)")
     check_output_folder(out_dir)
     templates = [Path(args.templates)] if args.templates else []
     if templates and not templates[0].is_dir():
@@ -259,14 +276,15 @@ def _export_and_write(args: argparse.Namespace, derivation: Derivation, out_dir:
     # Imported here so that a run writing only trace.json does not pay for templates and TeX.
     import jinja2
 
-    from .exporters import EXPORTERS, TexFailed, TexMissing
+    from .exporters import EXPORTERS, AppendixExporter, TexFailed, TexMissing
     from .trace import load_trace, trace_json
     text = trace_json(derivation)
     record = load_trace(text, validate=False)  # every exporter reads what the trace holds, nothing else
     contents: dict[str, str | bytes] = {}
     problems: list[str] = []
     for name in formats:
-        exporter = EXPORTERS[name](templates)
+        exporter = (AppendixExporter(templates, args.appendix_heading, args.anchor_prefix) if name == "appendix"
+                    else EXPORTERS[name](templates))
         args.progress(f"writing {exporter.file_name}", 0, 1)
         try:
             contents[exporter.file_name] = text if name == "trace" else exporter.export(record)
@@ -323,6 +341,7 @@ def audit_summary(derivation: Derivation) -> str:
     lines = [f"Audit: {report['title']}"]
     for row in report["claims"]:
         where = f" {row['component']}" if row["component"] else ""
+        where += f", indices {row['indices']}" if row.get("indices") else ""
         label = f" [{row['label']}]" if row["label"] else ""
         line = f"  claim {row['number']} ({row['quantity']}{where}){label}: {row['outcome']}"
         if row["outcome"] == "differs":

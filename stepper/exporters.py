@@ -106,9 +106,14 @@ class _TemplateExporter(Exporter):
 
     def export(self, derivation: Derivation) -> str:
         from .report import report_model
-        environment = template_environment(self.templates)
+        from .latex import display_formula
+        environment = template_environment(self.templates, filters={"display": display_formula})
         template = environment.get_template(self.template_name)
-        return template.render(preamble=latex_preamble(), **report_model(derivation))
+        return template.render(preamble=latex_preamble(), **self.settings(derivation), **report_model(derivation))
+
+    def settings(self, derivation: Derivation) -> dict:
+        """Template variables of this output beyond the record's content."""
+        return {}
 
 
 class ReportExporter(_TemplateExporter):
@@ -116,9 +121,48 @@ class ReportExporter(_TemplateExporter):
     template_name = "latex/report.tex.j2"
 
 
+HEADING_LEVELS = ("chapter", "section", "subsection")
+"""Top heading levels an appendix may start at; each level's subdivision is the next one down."""
+
+_SUBDIVISION = {"chapter": "section", "section": "subsection", "subsection": "subsubsection"}
+
+
 class AppendixExporter(_TemplateExporter):
+    """appendix.tex, to ``\\input`` into a paper.
+
+    ``heading`` is its top heading level (one of HEADING_LEVELS; default section).  ``anchor_prefix``
+    starts every link target it defines, so that several appendices live in one paper; by default
+    :func:`default_anchor_prefix` of the metric, which differs from one metric to another.
+    """
+
     file_name = "appendix.tex"
     template_name = "latex/appendix.tex.j2"
+
+    def __init__(self, templates: Sequence[Path] = (), heading: str = "section", anchor_prefix: str | None = None):
+        super().__init__(templates)
+        if heading not in HEADING_LEVELS:
+            raise ValueError(f"heading must be one of {', '.join(HEADING_LEVELS)}")
+        self.heading = heading
+        self.anchor_prefix = anchor_prefix
+
+    def settings(self, derivation: Derivation) -> dict:
+        prefix = self.anchor_prefix if self.anchor_prefix is not None else default_anchor_prefix(derivation)
+        return {"section": self.heading, "subsection": _SUBDIVISION[self.heading], "anchor_prefix": prefix}
+
+
+def default_anchor_prefix(derivation: Derivation) -> str:
+    """``stepper-<title in letters and digits, at most 24>-<6 hex digits of the line element's hash>-``:
+    the same for the same metric, different for different metrics even under one title."""
+    import hashlib
+    title = "".join(c for c in derivation.metric.title.lower() if c.isascii() and c.isalnum())[:24] or "metric"
+    metric = derivation.metric
+    identity = "\n".join([metric.title, str(metric.line_element or list(metric.matrix)), ",".join(metric.names)])
+    return f"stepper-{title}-{hashlib.sha256(identity.encode('utf-8')).hexdigest()[:6]}-"
+
+
+def valid_anchor_prefix(prefix: str) -> bool:
+    """A prefix that is safe inside ``\\hypertarget{...}`` and a PDF name: letters, digits, ``-``, ``.``, ``:``."""
+    return len(prefix) <= 64 and all(c.isascii() and (c.isalnum() or c in "-.:") for c in prefix)
 
 
 def compile_latex(source: str, job: str = "report") -> tuple[bytes, str]:

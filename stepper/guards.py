@@ -18,7 +18,12 @@ caller's ``where`` label:
   (:meth:`GuardedReader.check_nesting`);
 * undefined values: division by zero, zoo, nan, infinities;
 * a declared function called with other arguments than it was declared
-  with (:meth:`GuardedReader.check_call`).
+  with (:meth:`GuardedReader.check_call`);
+* derivatives of an order above MAX_DERIVATIVE_ORDER, more than
+  MAX_DERIVATIVE_WORK nodes of expression differentiated in one text, and
+  derivatives whose result would multiply out to more than MAX_EXPANDED_TERMS
+  terms or hold a number of more than MAX_NUMBER_BITS bits
+  (:meth:`GuardedReader.differentiate`).
 """
 
 from __future__ import annotations
@@ -33,6 +38,8 @@ from stepper.errors import InputError
 __all__ = [
     "MAX_CONSTANT_NESTING",
     "MAX_DEPTH",
+    "MAX_DERIVATIVE_ORDER",
+    "MAX_DERIVATIVE_WORK",
     "MAX_DIGITS",
     "MAX_NUMBER_BITS",
     "MAX_TEXT_LENGTH",
@@ -82,6 +89,17 @@ MAX_EXPANDED_TERMS = 20_000
 MAX_FUNCTION_NESTING = 12
 """Deepest nesting of elementary functions of the coordinates accepted (``sin(sin(...))``);
 simplification time grows steeply with it, and metrics in use need two or three."""
+
+MAX_DERIVATIVE_ORDER = 8
+"""Highest order of a derivative in a text, derivatives of derivatives added up (``diff(w, x, 2)`` has order 2,
+``\\partial_x\\partial_y w`` order 2, ``\\partial_x (w_{,xx})`` order 3); curvature holds second derivatives of the
+metric, and a claim about it rarely more than fourth."""
+
+MAX_DERIVATIVE_WORK = 5_000
+"""Most nodes of expression one text may have differentiated, summed over every differentiation (a node
+differentiated twice counts twice).  sympy spends up to about half a millisecond per node on large derivatives
+(``\\partial_x^8`` of a long product, derivatives nested in derivatives of exp(sin x)), so this bounds the time
+a short text can take to a few seconds; a claim differentiates a few hundred nodes at most."""
 
 EXPANSION_CAP = 10**9
 
@@ -170,6 +188,8 @@ class Facts(NamedTuple):
     undefined: bool  # contains zoo, nan or an infinity
     terms: int  # terms of the expression multiplied out (an estimate, capped at EXPANSION_CAP)
     functions: int  # elementary functions nested inside one another, symbols or not
+    size: int = 1  # nodes of the expression tree, a shared subtree counted at each place (capped at EXPANSION_CAP)
+    order: int = 0  # highest order of a derivative inside
 
 
 def rational_bits(number: sympy.Rational) -> int:
@@ -194,6 +214,7 @@ class GuardedReader(Generic[TokenT]):
         self.where = where
         self.depth = 0
         self.memo: dict[sympy.Basic, Facts] = {}
+        self.derivative_work = 0  # nodes differentiated so far (MAX_DERIVATIVE_WORK)
 
     def parse(self) -> sympy.Expr:
         """The whole text as one expression (provided by the reader)."""
@@ -291,6 +312,9 @@ class GuardedReader(Generic[TokenT]):
                 terms=expanded_terms(node, [child.terms for child in children]),
                 functions=(1 if node.is_Function and not isinstance(node, AppliedUndef) else 0)
                 + max((child.functions for child in children), default=0),
+                size=min(EXPANSION_CAP, 1 + sum(child.size for child in children)),
+                order=max([node.derivative_count if isinstance(node, sympy.Derivative) else 0]
+                          + [child.order for child in children]),
             )
         return memo[expression]
 
@@ -398,6 +422,35 @@ class GuardedReader(Generic[TokenT]):
                 token.column,
                 hint,
             )
+
+    def differentiate(self, expression: sympy.Expr, variables: Sequence[sympy.Symbol], token: Located) -> sympy.Expr:
+        """``expression`` differentiated once by each of ``variables`` in turn, for a derivative that ``token``
+        writes; its order is bounded by MAX_DERIVATIVE_ORDER, and after each differentiation the result's size
+        (terms multiplied out, bits of its numbers) is checked, so that repeated derivatives of a product stop
+        before they grow large."""
+        if len(variables) > MAX_DERIVATIVE_ORDER:
+            self.fail(f"derivative of order {len(variables)}: {show(token.text)} differentiates more than "
+                      f"{MAX_DERIVATIVE_ORDER} times (the limit)", token.column)
+        # Derivatives of derivatives add up; sympy's time for one grows with its order.
+        result = expression
+        for variable in variables:
+            self.derivative_work += self.facts(result).size
+            if self.derivative_work > MAX_DERIVATIVE_WORK:
+                self.fail(f"derivatives too large to compute: {show(token.text)} brings the expression "
+                          f"differentiated in this text to more than {MAX_DERIVATIVE_WORK} nodes (the limit)",
+                          token.column)
+            result = sympy.diff(result, variable)
+            facts = self.facts(result)
+            self.check_size(facts.bits, token)
+            if facts.terms > MAX_EXPANDED_TERMS:
+                self.fail(f"expression too large: {show(token.text)} differentiated would multiply out to more "
+                          f"than {MAX_EXPANDED_TERMS} terms", token.column)
+            if facts.order > MAX_DERIVATIVE_ORDER:
+                self.fail(f"derivative of order {facts.order}: {show(token.text)} makes a derivative of more than "
+                          f"{MAX_DERIVATIVE_ORDER} (the limit)", token.column)
+            if facts.undefined:
+                self.fail(f"the derivative {show(token.text)} is undefined", token.column)
+        return result
 
 
 class Sum:

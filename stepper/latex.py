@@ -22,7 +22,7 @@ from pylatex.utils import escape_latex
 from sympy.core.function import AppliedUndef
 from sympy.printing.latex import LatexPrinter
 
-from .quantities import QUANTITIES
+from .quantities import QUANTITIES, indexed_tex
 
 #: Results whose LaTeX is shorter than this go into a display equation as is.
 SHORT_LATEX = 90
@@ -384,10 +384,13 @@ def frame_index(name: str, writer: ExpressionWriter) -> str:
     return "{(" + writer.symbol(name) + ")}"
 
 
-def component_symbol(quantity: str, names: Sequence[str], writer: ExpressionWriter) -> str:
+def component_symbol(quantity: str, names: Sequence[str], writer: ExpressionWriter, positions: str = "") -> str:
     """The LaTeX symbol of a component, e.g. Gamma^r_{tt} for ("christoffel", ["r", "t", "t"]), from the
-    quantity's symbol and index positions in the registry."""
+    quantity's symbol and index positions in the registry; ``positions`` ("ud", ...) places the indices of
+    a tensor otherwise (G^t{}_t for ("einstein", ["t", "t"], positions="ud"))."""
     q = QUANTITIES[quantity]
+    if positions and names and set(positions) <= {"u", "d"} and len(positions) == len(names):
+        return indexed_tex(q.symbol, positions, ["{" + writer.symbol(n) + "}" for n in names], q.staggered)
     if q.positions == "v":  # du^a/dtau
         velocity = writer.velocities.get(names[0]) or writer.symbol(f"u_{names[0]}")
         return r"\frac{d" + velocity + r"}{d\tau}"
@@ -424,3 +427,63 @@ def mapping_lines(mapping: Mapping[str, sympy.Expr], quantity: str, writer: Expr
             lhs = component_symbol(quantity, key.split(","), writer)
         lines.append(writer.equation(lhs, value))
     return lines
+
+
+#: A displayed general formula longer than this many characters of LaTeX source is broken before a
+#: top-level + or - so that it fits a column of a two-column paper.
+DISPLAY_SOURCE_WIDTH = 110
+
+
+def display_formula(formula: str) -> str:
+    r"""A general formula as a display that fits a narrow column: pieces separated by a top-level
+    ``,\quad`` go on lines of their own, and a piece longer than DISPLAY_SOURCE_WIDTH source characters
+    breaks before a top-level ``+`` or ``-`` after its ``=``; one line is ``\[...\]``, several ``gather*``."""
+    lines = []
+    for piece in _top_level_split(formula, r",\quad"):
+        lines.extend(_broken_at_signs(piece.strip()))
+    if len(lines) == 1:
+        return rf"\[ {lines[0]} \]"
+    return "\\begin{gather*}\n" + " \\\\\n".join(lines) + "\n\\end{gather*}"
+
+
+def _top_level_split(text: str, separator: str) -> list[str]:
+    """``text`` split at ``separator`` where it stands outside every brace group."""
+    pieces, depth, start, position = [], 0, 0, 0
+    while position < len(text):
+        if text[position] == "{":
+            depth += 1
+        elif text[position] == "}":
+            depth -= 1
+        elif depth == 0 and text.startswith(separator, position):
+            pieces.append(text[start:position])
+            position += len(separator)
+            start = position
+            continue
+        position += 1
+    pieces.append(text[start:])
+    return pieces
+
+
+def _broken_at_signs(piece: str) -> list[str]:
+    """A long ``lhs = a + b - c`` as lines of at most DISPLAY_SOURCE_WIDTH characters where possible,
+    broken before a top-level ``+``/``-`` after the first top-level ``=``; continuation lines indented."""
+    if len(piece) <= DISPLAY_SOURCE_WIDTH:
+        return [piece]
+    breaks, depth, seen_equals = [], 0, False
+    for position, character in enumerate(piece):
+        if character == "{":
+            depth += 1
+        elif character == "}":
+            depth -= 1
+        elif depth == 0 and character == "=":
+            seen_equals = True
+        elif depth == 0 and seen_equals and character in "+-" and piece[position - 1:position] == " ":
+            breaks.append(position)
+    lines, start = [], 0
+    for number, position in enumerate(breaks):
+        following = breaks[number + 1] if number + 1 < len(breaks) else len(piece)
+        if following - start > DISPLAY_SOURCE_WIDTH and position > start:
+            lines.append(piece[start:position].rstrip())
+            start = position
+    lines.append(piece[start:])
+    return [lines[0]] + [r"\qquad " + line for line in lines[1:]]

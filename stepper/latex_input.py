@@ -19,9 +19,13 @@ Accepted subset (highest binding first)::
     product     factor { factor }                    juxtaposition
     factor      number [^]
               | name [_sub] ["'"...] [^] [call] [^]  letters, Greek letters, \mathrm{name}
+              | name _{[sub] , coordinates} [^] [call] [^]    comma derivative w_{,xy}
               | \dot name | \ddot name  [call] [^]
               | group [^]                            ( ) [ ] { } \left( \right) \bigl( \bigr) ...
               | \frac A B [^]    (also \dfrac, \tfrac)
+              | \frac{\partial^n A}{\partial x ...} [^] | \frac{\partial^n}{\partial x ...} operand
+              | \frac{d^n A}{d x^n} [^] | \frac{d^n}{d x^n} operand      (also \mathrm{d})
+              | \partial_coordinates [^n] operand   operand: name [_sub] [call], \partial..., or a bracket
               | \sqrt [ "[" n "]" ] A [^]            the n-th root is A^(1/n)
               | function [^p] ( "(" expression ")" [^] | argument )
 
@@ -63,7 +67,36 @@ Reading rules (the decisions a reader of LaTeX has to make):
 * A declared function is written ``a`` or ``a(t)``; its derivative with
   respect to its one argument is ``a'``, ``a''``, ``\dot a``, ``\ddot a``
   (``\dot{a}``, ``a'(t)``, ``\dot a^2`` = (da/dt)^2).  A declared function
-  followed by ``(`` is always a call, checked against its declaration.
+  followed by ``(`` is always a call, checked against its declaration.  An
+  abbreviation of one coordinate takes primes and dots too (``f'`` is df/dr
+  for f = 1 - 2M/r), and ``f(r)`` names its argument; an abbreviation of
+  several coordinates is refused with a hint to write ``\partial``.  A
+  declared symbol followed by a bracket multiplies it: ``a^{2}\left(1 +
+  r\right)`` is a^2 (1 + r).
+* Partial derivatives by the coordinates (the caller's
+  ``Vocabulary.coordinates``; refused where none are given): ``\partial_x w``,
+  ``\partial_{x} w``, ``\partial_x^2 w``, ``\partial_x\partial_y w``,
+  ``\partial_{xy} w`` (each letter one coordinate; refused when the letters
+  also spell a coordinate), ``\partial_x (w^2)``, ``∂_x w``; comma
+  derivatives ``w_{,x}``, ``w_{,xy}`` (``w_{,x x}`` is ``w_{,xx}``: spaces
+  print nothing); fractions ``\frac{\partial w}{\partial x}``,
+  ``\frac{\partial^{2} w}{\partial x \partial y}`` (the orders above and below
+  must agree; everything after the operator above is differentiated,
+  ``\frac{\partial w^2}{\partial x}`` is the derivative of w^2) and
+  ``\frac{\partial}{\partial x}`` before an operand.  ``\frac{d f}{d r}``,
+  ``\frac{\mathrm{d}f}{\mathrm{d}r}``, ``\frac{d^2 f}{dr^2}`` are derivatives by
+  one coordinate of something that depends on no other; with ``d`` declared
+  they are refused as ambiguous.  The operand of ``\partial_x`` is one name
+  (with its arguments) or one bracket: ``\partial_x w \partial_y w`` is a
+  product of two derivatives, and a power after it (``\partial_x w^2``) is
+  refused as ambiguous.  The derivative of a declared function by a
+  coordinate it does not depend on is refused (it would be 0).  The guards
+  bound the order (MAX_DERIVATIVE_ORDER, derivatives of derivatives added
+  up) and the work (MAX_DERIVATIVE_WORK) of the derivatives in one text.
+* ``e^{...}`` is the exponential unless ``e`` is declared, when it is refused
+  as ambiguous (``\exp(...)`` or ``{e}^{...}`` say which is meant).
+* Greek letters typed in Unicode are their commands: ``θ`` is ``\theta``,
+  ``Λ`` is ``\Lambda`` (:data:`stepper.parse.UNICODE_GREEK`).
 * The Unicode minus sign ``−`` (U+2212) is ``-``; the multiplication signs ``× · ⋅`` are
   ``\times``.
 * Spacing (``\, \; \: \! \quad \qquad ~`` and ``\`` followed by a space),
@@ -82,9 +115,11 @@ from types import MappingProxyType
 from typing import Mapping, NamedTuple, NoReturn
 
 import sympy
+from sympy.core.function import AppliedUndef
 
 from stepper.errors import InputError
 from stepper.guards import (
+    MAX_DERIVATIVE_ORDER,
     MAX_DIGITS,
     MAX_NUMBER_BITS,
     UNDEFINED,
@@ -95,7 +130,7 @@ from stepper.guards import (
     rational_bits,
     show,
 )
-from stepper.parse import ELEMENTARY_FUNCTIONS, Vocabulary
+from stepper.parse import ELEMENTARY_FUNCTIONS, UNICODE_GREEK, Vocabulary
 
 __all__ = ["FUNCTION_COMMANDS", "GREEK_LETTERS", "parse_latex"]
 
@@ -140,8 +175,16 @@ _CHARACTER_HINTS = MappingProxyType(
         "$": " (math delimiters are accepted only around the whole text)",
         "%": " (comments are not accepted)",
         "|": " (absolute values are not accepted)",
+        ";": " (covariant derivatives are not accepted; for a partial derivative write w_{,x} or \\partial_x w)",
+        # What a TOML basic string "..." makes of \frac and \beta: write LaTeX in a literal string '''...'''.
+        "\x0c": " (a TOML string \"...\" reads the \\f of \\frac as an escape: write LaTeX in a literal "
+                "string '''...''')",
+        "\x08": " (a TOML string \"...\" reads the \\b of \\beta as an escape: write LaTeX in a literal "
+                "string '''...''')",
     }
 )
+_PARTIAL_SIGN = "\u2202"
+"""The partial derivative sign as typed in Unicode, read as \\partial."""
 _UNICODE_OPERATORS = MappingProxyType({"\u2212": "-", "\u00d7": "*", "\u00b7": "*", "\u22c5": "*"})
 """Operators as typed in Unicode (copied from a web page or a word processor): the minus sign U+2212 and the
 multiplication signs U+00D7, U+00B7 and U+22C5, read as ``-`` and ``*``."""
@@ -275,6 +318,10 @@ def _tokenize(text: str, start: int, stop: int) -> list[_Token]:
             add("operator", end, piece)
         elif piece in _UNICODE_OPERATORS:
             add("operator", end, _UNICODE_OPERATORS[piece])
+        elif piece in UNICODE_GREEK:
+            add("command", end, UNICODE_GREEK[piece])  # a typed Greek letter is read as its command
+        elif piece == _PARTIAL_SIGN:
+            add("command", end, "partial")
         elif piece == ".":
             add("dot", end, piece)
         else:
@@ -355,6 +402,20 @@ class _Reader(GuardedReader[_Token]):
         # (offset just after, script operator, digit) of the last one-digit
         # superscript or subscript written without braces, for a hint.
         self.bare_digit: tuple[int, str, str] | None = None
+        # Number tokens split by a one-digit script, (index, token before), so that a trial reading undoes them.
+        self.token_edits: list[tuple[int, _Token]] = []
+        # Token index of a bracket read as arguments -> (the arguments or None if they cannot be read, the index
+        # after it, bare_digit after it): each bracket is tried once, so nested brackets after declared names
+        # cost linear time rather than doubling at each level.
+        self.bracket_memo: dict[int, tuple[tuple[sympy.Expr, ...] | None, int, tuple[int, str, str] | None]] = {}
+        # Token index of each opening bracket -> index of its closing one, found once for look-ahead.
+        self.matching: dict[int, int] = {}
+        stack: list[int] = []
+        for position, token in enumerate(tokens):
+            if token.kind == "open":
+                stack.append(position)
+            elif token.kind == "close" and stack:
+                self.matching[stack.pop()] = position
 
     # -- token helpers and errors
 
@@ -512,12 +573,16 @@ class _Reader(GuardedReader[_Token]):
             return self.function_application(token, function)
         if self.is_name(token) or (token.kind == "command" and token.value in _DOTS):
             return self.named(token)
+        if token.kind == "command" and token.value == "partial":
+            return self.partial(token)
         if token.kind == "command" and token.value in _FRACTIONS:
             return self.scripts_of_value(self.fraction(self.advance()))
         if token.kind == "command" and token.value == "sqrt":
             return self.scripts_of_value(self.root(self.advance()))
         if token.kind == "command":
             hint = " (line breaks are not accepted)" if token.text == "\\\\" else ""
+            if token.value in ("nabla", "Box", "square", "triangle"):
+                hint = " (write the derivatives out: \\partial_x^2 w + \\partial_y^2 w)"
             self.fail(f"unknown command {show(token.text)}", token.column, hint)
         self.unexpected(token)
 
@@ -593,6 +658,7 @@ class _Reader(GuardedReader[_Token]):
             self.unexpected(token, script)
         if len(token.text) > 1:
             rest = token.text[1:]
+            self.token_edits.append((self.index, token))
             self.tokens[self.index] = token._replace(
                 text=rest, value=rest, column=token.column + 1, start=token.start + 1, spaced=False
             )
@@ -602,6 +668,9 @@ class _Reader(GuardedReader[_Token]):
         return sympy.Integer(int(digit))
 
     def fraction(self, command: _Token) -> sympy.Expr:
+        form = self.derivative_fraction_form()
+        if form is not None:
+            return self.derivative_fraction(command, form)
         numerator = self.argument(command)
         denominator = self.argument(command)
         return self.multiply([(numerator, command), (self.reciprocal(denominator, command), command)])
@@ -680,11 +749,16 @@ class _Reader(GuardedReader[_Token]):
         self.no_more_scripts()
         return value
 
-    def named(self, token: _Token) -> sympy.Expr:
-        """A name with its subscript, primes, power and call, or a dotted name."""
+    def named(self, token: _Token, operand_of: str | None = None) -> sympy.Expr:
+        """A name with its subscript (a comma derivative inside it), primes, power and call, or a dotted name.
+
+        ``operand_of`` is the derivative written before the name (``\\partial_x``), whose operand the name is:
+        a power on it is then ambiguous and refused."""
         self.advance()
         order = _DOTS.get(token.value, 0) if token.kind == "command" else 0
         base, subscript = (self.dotted(token) if order else (token, None))
+        commas: list[_Token] = []
+        comma_mark: _Token | None = None
         primes: list[_Token] = []
         caret: _Token | None = None
         exponent: sympy.Expr | None = None
@@ -692,37 +766,66 @@ class _Reader(GuardedReader[_Token]):
             mark = self.peek()
             if self.at("_"):
                 self.advance()
-                if subscript is not None:
+                if subscript is not None or comma_mark is not None:
                     self.fail("double subscript '_'", mark.column, " (use braces to group)")
-                subscript = self.subscript(mark)
+                subscript, commas = self.subscript(mark, derivatives=not (order or primes))
+                comma_mark = mark if commas else None
             elif self.at("'"):
                 self.advance()
-                if caret is not None or order:
+                if caret is not None or order or comma_mark is not None:
                     self.fail(f"unexpected {show(mark.text)}", mark.column,
-                              " (write primes before the superscript, and not with \\dot)")
+                              " (write primes before the superscript, and not with \\dot or a comma derivative)")
                 primes.append(mark)
             elif self.at("^"):
                 self.advance()
                 if caret is not None:
                     self.fail("double superscript '^'", mark.column, " (use braces to group)")
+                if operand_of is not None:
+                    self.ambiguous_power(operand_of, base.text, mark)
                 caret, exponent = mark, self.superscript(mark)
             else:
                 break
         value, kind, name = self.resolve(base, subscript)
+        if caret is not None and self.declared_e(base, subscript, kind):
+            self.fail(
+                f"ambiguous {show(base.text + '^')}", base.column,
+                " ('e' is declared in the metric file: write \\exp(...) for the exponential function, "
+                "or {e}^{...} for a power of the declared e)",
+            )
+        undifferentiated = value
         if order or primes:
             marker = token if order else primes[0]
-            value = self.derivative(value, kind, name, marker, order or len(primes))
+            value = self.derivative(value, kind, name, base.text, marker, order or len(primes))
+        if commas:
+            assert comma_mark is not None
+            self.coordinate_names(comma_mark)
+            variables = self.coordinate_list(commas)
+            value = self.differentiate_checked(value, variables, comma_mark)
+        called = False
         if kind == "function" and self.at_open("(") and not self.sized_product(self.vocabulary.functions[name]):
             self.call(self.vocabulary.functions[name], name, base)
-            if self.at("^"):
-                mark = self.advance()
-                if caret is not None:
-                    self.fail("double superscript '^'", mark.column, " (use braces to group)")
-                caret, exponent = mark, self.superscript(mark)
+            called = True
+        elif kind == "abbreviation" and self.at_open("(") and self.vocabulary.coordinates is not None:
+            # f(r) for an abbreviation f of r alone names its argument, as for a declared function.
+            depends = tuple(self.coordinates_in(undifferentiated))
+            if depends and self.holds(depends):
+                self.bracket_arguments()
+                called = True
+        if called and self.at("^"):
+            mark = self.advance()
+            if caret is not None:
+                self.fail("double superscript '^'", mark.column, " (use braces to group)")
+            if operand_of is not None:
+                self.ambiguous_power(operand_of, base.text, mark)
+            caret, exponent = mark, self.superscript(mark)
         if caret is not None and exponent is not None:
             value = self.power(value, exponent, caret)
         self.no_more_scripts()
         return value
+
+    def declared_e(self, base: _Token, subscript: str | None, kind: str) -> bool:
+        """Whether ``base`` is a plain ``e`` that the metric file declares (so that e^{...} is ambiguous)."""
+        return base.kind in ("letter", "name") and base.value == "e" and subscript is None and kind != "constant"
 
     def dotted(self, dot: _Token) -> tuple[_Token, str | None]:
         """The name after \\dot or \\ddot, bare or in braces, with a subscript inside braces."""
@@ -735,7 +838,7 @@ class _Reader(GuardedReader[_Token]):
             self.advance()
             subscript = None
             if self.at("_"):
-                subscript = self.subscript(self.advance())
+                subscript, _ = self.subscript(self.advance(), derivatives=False)
             self.close(opening)
             return name, subscript
         if self.is_name(token):
@@ -743,17 +846,26 @@ class _Reader(GuardedReader[_Token]):
             return token, None
         self.unexpected(token, dot, f" ({show(dot.text)} takes a declared function)")
 
-    def subscript(self, underscore: _Token) -> str:
-        """The text of a subscript: letters, digits, Greek letters, \\mathrm{} names."""
+    def subscript(self, underscore: _Token, derivatives: bool) -> tuple[str | None, list[_Token]]:
+        """The text of a subscript (letters, digits, Greek letters, \\mathrm{} names) and, with
+        ``derivatives``, the coordinates of a comma derivative after a ',' inside braces (``w_{,xy}``)."""
         token = self.peek()
         if self.at_open("{"):
             opening = self.advance()
             parts: list[str] = []
+            commas: list[_Token] = []
+            comma: _Token | None = None
             while True:
                 part = self.peek()
                 if part.kind == "close" and part.value == "}":
                     break
-                if part.kind == "number" and part.value.isdigit():
+                if comma is None and derivatives and part.kind == "operator" and part.value == ",":
+                    comma = part
+                elif comma is not None and self.is_name(part):
+                    commas.append(part)
+                elif comma is not None:
+                    self.unexpected(part, None, " (after the comma of a derivative come coordinates: w_{,xy})")
+                elif part.kind == "number" and part.value.isdigit():
                     parts.append(part.value)
                 elif self.is_name(part):
                     parts.append(part.value)
@@ -762,16 +874,20 @@ class _Reader(GuardedReader[_Token]):
                         part, None, " (a subscript holds letters and digits only)"
                     )
                 self.advance()
-            if not parts:
+            if comma is not None and not commas:
+                self.unexpected(self.peek(), comma, " (name the coordinates: w_{,x})")
+            if not parts and comma is None:
                 self.unexpected(self.peek(), underscore, " (empty subscript)")
             self.close(opening)
-            return "".join(parts)
+            return ("".join(parts) or None), commas
         if token.kind == "number":
-            return str(self.one_digit(token, underscore, remember=True))
+            return str(self.one_digit(token, underscore, remember=True)), []
         if self.is_name(token):
             self.advance()
-            return token.value
-        self.unexpected(token, underscore, " (a subscript holds letters and digits only)")
+            return token.value, []
+        hint = " (a comma derivative is written in braces: w_{,x})" if self.at(",") else \
+            " (a subscript holds letters and digits only)"
+        self.unexpected(token, underscore, hint)
 
     def sized_product(self, declared: sympy.Expr) -> bool:
         """Whether ``\\left( ... \\right)`` after a declared function is a factor rather than its arguments:
@@ -779,16 +895,31 @@ class _Reader(GuardedReader[_Token]):
         does not hold the declared arguments multiplies (a plain ``a(r)`` is still read as a call, and refused)."""
         if not self.tokens[self.index].text.startswith("\\"):
             return False
-        saved = (self.index, self.depth, self.bare_digit)
-        try:
-            return tuple(self.bracket_arguments()) != tuple(declared.args)
-        except InputError:
-            return False
-        finally:
-            self.index, self.depth, self.bare_digit = saved
+        return not self.holds(tuple(declared.args))
+
+    def holds(self, arguments: tuple[sympy.Expr, ...]) -> bool:
+        """Whether the bracket that comes next holds exactly ``arguments`` (the cursor does not move)."""
+        start = self.index
+        if start not in self.bracket_memo:
+            saved, edits = (self.depth, self.bare_digit), len(self.token_edits)
+            try:
+                self.bracket_arguments()  # remembers what it read
+            except InputError:
+                self.bracket_memo[start] = (None, start, None)
+            finally:
+                self.index, (self.depth, self.bare_digit) = start, saved
+                while len(self.token_edits) > edits:
+                    position, token = self.token_edits.pop()
+                    self.tokens[position] = token
+        return self.bracket_memo[start][0] == arguments
 
     def bracket_arguments(self) -> list[sympy.Expr]:
-        """Read ``( expression, ... )``."""
+        """Read ``( expression, ... )``, or take what a trial reading found there."""
+        start = self.index
+        known = self.bracket_memo.get(start)
+        if known is not None and known[0] is not None:
+            arguments, self.index, self.bare_digit = known
+            return list(arguments)
         opening = self.advance()
         self.enter(opening)
         arguments = [self.expression()]
@@ -797,6 +928,7 @@ class _Reader(GuardedReader[_Token]):
             arguments.append(self.expression())
         self.close(opening)
         self.depth -= 1
+        self.bracket_memo[start] = (tuple(arguments), self.index, self.bare_digit)
         return arguments
 
     def call(self, declared: sympy.Expr, name: str, token: _Token) -> None:
@@ -836,6 +968,12 @@ class _Reader(GuardedReader[_Token]):
         hint = self.word_hint(base) if base.kind == "letter" and subscript is None else ""
         if not hint and (subscript is not None or base.kind == "command"):
             hint = f" (no declared name {tried})"
+        if subscript is not None and any(
+            (self.lookup(stem) or (None, ""))[1] in ("function", "abbreviation") for stem in stems
+        ):
+            by = subscript if len(subscript) == 1 else f"{{{subscript}}}"
+            hint = (f" (no declared name {tried}; for a derivative write {base.text}_{{,{subscript}}} "
+                    f"or \\partial_{by} {base.text})")
         self.fail(f"unknown name {show(shown)}", base.column, hint)
 
     def word_hint(self, letter: _Token) -> str:
@@ -856,14 +994,28 @@ class _Reader(GuardedReader[_Token]):
                 return f" (write {' or '.join(ways)})"
         return ""
 
+    # -- derivatives
+
     def derivative(
-        self, value: sympy.Expr, kind: str, name: str, marker: _Token, order: int
+        self, value: sympy.Expr, kind: str, name: str, written: str, marker: _Token, order: int
     ) -> sympy.Expr:
+        """Primes or dots on a declared function of one variable, or on an abbreviation of one coordinate."""
+        if kind == "abbreviation" and self.vocabulary.coordinates is not None:
+            depends = self.coordinates_in(value)
+            if len(depends) != 1:
+                words = " and ".join(show(symbol.name) for symbol in depends) or "no coordinate"
+                self.fail(
+                    f"{show(marker.text)} on {show(name)}",
+                    marker.column,
+                    f" ({show(name)} depends on {words}; a dot or prime needs one: write "
+                    f"\\partial_x {written} or \\frac{{\\partial {written}}}{{\\partial x}} for the coordinate x)",
+                )
+            return self.differentiate(value, depends * order, marker)
         if kind != "function":
             self.fail(
                 f"{show(marker.text)} on {show(name)}",
                 marker.column,
-                f" ({show(name)} is not a declared function)",
+                f" ({show(name)} is not a declared function or abbreviation)",
             )
         if len(value.args) != 1 or not isinstance(value.args[0], sympy.Symbol):
             arguments = ", ".join(brief(argument) for argument in value.args)
@@ -871,9 +1023,260 @@ class _Reader(GuardedReader[_Token]):
                 f"{show(marker.text)} on {show(name)}",
                 marker.column,
                 f" ({show(name)} is declared with arguments ({arguments}); a dot or prime "
-                "needs a function of one variable)",
+                f"needs a function of one variable: write \\partial_x {written} or {written}_{{,x}})",
             )
-        return sympy.Derivative(value, (value.args[0], order))
+        return self.differentiate(value, [value.args[0]] * order, marker)
+
+    def partial(self, operator: _Token) -> sympy.Expr:
+        """``\\partial_x w``, ``\\partial_x^2 w``, ``\\partial_{xy} w``, ``\\partial_x\\partial_y w``,
+        ``\\partial_x (w^2)``: the operator with its coordinates, then its operand."""
+        self.coordinate_names(operator)
+        self.advance()
+        self.enter(operator)
+        coordinates: list[sympy.Symbol] | None = None
+        written = ""
+        count: int | None = None
+        while True:
+            mark = self.peek()
+            if self.at("_"):
+                self.advance()
+                if coordinates is not None:
+                    self.fail("double subscript '_'", mark.column, " (use braces to group)")
+                names = self.subscript_names(mark)
+                coordinates = self.coordinate_list(names)
+                written = "".join(name.text for name in names)
+            elif self.at("^"):
+                self.advance()
+                if count is not None:
+                    self.fail("double superscript '^'", mark.column, " (use braces to group)")
+                count = self.order(self.superscript(mark), mark)
+            else:
+                break
+        if coordinates is None:
+            self.fail(f"{show(operator.text)} without a subscript", operator.column,
+                      " (write \\partial_x w, or \\frac{\\partial w}{\\partial x})")
+        shown = f"\\partial_{written}" if len(written) == 1 else f"\\partial_{{{written}}}"
+        if count is not None and len(coordinates) > 1:
+            self.fail(f"ambiguous power on {show(shown)}", operator.column,
+                      " (give the power of each coordinate: \\partial_x^2\\partial_y w)")
+        operand = self.derivative_operand(operator, shown)
+        self.depth -= 1
+        return self.differentiate_checked(operand, coordinates * (count or 1), operator)
+
+    def subscript_names(self, underscore: _Token) -> list[_Token]:
+        """The names in the subscript of \\partial: one name, or names in braces."""
+        if self.at_open("{"):
+            opening = self.advance()
+            names: list[_Token] = []
+            while not (self.peek().kind == "close" and self.peek().value == "}"):
+                part = self.peek()
+                if not self.is_name(part):
+                    self.unexpected(part, None, " (the subscript of \\partial holds coordinates: \\partial_{x})")
+                names.append(self.advance())
+            if not names:
+                self.unexpected(self.peek(), underscore, " (empty subscript)")
+            self.close(opening)
+            return names
+        token = self.peek()
+        if not self.is_name(token):
+            self.unexpected(token, underscore, " (the subscript of \\partial holds coordinates: \\partial_x)")
+        return [self.advance()]
+
+    def derivative_operand(self, operator: _Token, shown: str) -> sympy.Expr:
+        """What a derivative operator (``\\partial_x``, ``\\frac{d}{dr}``) applies to: a name with its
+        arguments, another \\partial, or a bracket; a power after it would be ambiguous."""
+        token = self.peek()
+        if token.kind == "command" and token.value == "partial":
+            return self.partial(token)
+        if self.function_of(token) is None and (
+            self.is_name(token) or (token.kind == "command" and token.value in _DOTS)
+        ):
+            return self.named(token, operand_of=shown)
+        if token.kind == "open":
+            opening = self.advance()
+            self.enter(opening)
+            value = self.expression()
+            self.close(opening)
+            self.depth -= 1
+            if self.at("^"):
+                self.ambiguous_power(shown, "(...)", self.peek())
+            self.no_more_scripts()
+            return value
+        self.unexpected(token, operator, f" ({shown} applies to a declared name or a bracket: "
+                                         f"write {shown} w or {shown}\\left(...\\right))")
+
+    def ambiguous_power(self, shown: str, operand: str, caret: _Token) -> NoReturn:
+        self.fail(
+            f"ambiguous power after {show(shown + ' ' + operand)}", caret.column,
+            f" (write ({shown} {operand})^{{2}} for a power of the derivative, or {shown}({operand}^{{2}}) "
+            "for the derivative of a power)",
+        )
+
+    def order(self, value: sympy.Expr, caret: _Token) -> int:
+        """The order a superscript gives a derivative: a whole number from 1 to MAX_DERIVATIVE_ORDER."""
+        if not (value.is_Integer and 1 <= int(value) <= MAX_DERIVATIVE_ORDER):
+            self.fail(f"derivative of order {brief(value)}", caret.column,
+                      f" (the order of a derivative is a whole number from 1 to {MAX_DERIVATIVE_ORDER})")
+        return int(value)
+
+    def coordinate_names(self, token: _Token) -> tuple[str, ...]:
+        coordinates = self.vocabulary.coordinates
+        if coordinates is None:
+            self.fail(f"derivative {show(token.text)} not accepted here", token.column,
+                      " (derivatives are read in claims, where the coordinates are known)")
+        return coordinates
+
+    def coordinate(self, token: _Token) -> sympy.Symbol:
+        """The coordinate a name token stands for."""
+        coordinates = self.coordinate_names(token)
+        stems = GREEK_LETTERS[token.value] if token.kind == "command" else (token.value,)
+        for stem in stems:
+            if stem in coordinates:
+                return self.vocabulary.symbols[stem]
+        listed = ", ".join(coordinates)
+        if any(self.lookup(stem) is not None for stem in stems):
+            self.fail(f"{show(token.text)} is not a coordinate", token.column,
+                      f" (derivatives are taken by the coordinates {listed})")
+        hint = self.word_hint(token) if token.kind == "letter" else ""
+        self.fail(f"unknown coordinate {show(token.text)}", token.column, hint or f" (the coordinates are {listed})")
+
+    def coordinate_list(self, names: list[_Token]) -> list[sympy.Symbol]:
+        """The coordinates named by the letters of ``\\partial_{xy}`` or ``w_{,xy}``, one derivative each."""
+        if len(names) > 1 and all(name.kind == "letter" for name in names):
+            joined = "".join(name.value for name in names)
+            if joined in self.coordinate_names(names[0]):
+                self.fail(
+                    f"ambiguous subscript {show(joined)}", names[0].column,
+                    f" ({show(joined)} is a coordinate: write \\mathrm{{{joined}}} for it, or name the "
+                    "coordinates one at a time: \\partial_x\\partial_y w)",
+                )
+        return [self.coordinate(name) for name in names]
+
+    def coordinates_in(self, value: sympy.Expr) -> list[sympy.Symbol]:
+        """The coordinates ``value`` depends on, in the metric's order."""
+        symbols, free = self.vocabulary.symbols, value.free_symbols
+        return [symbols[name] for name in self.vocabulary.coordinates or () if symbols[name] in free]
+
+    def differentiate_checked(
+        self, operand: sympy.Expr, variables: list[sympy.Symbol], token: _Token
+    ) -> sympy.Expr:
+        """The derivative, refused when the operand is a declared function that does not depend on a variable
+        (its derivative would be 0, most likely a slip)."""
+        if isinstance(operand, AppliedUndef):
+            for variable in variables:
+                if variable not in operand.args:
+                    arguments = ", ".join(brief(argument) for argument in operand.args)
+                    self.fail(
+                        f"{show(str(operand.func))} does not depend on {show(variable.name)}", token.column,
+                        f" (it is declared with arguments ({arguments}), so this derivative is 0)",
+                    )
+        return self.differentiate(operand, variables, token)
+
+    def derivative_fraction_form(self) -> str | None:
+        """``"partial"`` or ``"d"`` when the \\frac that was just read writes a derivative:
+        ``\\frac{\\partial w}{\\partial x}``, ``\\frac{d f}{d r}``, ``\\frac{\\mathrm{d}}{\\mathrm{d}r}``.
+        With ``d`` declared in the metric file, ``\\frac{d f}{d r}`` could also be a quotient: refused."""
+        tokens, start = self.tokens, self.index
+        if not (tokens[start].kind == "open" and tokens[start].value == "{"):
+            return None
+        first = tokens[start + 1]
+        partial = first.kind == "command" and first.value == "partial"
+        if not (partial or self.is_d(first)):
+            return None
+        end = self.matching.get(start)  # the closing brace of the numerator
+        if end is None:
+            return None
+        below = tokens[end + 1 : end + 4]
+        if not (len(below) == 3 and below[0].kind == "open" and below[0].value == "{"):
+            return None
+        if partial:  # \frac{\partial_x (w^2)}{2w} is a quotient
+            return "partial" if below[1].kind == "command" and below[1].value == "partial" else None
+        if not (self.is_d(below[1]) and self.is_name(below[2])):
+            return None
+        if self.lookup("d") is not None:
+            self.fail(
+                f"ambiguous {show(first.text)}", first.column,
+                " ('d' is declared in the metric file, so this could be a quotient: write "
+                "\\frac{\\partial f}{\\partial r} for a derivative, or \\frac{d \\cdot f}{d \\cdot r} for a quotient)",
+            )
+        return "d"
+
+    @staticmethod
+    def is_d(token: _Token) -> bool:
+        """The d of a derivative: the letter, or \\mathrm{d} (and its kin)."""
+        return token.kind in ("letter", "name") and token.value == "d"
+
+    def derivative_fraction(self, command: _Token, form: str) -> sympy.Expr:
+        """``\\frac{\\partial^{2} w}{\\partial x \\partial y}``, ``\\frac{d^2 f}{dr^2}``, or an operator
+        ``\\frac{\\partial}{\\partial x}`` followed by what it applies to."""
+        sign = "\\partial" if form == "partial" else "d"
+        self.coordinate_names(self.tokens[self.index + 1])
+        opening = self.advance()
+        self.enter(opening)
+        operator = self.advance()
+        above: int | None = None
+        if self.at("^"):
+            caret = self.advance()
+            above = self.order(self.superscript(caret), caret)
+        if self.at("_"):
+            self.fail(f"unexpected '_' after {show(operator.text)}", self.peek().column,
+                      f" (write the variable below the line: \\frac{{{sign} w}}{{{sign} x}})")
+        operand: sympy.Expr | None = None
+        if not (self.peek().kind == "close" and self.peek().value == "}"):
+            operand = self.expression()
+        self.close(opening)
+        self.depth -= 1
+        if not self.at_open("{"):
+            self.unexpected(self.peek(), command, f" (write the variables below the line in braces: "
+                                                  f"\\frac{{{sign} w}}{{{sign} x}})")
+        opening = self.advance()
+        self.enter(opening)
+        variables: list[sympy.Symbol] = []
+        written: list[str] = []
+        while not (self.peek().kind == "close" and self.peek().value == "}"):
+            mark = self.peek()
+            same = (mark.kind == "command" and mark.value == "partial") if form == "partial" else self.is_d(mark)
+            if not same:
+                self.unexpected(mark, None, f" (below the line write {sign} before each variable: "
+                                            f"{sign} x {sign} y, or {sign} x^{{2}})")
+            self.advance()
+            name = self.peek()
+            if not self.is_name(name):
+                self.unexpected(name, mark, f" (a coordinate follows {sign}: {sign} x)")
+            self.advance()
+            variable = self.coordinate(name)
+            written.append(name.text)
+            count = 1
+            if self.at("^"):
+                caret = self.advance()
+                count = self.order(self.superscript(caret), caret)
+            variables.extend([variable] * count)
+        self.close(opening)
+        self.depth -= 1
+        expected = above or 1
+        if len(variables) != expected:
+            self.fail(
+                f"the orders above and below {show(command.text)} differ: {expected} and {len(variables)}",
+                operator.column,
+                f" (write \\frac{{{sign}^{{2}} w}}{{{sign} x^{{2}}}} or \\frac{{\\partial^{{2}} w}}"
+                "{\\partial x \\partial y})",
+            )
+        if form == "d" and len(set(variables)) > 1:
+            self.fail(f"{show(operator.text)} with several variables", operator.column,
+                      " (for partial derivatives write \\frac{\\partial^{2} w}{\\partial x \\partial y})")
+        if operand is None:
+            shown = f"\\frac{{{sign}}}{{{sign} {written[0]}}}"
+            operand = self.derivative_operand(command, shown)
+        if form == "d":
+            others = [symbol.name for symbol in self.coordinates_in(operand) if symbol != variables[0]]
+            if others:
+                self.fail(
+                    f"{show(operator.text)} on an expression that depends on {show(others[0])} too",
+                    operator.column,
+                    f" (a derivative by {written[0]} alone is partial: write \\frac{{\\partial ...}}"
+                    f"{{\\partial {written[0]}}})",
+                )
+        return self.differentiate_checked(operand, variables, operator)
 
     # -- numbers and the guarded sympy calls peculiar to LaTeX
 

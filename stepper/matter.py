@@ -33,6 +33,7 @@ import mpmath
 import sympy
 
 from .algebra import printer_stable
+from .identities import signed_stand_ins
 from .quantities import formula
 from .record import MatterRequest
 from .record import Decision, Method, Verdict
@@ -293,7 +294,8 @@ class _Matter:
         for norm, k in zip(norms, labels):
             expr = sympy.factor(self.c.expr(norm))
             numerator, denominator = sympy.fraction(expr)
-            product = _real_functions(numerator * denominator)
+            # free functions as real symbols with their declared signs (real when none was declared)
+            product, _ = signed_stand_ins(numerator * denominator, self.c.metric.function_signs)
             if product.is_positive:
                 signs[self.name(k)] = "positive"
             elif product.is_nonpositive:
@@ -605,8 +607,31 @@ class _Decider:
         if signs.is_negative:
             return Decision(Method.DECLARED_SIGNS, False, free_functions=functions)
         if functions:
-            return Decision(Method.FREE_FUNCTIONS, None)
+            return self._by_function_signs(numerator * denominator) or Decision(Method.FREE_FUNCTIONS, None)
         return self._sample(expr)
+
+    def _by_function_signs(self, product: sympy.Expr) -> Decision | None:
+        """The sign of ``product`` from the declared signs of the free functions (and first derivatives) in it,
+        with the declarations that decide it (each one dropped that is not needed, in the order declared);
+        None when they do not settle it."""
+        declared = self.m.c.metric.function_signs
+        if not declared:
+            return None
+
+        def sign(with_signs) -> bool | None:
+            value, _ = signed_stand_ins(product, with_signs)
+            return True if value.is_nonnegative else False if value.is_negative else None
+
+        _, used = signed_stand_ins(product, declared)
+        holds = sign(used) if used else None
+        if holds is None:
+            return None
+        needed = list(used)
+        for s in used:
+            fewer = [x for x in needed if x != s]
+            if sign(fewer) is holds:
+                needed = fewer
+        return Decision(Method.DECLARED_SIGNS, holds, free_functions=True, function_signs=tuple(needed))
 
     def points(self) -> list[tuple[dict, list]]:
         """Exact rational points of the region where the frame exists, each with its

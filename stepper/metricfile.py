@@ -9,7 +9,16 @@ Keys (all text is parsed by :mod:`stepper.parse`, never evaluated)::
     components = [["...", ...], ...]    # ... or the full symmetric matrix
     [symbols]        name = "positive" | "negative" | "nonnegative" | "nonpositive" | "nonzero" | "real"
     [functions]      name = ["t", "r"]  # a free function and the coordinates it depends on
+                     A = { of = ["r"], sign = "positive" }   # ... with a declared sign
+                     m = { of = ["v"], sign = "nonnegative", derivative_sign = "nonnegative" }
+                     u = { of = ["t", "x"], derivative_sign = { t = "positive" } }   # one per coordinate
     [abbreviations]  name = "expression" # may use earlier abbreviations
+
+A free function's ``sign`` and ``derivative_sign`` (the sign of its first derivative) are one of
+"positive", "nonnegative", "negative", "nonpositive" or "nonzero" and hold wherever the function is
+defined.  They reach every decision that depends on signs: the energy conditions and the frame's squared
+norms (``stepper.matter``), and the audit's zero tests (``stepper.identities``).  The list form declares a
+function without assumptions (it is real, as is everything in a metric).
 
 Optional requests beyond curvature::
 
@@ -44,6 +53,7 @@ import sympy
 from .errors import InputError
 from .algebra import printer_stable
 from .metric import AnsatzRequest, MatterRequest, Metric, OrbitRequest, _validate
+from .record import FUNCTION_SIGN_WORDS, FunctionSign
 from .parse import Vocabulary, check_identifier, parse_expression
 
 ASSUMPTIONS = {
@@ -117,7 +127,23 @@ def read_toml(path: str | Path) -> dict[str, Any]:
     try:
         return tomllib.loads(text)
     except tomllib.TOMLDecodeError as err:
-        raise InputError(f"{path} is not valid TOML: {err}") from None
+        raise InputError(f"{path} is not valid TOML: {err}{_prime_in_literal_hint(text)}") from None
+
+
+_LITERAL_WITH_PRIME = re.compile(r"^\s*(?P<key>[A-Za-z0-9_-]+)\s*=\s*'(?!'')(?P<value>.*'.*?)'\s*(?:#.*)?$")
+"""A line ``key = 'a'(t)'``: a literal string '...' ends at its second quote, so it cannot hold a prime."""
+
+
+def _prime_in_literal_hint(text: str) -> str:
+    """Advice for the first line whose literal string '...' holds a prime, the usual cause of invalid TOML
+    in a claims file with LaTeX such as a'(t)."""
+    for number, line in enumerate(text.splitlines(), start=1):
+        found = _LITERAL_WITH_PRIME.match(line)
+        if found:
+            triple = "'" * 3
+            return (f" (line {number}: a literal string '...' cannot hold a prime; write a triple-quoted literal "
+                    f"string: {found['key']} = {triple}{found['value']}{triple})")
+    return ""
 
 
 def _text(data: dict, key: str, default: str | None = None) -> str | None:
@@ -166,18 +192,19 @@ def metric_from_data(data: dict[str, Any], default_title: str = "Untitled metric
     symbols = {s.name: s for s in coordinates + parameters}
 
     functions: dict[str, sympy.Expr] = {}
-    for name, args in _table(data, "functions").items():
+    function_signs: list[FunctionSign] = []
+    for name, entry in _table(data, "functions").items():
         check_identifier(name, "functions")
         if name in symbols:
             raise InputError(f"'{name}' is declared both as a symbol and as a function")
-        if not isinstance(args, list) or not args or not all(isinstance(a, str) for a in args):
-            raise InputError(f"function '{name}' needs a non-empty list of coordinate names, e.g. {name} = [\"t\"]")
+        args, signs = _function_entry(name, entry)
         for a in args:
             if a not in names:
                 raise InputError(f"function '{name}' depends on '{a}', which is not a coordinate")
         if len(set(args)) != len(args):
             raise InputError(f"function '{name}' lists an argument twice")
         functions[name] = sympy.Function(name)(*(symbols[a] for a in args))
+        function_signs += signs
 
     differentials = {f"d{c.name}": sympy.Symbol(f"d{c.name}") for c in coordinates}
     clash = [n for n in list(symbols) + list(functions) if n in differentials]
@@ -228,8 +255,61 @@ def metric_from_data(data: dict[str, Any], default_title: str = "Untitled metric
         line_element_expression=line_expression,
         notes=notes,
         assumptions=tuple((n, declared.get(n, "real")) for n in list(names) + [p.name for p in parameters]),
+        function_signs=tuple(function_signs),
         **requests,
     )
+
+
+FUNCTION_KEYS = ("of", "sign", "derivative_sign")
+
+
+def _function_entry(name: str, entry) -> tuple[list[str], list[FunctionSign]]:
+    """The arguments of a function declared in [functions] and its declared signs.
+
+    ``name = ["t", "r"]`` (no sign), or a table ``name = { of = [...], sign = "...", derivative_sign = ... }``
+    where ``derivative_sign`` is a word for a function of one coordinate and a table {coordinate = word}
+    for a function of several."""
+    example = f'{name} = {{ of = ["r"], sign = "positive" }}'
+    if isinstance(entry, list):
+        args, table = entry, {}
+    elif isinstance(entry, dict):
+        unknown = [k for k in entry if k not in FUNCTION_KEYS]
+        if unknown:
+            raise InputError(f"function '{name}': unknown key '{unknown[0]}' (known keys: {', '.join(FUNCTION_KEYS)})")
+        if "of" not in entry:
+            raise InputError(f"function '{name}' needs 'of', the coordinates it depends on, e.g. {example}")
+        args, table = entry["of"], entry
+    else:
+        raise InputError(f"function '{name}' needs a non-empty list of coordinate names, e.g. {name} = [\"t\"] "
+                         f"or {example}")
+    if not isinstance(args, list) or not args or not all(isinstance(a, str) for a in args):
+        raise InputError(f"function '{name}' needs a non-empty list of coordinate names, e.g. {name} = [\"t\"]")
+    signs = []
+    if "sign" in table:
+        signs.append(FunctionSign(name, _sign_word(table["sign"], f"function '{name}': sign")))
+    if "derivative_sign" in table:
+        given = table["derivative_sign"]
+        if isinstance(given, str):
+            if len(args) != 1:
+                raise InputError(f"function '{name}' depends on {', '.join(args)}: give one derivative sign per "
+                                 f"coordinate, e.g. derivative_sign = {{ {args[0]} = \"positive\" }}")
+            signs.append(FunctionSign(name, _sign_word(given, f"function '{name}': derivative_sign"), args[0]))
+        elif isinstance(given, dict):
+            for along, word in given.items():
+                if along not in args:
+                    raise InputError(f"function '{name}': derivative_sign names '{along}', which is not one of "
+                                     f"its arguments ({', '.join(args)})")
+                signs.append(FunctionSign(name, _sign_word(word, f"function '{name}': derivative_sign.{along}"), along))
+        else:
+            raise InputError(f"function '{name}': derivative_sign must be a sign word such as \"nonnegative\" "
+                             "(or, for a function of several coordinates, a table of them)")
+    return list(args), signs
+
+
+def _sign_word(word, where: str) -> str:
+    if not isinstance(word, str) or word not in FUNCTION_SIGN_WORDS:
+        raise InputError(f"{where}: unknown sign {word!r} (use one of {', '.join(FUNCTION_SIGN_WORDS)})")
+    return word
 
 
 def _check_keys(table: dict, known: tuple[str, ...], where: str) -> None:

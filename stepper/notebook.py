@@ -47,7 +47,7 @@ from sympy.printing.str import StrPrinter
 
 from .record import as_expression
 from .record import Derivation
-from .quantities import QUANTITIES
+from .quantities import QUANTITIES, in_position
 from .runtime import MODULES as RUNTIME_MODULES, inlined_source
 from .record import ASSUMPTION_WORDS, HOLDS_WORDS, Decision, Method, Step, Verdict
 
@@ -59,6 +59,7 @@ KERNELSPEC = {"display_name": "Python 3", "language": "python", "name": "python3
 
 _IDENTIFIER = re.compile(r"[A-Za-z][A-Za-z0-9_]*")
 _STEP_ID = re.compile(r"[A-Za-z0-9_/,:]+")
+_POSITIONS = re.compile(r"[ud]{1,8}")
 
 def _runtime_names() -> frozenset[str]:
     """Every name the inlined runtime helpers define at top level (functions and tables)."""
@@ -396,6 +397,9 @@ class _Cells:
             ("check", "ansatz_solution", ""): self.ansatz_check,
             ("geodesic", "", ""): self.geodesic_equations,
             ("claim", "*", "*"): self.claim,
+            # components an audit raised or lowered into the index position a claim names
+            **{(kind, name, "*"): self.moved_component for name, q in QUANTITIES.items() if q.tensor == name
+               for kind in ("raising", "lowering")},
         }
 
     # small pieces ---------------------------------------------------------
@@ -630,6 +634,29 @@ residues = {{
 verdict({self._id(step)}, recorded_holds, residues)"""
         return "riemann_lowered_pair_symmetry", code
 
+    def _positions(self, positions: str) -> str:
+        """Index positions ("ud") as a string literal."""
+        if not isinstance(positions, str) or not _POSITIONS.fullmatch(positions):
+            raise NotebookError(f"index positions {positions!r} are not letters u and d")
+        return f'"{positions}"'
+
+    def moved_component(self, step):
+        p = step.params
+        source = p.get("source")
+        if source not in QUANTITIES or QUANTITIES[source].tensor != step.quantity:
+            raise NotebookError(f"step {step.id}: {source!r} is not a position of the {step.quantity} tensor")
+        # the Weyl cell checked only the independent C_abcd; its helper gives every ordering
+        accessor = "weyl_from_lowered" if source == "weyl" else f"lambda *i: component({source}, *i)"
+        names = self.s.names(step.component)
+        positions = self._positions(p["positions"])
+        code = f"""# One component in the index positions a claim names, from the recorded {source} and the recorded metric.
+recorded = {self.s.expr(step.result)}
+check({self._id(step)}, recorded,
+      moved_component({accessor}, {self._positions(p["source_positions"])}, {positions}, ({names},)))
+moved_components["{step.quantity}", {positions}, {names}] = recorded
+{self._done(step)}"""
+        return "moved_component", code
+
     def claim(self, step):
         p = step.params
         number = int(p["number"])
@@ -666,6 +693,17 @@ claim_agrees = vanishes(claimed - derived)
         if q is None or not q.claimable:
             raise NotebookError(f"claim {number}: unknown quantity {quantity!r}")
         component = p.get("component", "")
+        indices = p.get("indices", "")
+        if indices and indices != q.positions:  # a claim in another index position
+            member = in_position(quantity, indices)
+            if member is None:
+                moved = [s for s in self.d.steps if s.stage == "audit" and s.kind in ("raising", "lowering")
+                         and s.quantity == q.tensor and s.component == component
+                         and s.params.get("positions") == indices]
+                if not moved:
+                    return None
+                return f'moved_components["{q.tensor}", {self._positions(indices)}, {self.s.names(component)}]'
+            quantity, q = member.name, member
         if quantity in scalars:
             return scalars[quantity] if quantity in results else None
         if quantity == "weyl":
@@ -1040,6 +1078,9 @@ print("{step.id}: undecided (no frame, or T not diagonal in it), as recorded")""
         for label, row in rows.items():
             how, point = self._inequality_how(row)
             extra = "" if point is None else ", " + point
+            signs = self._function_signs_source(row)
+            if signs:
+                extra += ", signs=" + signs
             lines.append(f"recheck_inequality({self._id(step)}, {_label_literal(label)}, "
                          f"recorded[{_label_literal(label)}][0], \"{how}\"{extra})")
         lines += ["if combined_answer([answer for _, answer in recorded.values()]) != recorded_holds:",
@@ -1061,6 +1102,22 @@ print("{step.id}: undecided (no frame, or T not diagonal in it), as recorded")""
         if method is Method.SAMPLED:
             return "sampled", None
         return "undecided", None
+
+    def _function_signs_source(self, row) -> str:
+        """The declared signs of free functions a recorded decision used, as Python source:
+        {m(v): "nonnegative", Derivative(m(v), v): "positive"} ('' when it used none)."""
+        decision = Decision.from_data(row["decision"])
+        functions = {f.func.__name__: f for f in self.d.metric.functions}
+        coordinates = {c.name: c for c in self.d.metric.coordinates}
+        entries = []
+        for sign in decision.function_signs:
+            if sign.function not in functions or (sign.along and sign.along not in coordinates):
+                raise NotebookError(f"a recorded decision names the sign of {sign.function!r}, which is not a "
+                                    "function of the metric")
+            f = functions[sign.function]
+            target = sympy.Derivative(f, coordinates[sign.along]) if sign.along else f
+            entries.append(f"{self.s.expr(target)}: \"{sign.sign}\"")
+        return "{" + ", ".join(entries) + "}" if entries else ""
 
     def _point_source(self, point: dict) -> str:
         by_name = {s.name: s for _, s in self.s.symbols}

@@ -11,6 +11,7 @@ Grammar (highest binding first; the ordering is common practice, the same as
 Python's and most calculators')::
 
     primary   number | name | name "(" arguments ")" | "(" expression ")"
+            | "diff" "(" expression "," coordinate [ "," count ] { "," coordinate [ "," count ] } ")"
     power     primary [ ("^" | "**") operand ]       right-associative
     operand   { "+" | "-" } power                     unary signs bind looser than power
     product   operand { ("*" | "/") operand }         left-associative
@@ -21,8 +22,21 @@ Every number is exact: ``0.1`` becomes ``Rational(1, 10)``, never a float.
 A chain ``a*b/c`` is one ``sympy.Mul(a, b, c**-1)`` and a chain ``a - b + c``
 one ``sympy.Add(a, -b, c)``.
 
+``diff(w, x)`` is the derivative of ``w`` (a declared function, an
+abbreviation or any expression) with respect to the coordinate ``x``;
+``diff(w, x, y)`` differentiates by x, then y; a whole number after a
+coordinate repeats it, as in sympy: ``diff(w, x, 2)`` is the second
+derivative.  Derivatives are read where the caller names the coordinates
+(claims: :attr:`Vocabulary.coordinates`); a declared name ``diff`` takes
+precedence.
+
+A Greek letter typed in Unicode is a letter of a name, read as its spelled
+name (:data:`UNICODE_GREEK`): ``θ`` is ``theta``, ``dθ`` the differential
+``dtheta``, ``Λ`` is ``Lambda``, ``π`` is ``pi``.
+
 Guards against hostile text, each a one-line error: length (MAX_TEXT_LENGTH),
-nesting (MAX_DEPTH), division by a literal zero and any undefined value
+nesting (MAX_DEPTH), derivatives of high order or large work (MAX_DERIVATIVE_ORDER,
+MAX_DERIVATIVE_WORK), division by a literal zero and any undefined value
 (zoo, nan, oo), numbers too large to compute quickly (MAX_NUMBER_BITS,
 checked *before* sympy is asked to compute them) and constants nested so
 deep that sympy's numerical checks on them would take very long
@@ -44,11 +58,13 @@ from types import MappingProxyType
 from typing import Callable, Mapping, NamedTuple, NoReturn
 
 import sympy
+from sympy.core.function import AppliedUndef
 
 from stepper.errors import InputError
 from stepper.guards import (
     MAX_CONSTANT_NESTING,
     MAX_DEPTH,
+    MAX_DERIVATIVE_ORDER,
     MAX_DIGITS,
     MAX_NUMBER_BITS,
     MAX_TEXT_LENGTH,
@@ -63,9 +79,11 @@ __all__ = [
     "ELEMENTARY_FUNCTIONS",
     "MAX_CONSTANT_NESTING",
     "MAX_DEPTH",
+    "MAX_DERIVATIVE_ORDER",
     "MAX_NUMBER_BITS",
     "MAX_TEXT_LENGTH",
     "RESERVED_NAMES",
+    "UNICODE_GREEK",
     "Vocabulary",
     "check_identifier",
     "parse_expression",
@@ -93,6 +111,22 @@ ELEMENTARY_FUNCTIONS: Mapping[str, Callable[[sympy.Expr], sympy.Expr]] = Mapping
 """The fixed list of one-argument functions a text may call."""
 
 _IDENTIFIER = re.compile(r"[A-Za-z][A-Za-z0-9_]*")
+
+UNICODE_GREEK: Mapping[str, str] = MappingProxyType(
+    {
+        **dict(zip("αβγδεζηθικλμνξπρστυφχψω",
+                   "alpha beta gamma delta epsilon zeta eta theta iota kappa lambda mu nu xi pi rho sigma tau "
+                   "upsilon phi chi psi omega".split())),
+        **dict(zip("ΓΔΘΛΞΠΣΥΦΨΩ", "Gamma Delta Theta Lambda Xi Pi Sigma Upsilon Phi Psi Omega".split())),
+        # The variant forms, and the micro sign that keyboards type for mu.
+        "ϑ": "theta", "ϕ": "phi", "ϵ": "epsilon", "ϱ": "rho", "ς": "sigma", "\u00b5": "mu",
+    }
+)
+"""Greek letters typed in Unicode -> the spelled names they are read as (θ -> theta).  The capitals that look
+like Latin letters (Α, Β, Ε, ...) are not among them: they stay unexpected characters."""
+
+DERIVATIVE = "diff"
+"""The plain syntax's derivative, ``diff(w, x)``, as sympy users write it."""
 
 
 def _reserved_names() -> frozenset[str]:
@@ -127,14 +161,20 @@ class Vocabulary:
     """Name -> an already-parsed expression that the name stands for."""
     differentials: Mapping[str, sympy.Symbol] = field(default_factory=dict)
     """``"dt"`` -> ``Symbol("dt")``; only line elements use these."""
+    coordinates: tuple[str, ...] | None = None
+    """The names in ``symbols`` that are coordinates, the variables a derivative may be taken by (claims pass
+    the metric's); None where derivatives are not read (a metric file's own text)."""
 
 
 def check_identifier(name: str, where: str) -> None:
     """Raise InputError unless ``name`` may be declared by a metric file."""
     if not isinstance(name, str) or not _IDENTIFIER.fullmatch(name):
+        spelled = "".join(UNICODE_GREEK.get(c, c) for c in name) if isinstance(name, str) else ""
+        hint = (f" (write {show(spelled)}; in expressions a Greek letter is read as its name)"
+                if spelled != name and _IDENTIFIER.fullmatch(spelled) else "")
         raise InputError(
             f"invalid name {show(str(name))} in {where}: a name is a letter "
-            "followed by letters, digits or '_'"
+            f"followed by letters, digits or '_'{hint}"
         )
     if name in RESERVED_NAMES:
         raise InputError(
@@ -158,14 +198,21 @@ def parse_expression(text: str, vocabulary: Vocabulary, where: str) -> sympy.Exp
 
 class _Token(NamedTuple):
     kind: str  # "number", "name", "operator", "bad" (a character outside the grammar) or "end"
-    text: str
+    text: str  # as written
     column: int  # 1-based
+    spelled: str = ""  # for a name with Greek letters: the name it is read as (dθ -> dtheta)
+
+    @property
+    def word(self) -> str:
+        """The name a name token stands for."""
+        return self.spelled or self.text
 
 
+_GREEK = "".join(UNICODE_GREEK)
 _TOKEN = re.compile(
     r"(?P<space>[ \t\r\n]+)"
     r"|(?P<number>(?:[0-9]+(?:\.[0-9]*)?|\.[0-9]+)(?:[eE][+-]?[0-9]+)?)"
-    r"|(?P<name>[A-Za-z_][A-Za-z0-9_]*)"
+    rf"|(?P<name>[A-Za-z_{_GREEK}][A-Za-z0-9_{_GREEK}]*)"
     r"|(?P<operator>\*\*|[-+*/^(),])"
 )
 _UNICODE_OPERATORS = {"\u2212": "-", "\u00d7": "*", "\u00b7": "*", "\u22c5": "*"}
@@ -194,7 +241,11 @@ def _tokenize(text: str) -> list[_Token]:
             break
         kind = match.lastgroup
         assert kind is not None
-        if kind != "space":
+        if kind == "name":
+            written = match.group()
+            spelled = "".join(UNICODE_GREEK.get(c, c) for c in written)
+            tokens.append(_Token(kind, written, position + 1, spelled if spelled != written else ""))
+        elif kind != "space":
             tokens.append(_Token(kind, match.group(), position + 1))
         position = match.end()
     tokens.append(_Token("end", "", len(text) + 1))
@@ -287,9 +338,11 @@ class _Parser(GuardedReader[_Token]):
         token = self.peek()
         if token.kind == "number":
             value: sympy.Expr = self.number(self.advance())
+        elif token.kind == "name" and self.kind_of(token.word) == "derivative":
+            value = self.derivative(self.advance())
         elif token.kind == "name":
             self.advance()
-            kind = self.kind_of(token.text)
+            kind = self.kind_of(token.word)
             called = kind in ("function", "elementary") and self.at("(")
             value = self.name(token, kind, self.arguments() if called else None)
         elif self.at("("):
@@ -378,13 +431,15 @@ class _Parser(GuardedReader[_Token]):
             return "pi"
         if name in ELEMENTARY_FUNCTIONS:
             return "elementary"
+        if name == DERIVATIVE:
+            return "derivative"
         return None
 
     def name(
         self, token: _Token, kind: str | None, arguments: list[sympy.Expr] | None
     ) -> sympy.Expr:
         """The value of a name; ``arguments`` is the parsed call, if there was one."""
-        name = token.text
+        name = token.word
         vocabulary = self.vocabulary
         if kind == "differential":
             return vocabulary.differentials[name]
@@ -408,4 +463,61 @@ class _Parser(GuardedReader[_Token]):
                     token.column,
                 )
             return self.apply(token, ELEMENTARY_FUNCTIONS[name], arguments[0])
-        self.fail(f"unknown name {show(name)}", token.column)
+        self.fail(f"unknown name {show(token.text)}", token.column, self.unknown_hint(token))
+
+    def unknown_hint(self, token: _Token) -> str:
+        """Advice for an unknown name: how a Greek letter was read, a differential of an undeclared coordinate."""
+        name, parts = token.word, []
+        if token.spelled:
+            parts.append(f"read as {show(name)}")
+        differentials = self.vocabulary.differentials
+        if differentials and name.startswith("d") and len(name) > 1:
+            parts.append(f"the differential of {show(name[1:])}, which is not a declared coordinate")
+        return f" ({': '.join(parts)})" if parts else ""
+
+    # -- derivatives
+
+    def derivative(self, token: _Token) -> sympy.Expr:
+        """``diff(expression, coordinate [, count], ...)``; the current token follows the word ``diff``."""
+        usage = " (write diff(w, x), diff(w, x, y) or diff(w, x, 2))"
+        if not self.at("("):
+            self.fail(f"{show(token.text)} must be followed by '('", token.column, usage)
+        coordinates = self.vocabulary.coordinates
+        if coordinates is None:
+            self.fail(f"{show(token.text)} is not accepted here", token.column,
+                      " (derivatives are read in claims, where the coordinates are known)")
+        opening = self.advance()
+        self.enter(opening)
+        if self.at(")"):
+            self.fail(f"{show(token.text)} needs what to differentiate", self.peek().column, usage)
+        expression = self.expression()
+        variables: list[sympy.Symbol] = []
+        last: sympy.Symbol | None = None
+        while self.at(","):
+            self.advance()
+            start = self.peek()
+            value = self.expression()
+            if value.is_Integer:
+                if last is None:
+                    self.fail(f"count {value} before any coordinate in {show(token.text)}", start.column,
+                              " (a count follows the coordinate it repeats: diff(w, x, 2))")
+                if not 1 <= int(value) <= MAX_DERIVATIVE_ORDER:
+                    self.fail(f"count {value} in {show(token.text)}", start.column,
+                              f" (a count is a whole number from 1 to {MAX_DERIVATIVE_ORDER})")
+                variables.extend([last] * (int(value) - 1))
+                last = None
+                continue
+            if not (value.is_Symbol and value.name in coordinates and self.vocabulary.symbols.get(value.name) == value):
+                self.fail(f"{show(str(value))} is not a coordinate", start.column,
+                          f" (diff takes coordinates: {', '.join(coordinates)})")
+            if isinstance(expression, AppliedUndef) and value not in expression.args:
+                arguments = ", ".join(str(argument) for argument in expression.args)
+                self.fail(f"{show(str(expression.func))} does not depend on {show(value.name)}", start.column,
+                          f" (it is declared with arguments ({arguments}), so this derivative is 0)")
+            variables.append(value)
+            last = value
+        if not variables:
+            self.fail(f"{show(token.text)} needs the coordinates to differentiate by", self.peek().column, usage)
+        self.close(opening)
+        self.depth -= 1
+        return self.differentiate(expression, variables, token)

@@ -27,7 +27,10 @@ class Quantity:
     the results (default: the name), ``step`` the id of the step holding the whole quantity (default: the
     name).  ``requires`` is the metric-file table without which it is not computed ("matter", "ansatz")
     or "invariants" (skipped by --skip-invariants); ``kappa_scaled`` marks the matter quantities that carry
-    1/kappa; ``claimable`` whether a claims file may name it.
+    1/kappa; ``claimable`` whether a claims file may name it.  ``tensor`` names the tensor a quantity is
+    one index position of (G_ij and G^i_j are both "einstein"): a claim of it may ask for any position of
+    that tensor (``indices = "ud"``), read from the quantity in that position or, when the registry has
+    none, raised or lowered from the nearest one (see :func:`route`).
     """
 
     name: str
@@ -42,6 +45,7 @@ class Quantity:
     step: str = ""
     requires: str = ""
     kappa_scaled: bool = False
+    tensor: str = ""
 
     @property
     def rank(self) -> int:
@@ -68,12 +72,13 @@ class Quantity:
 _RIEMANN_ORDER = "a < b, c < d and (a, b) <= (c, d); the others follow from R_abcd = -R_bacd = -R_abdc = R_cdab"
 
 QUANTITIES: Mapping[str, Quantity] = {q.name: q for q in (
-    Quantity("metric", "metric", "dd", "g", r"ds^2 = g_{ij}\,dx^i\,dx^j", "both orders of i, j"),
+    Quantity("metric", "metric", "dd", "g", r"ds^2 = g_{ij}\,dx^i\,dx^j", "both orders of i, j", claimable=True,
+             tensor="metric"),
     Quantity("metric_derivatives", "first derivatives of the metric", "ddd", r"\partial", r"\partial_k g_{ij}",
              "keyed 'k:i,j' with i <= j; d_k g_ji = d_k g_ij"),
     Quantity("determinant", "determinant of the metric", "", "g", r"g = \det(g_{ij})", claimable=True),
     Quantity("inverse_metric", "inverse metric", "uu", "g", r"g^{ik} g_{kj} = \delta^i_j", "both orders of i, j",
-             claimable=True),
+             claimable=True, tensor="metric"),
     Quantity("christoffel", "Christoffel symbol", "udd", r"\Gamma",
              r"\Gamma^a_{bc} = \tfrac12 g^{ad}\left(\partial_b g_{dc} + \partial_c g_{db} - \partial_d g_{bc}\right)",
              "both orders of b, c (Gamma^a_cb = Gamma^a_bc)", staggered=False, claimable=True),
@@ -82,35 +87,38 @@ QUANTITIES: Mapping[str, Quantity] = {q.name: q for q in (
     Quantity("riemann", "Riemann tensor", "uddd", "R",
              (r"R^a{}_{bcd} = \partial_c \Gamma^a_{db} - \partial_d \Gamma^a_{cb} "
               r"+ \Gamma^a_{ce}\Gamma^e_{db} - \Gamma^a_{de}\Gamma^e_{cb}"),
-             "both orders of c, d (R^a_bdc = -R^a_bcd)", claimable=True),
-    Quantity("ricci", "Ricci tensor", "dd", "R", r"R_{bd} = R^a{}_{bad}", "both orders (symmetric)", claimable=True),
+             "both orders of c, d (R^a_bdc = -R^a_bcd)", claimable=True, tensor="riemann"),
+    Quantity("ricci", "Ricci tensor", "dd", "R", r"R_{bd} = R^a{}_{bad}", "both orders (symmetric)", claimable=True,
+             tensor="ricci"),
     Quantity("ricci_by_trace_identity", "Ricci tensor by the trace identity", "dd", "R^{(2)}",
              (r"R_{ij} = \partial_l \Gamma^l_{ij} - \partial_i\partial_j \ln\sqrt{|g|} "
               r"+ \Gamma^a_{ij}\,\partial_a \ln\sqrt{|g|} - \Gamma^l_{ia}\Gamma^a_{jl}"), "both orders (symmetric)"),
     Quantity("scalar", "scalar curvature", "", "R", r"R = g^{ij} R_{ij}", claimable=True),
     Quantity("einstein", "Einstein tensor", "dd", "G", r"G_{ij} = R_{ij} - \tfrac12 R\, g_{ij}",
-             "both orders (symmetric)", claimable=True),
+             "both orders (symmetric)", claimable=True, tensor="einstein"),
     Quantity("ricci_mixed", "Ricci tensor with its first index raised", "ud", "R", r"R^a{}_b = g^{ac} R_{cb}",
-             "every ordering", claimable=True),
+             "every ordering", claimable=True, tensor="ricci"),
     Quantity("einstein_mixed", "Einstein tensor with its first index raised", "ud", "G",
-             r"G^a{}_b = g^{ac} G_{cb} = R^a{}_b - \tfrac12 R\,\delta^a_b", "every ordering", claimable=True),
+             r"G^a{}_b = g^{ac} G_{cb} = R^a{}_b - \tfrac12 R\,\delta^a_b", "every ordering", claimable=True,
+             tensor="einstein"),
     Quantity("riemann_lowered", "Riemann tensor with all indices down", "dddd", "R", r"R_{abcd} = g_{ae} R^e{}_{bcd}",
-             _RIEMANN_ORDER, claimable=True),
+             _RIEMANN_ORDER, claimable=True, tensor="riemann"),
     Quantity("kretschmann", "Kretschmann scalar", "", "K", r"K = R_{abcd} R^{abcd}", claimable=True,
              requires="invariants"),
     Quantity("weyl", "Weyl tensor", "dddd", "C",
              (r"C_{abcd} = R_{abcd} - \frac{g_{ac}R_{bd} - g_{ad}R_{bc} - g_{bc}R_{ad} + g_{bd}R_{ac}}{n-2} "
               r"+ \frac{R\,(g_{ac}g_{bd} - g_{ad}g_{bc})}{(n-1)(n-2)}"), _RIEMANN_ORDER, claimable=True,
-             requires="invariants"),
+             requires="invariants", tensor="weyl"),
     Quantity("field_equation", "field equation of the ansatz", "dd", "E", r"E_{ij} = G_{ij} + \Lambda g_{ij}",
              requires="ansatz"),
     Quantity("stress_energy", "stress-energy tensor", "dd", "T",
              r"T_{ij} = \frac{1}{\kappa}\left(G_{ij} + \Lambda g_{ij}\right)", "both orders (symmetric)",
-             claimable=True, requires="matter", kappa_scaled=True),
+             claimable=True, requires="matter", kappa_scaled=True, tensor="stress_energy"),
     Quantity("stress_energy_mixed", "stress-energy tensor T^i_j", "ud", "T", r"T^i{}_j = g^{ik} T_{kj}",
-             "every ordering", claimable=True, requires="matter", kappa_scaled=True),
+             "every ordering", claimable=True, requires="matter", kappa_scaled=True, tensor="stress_energy"),
     Quantity("stress_energy_up", "stress-energy tensor T^ij", "uu", "T", r"T^{ij} = g^{ik} g^{jl} T_{kl}",
-             "both orders (symmetric)", claimable=True, requires="matter", kappa_scaled=True),
+             "both orders (symmetric)", claimable=True, requires="matter", kappa_scaled=True,
+             tensor="stress_energy"),
     Quantity("frame_stress_energy", "stress-energy tensor in the orthonormal frame", "ff", "T",
              r"T_{(a)(b)} = e_{(a)}{}^i e_{(b)}{}^j T_{ij}", "both orders (symmetric)", claimable=True,
              requires="matter", kappa_scaled=True),
@@ -166,3 +174,86 @@ def formula(name: str) -> str:
     if name in QUANTITIES:
         return QUANTITIES[name].formula
     return VERDICTS[name].formula
+
+
+# index positions -----------------------------------------------------------------------------------
+def index_positions(name: str) -> dict[str, Quantity]:
+    """The registry's quantities of the tensor that ``name`` is one index position of, keyed by their
+    positions ("dd", "ud", ...); empty when ``name`` has no index positions to choose."""
+    tensor = QUANTITIES[name].tensor
+    if not tensor:
+        return {}
+    return {q.positions: q for q in QUANTITIES.values() if q.tensor == tensor}
+
+
+def in_position(name: str, positions: str) -> Quantity | None:
+    """The registry's quantity of the same tensor as ``name`` in ``positions``, or None when there is none."""
+    return index_positions(name).get(positions)
+
+
+def route(name: str, positions: str) -> tuple[Quantity, str, tuple[int, ...]]:
+    """Where the tensor of ``name`` in ``positions`` is computed from: the registry's quantity of that tensor
+    whose positions differ in the fewest slots, every one raised or every one lowered (raising first on a
+    tie, then registry order); with the kind of the step ("raising" or "lowering") and the slots it changes.
+    Every tensor has a quantity with all indices down, so a route by raising always exists."""
+    best = None
+    for q in index_positions(name).values():
+        changed = tuple(k for k, (old, new) in enumerate(zip(q.positions, positions)) if old != new)
+        directions = {positions[k] for k in changed}
+        if len(directions) > 1:
+            continue
+        kind = "lowering" if directions == {"d"} else "raising"
+        rank = (len(changed), kind != "raising")
+        if best is None or rank < best[0]:
+            best = (rank, q, kind, changed)
+    if best is None:
+        raise ValueError(f"{name} has no index positions to compute {positions!r} from")
+    return best[1], best[2], best[3]
+
+
+_ORDINALS = ("first", "second", "third", "fourth", "fifth", "sixth")
+
+
+def position_words(positions: str) -> str:
+    """Index positions in words: "both indices down", "the first index up", "the first and second indices up"."""
+    n = len(positions)
+    ups = [k for k, p in enumerate(positions) if p == "u"]
+    downs = [k for k, p in enumerate(positions) if p == "d"]
+    every = "both" if n == 2 else "all"
+    if not ups:
+        return f"{every} indices down" if n > 1 else "the index down"
+    if not downs:
+        return f"{every} indices up" if n > 1 else "the index up"
+    few, word = (ups, "up") if len(ups) <= len(downs) else (downs, "down")
+    names = [_ORDINALS[k] if k < len(_ORDINALS) else f"index {k + 1}" for k in few]
+    listed = names[0] if len(names) == 1 else ", ".join(names[:-1]) + " and " + names[-1]
+    return f"the {listed} {'index' if len(few) == 1 else 'indices'} {word}"
+
+
+def component_text(symbol: str, positions: str, names: list[str] | tuple[str, ...]) -> str:
+    """A component in plain text with its index positions: G^t_t, G_tt, R^theta_phi,theta,phi (names of
+    one character are run together, longer ones separated by commas)."""
+    glue = "" if all(len(n) == 1 for n in names) else ","
+    out, k = symbol.lstrip("\\"), 0
+    while k < len(positions):
+        end = k
+        while end < len(positions) and positions[end] == positions[k]:
+            end += 1
+        out += ("^" if positions[k] == "u" else "_") + glue.join(names[k:end])
+        k = end
+    return out
+
+
+def indexed_tex(symbol: str, positions: str, indices: list[str] | tuple[str, ...], staggered: bool = True) -> str:
+    """A TeX head with its indices (each already TeX) placed by ``positions``, e.g. G^{t}{}_{t}; a staggered
+    symbol puts an empty group where the indices change height."""
+    out, k = symbol, 0
+    while k < len(positions):
+        end = k
+        while end < len(positions) and positions[end] == positions[k]:
+            end += 1
+        if k and staggered:
+            out += "{}"
+        out += ("^" if positions[k] == "u" else "_") + "{" + "".join(indices[k:end]) + "}"
+        k = end
+    return out

@@ -66,6 +66,47 @@ ASSUMPTION_WORDS = {
     "complex": (),
 }
 
+#: The words a free function's sign (or its first derivative's sign) may be declared with, as sympy assumptions.
+FUNCTION_SIGN_WORDS = {
+    "positive": ("real", "positive"),
+    "nonnegative": ("real", "nonnegative"),
+    "negative": ("real", "negative"),
+    "nonpositive": ("real", "nonpositive"),
+    "nonzero": ("real", "nonzero"),
+}
+#: The same words as relations, for sentences.
+SIGN_RELATIONS = {"positive": "> 0", "nonnegative": ">= 0", "negative": "< 0", "nonpositive": "<= 0",
+                  "nonzero": "!= 0"}
+
+
+@dataclass(frozen=True)
+class FunctionSign:
+    """A declared sign of a free function (``along`` empty) or of its first derivative along the argument
+    named ``along``: the metric file's ``[functions]`` table, ``m = { of = ["v"], sign = "nonnegative",
+    derivative_sign = "nonnegative" }``, gives FunctionSign("m", "nonnegative") and
+    FunctionSign("m", "nonnegative", "v")."""
+
+    function: str
+    sign: str
+    along: str = ""
+
+    def __post_init__(self) -> None:
+        if self.sign not in FUNCTION_SIGN_WORDS:
+            raise ValueError(f"unknown sign {self.sign!r} for the function {self.function}")
+
+    def words(self) -> str:
+        """``m >= 0`` or ``dm/dv >= 0``."""
+        relation = SIGN_RELATIONS[self.sign]
+        return f"d{self.function}/d{self.along} {relation}" if self.along else f"{self.function} {relation}"
+
+    def as_data(self) -> dict:
+        return {"function": self.function, "derivative": self.along or None, "sign": self.sign}
+
+    @classmethod
+    def from_data(cls, data: Mapping[str, Any]) -> "FunctionSign":
+        return cls(str(data["function"]), str(data["sign"]), str(data.get("derivative") or ""))
+
+
 #: The one vocabulary for a decision, everywhere stepper writes one (terminal, PDF, notebook).
 HOLDS_WORDS: Mapping[bool | None, str] = {True: "holds", False: "does not hold", None: "undecided"}
 #: The same for an energy condition, where "violated" is the word of the trade.
@@ -121,6 +162,9 @@ class Decision:
     digits: int = 0
     missing: tuple[str, ...] = ()
     free_functions: bool = False
+    #: The declared signs of free functions (and first derivatives) that decided it, when the signs of the
+    #: symbols alone did not.
+    function_signs: tuple[FunctionSign, ...] = ()
 
     #: Longest exact value (in characters of sympy's string form) a sentence quotes in full.
     EXACT_TEXT_LIMIT = 60
@@ -140,6 +184,8 @@ class Decision:
             data["missing"] = list(self.missing)
         if self.free_functions:
             data["free_functions"] = True
+        if self.function_signs:
+            data["function_signs"] = [s.as_data() for s in self.function_signs]
         return data
 
     @classmethod
@@ -148,7 +194,8 @@ class Decision:
                    value_there=data.get("value_there"), points=int(data.get("points", 0)),
                    region={name: tuple(bounds) for name, bounds in data.get("region", {}).items()},
                    digits=int(data.get("digits", 0)), missing=tuple(data.get("missing", ())),
-                   free_functions=bool(data.get("free_functions", False)))
+                   free_functions=bool(data.get("free_functions", False)),
+                   function_signs=tuple(FunctionSign.from_data(s) for s in data.get("function_signs", ())))
 
     def value_there_is_short(self) -> bool:
         return self.value_there is not None and len(sympy.sstr(self.value_there)) <= self.EXACT_TEXT_LIMIT
@@ -156,6 +203,8 @@ class Decision:
     def sentence(self, value: sympy.Expr) -> str:
         """The decision in plain words (``value`` is the quantity decided)."""
         functions = ", free functions and their derivatives taken as real" if self.free_functions else ""
+        if self.function_signs:
+            functions = ", with " + ", ".join(s.words() for s in self.function_signs) + " as declared"
         m = self.method
         if m is Method.IDENTICALLY_ZERO:
             return "it is identically 0"
@@ -307,6 +356,8 @@ class MetricRecord:
     #: The line element as read, in the coordinates' differentials (symbols named d<coordinate>),
     #: abbreviations written out; None when the metric was given as a matrix.
     line_element_expression: sympy.Expr | None = None
+    #: Declared signs of free functions and of their first derivatives, in the order of the metric file.
+    function_signs: tuple[FunctionSign, ...] = ()
 
     @property
     def extra_symbols(self) -> tuple[sympy.Symbol, ...]:

@@ -22,8 +22,8 @@ import sympy
 from .record import Derivation
 from .latex import (SHORT_LATEX, ExpressionWriter, component_symbol, escape_text, frame_index,
                     has_component_symbol, mapping_lines, pdf_string)
-from .quantities import QUANTITIES, VERDICTS
-from .record import CONDITION_WORDS, HOLDS_WORDS, Decision, Method, Step, Verdict
+from .quantities import QUANTITIES, VERDICTS, position_words
+from .record import CONDITION_WORDS, HOLDS_WORDS, Decision, FunctionSign, Method, Step, Verdict
 
 ENERGY_CONDITIONS = ("null", "weak", "strong", "dominant")
 
@@ -70,6 +70,10 @@ STATEMENTS = {
 
 #: Width (in characters of LaTeX) of an expression shown in a table cell before it is broken.
 CELL_WIDTH = 48
+
+#: A declared sign of a free function as a relation, in LaTeX.
+_SIGN_TEX = {"positive": "> 0", "nonnegative": r"\ge 0", "negative": "< 0", "nonpositive": r"\le 0",
+             "nonzero": r"\ne 0"}
 
 _LONG_WORD = re.compile(r"\S{25,}")
 
@@ -147,6 +151,18 @@ class _Model:
     def value_tex(self, value: sympy.Expr, width: int = SHORT_LATEX) -> str:
         return self.writer.fits(value, width)
 
+    def function_sign_tex(self, sign: FunctionSign) -> str:
+        """A declared sign of a free function or of its first derivative, e.g. m'(v) \\ge 0."""
+        functions = {f.func.__name__: f for f in self.d.metric.functions}
+        f = functions.get(sign.function)
+        if f is None:
+            target = self.sym(sign.function)
+        elif sign.along:
+            target = self.writer.inline(sympy.Derivative(f, next(a for a in f.args if a.name == sign.along)))
+        else:
+            target = self.writer.inline(f)
+        return f"{target} {_SIGN_TEX[sign.sign]}"
+
     def function_tex(self, f: sympy.Expr) -> str:
         """A free function with its arguments, e.g. B(r)."""
         if isinstance(f, sympy.core.function.AppliedUndef):
@@ -217,6 +233,9 @@ class _Model:
             if step.quantity not in QUANTITIES or step.component:  # only a whole table of components
                 return []
             return [{"tex": tex, "long": long} for tex, long in mapping_lines(result, step.quantity, self.writer)]
+        if self.is_moved(step):
+            lhs = component_symbol(step.quantity, step.component.split(","), self.writer, step.params["positions"])
+            return [self.eq(lhs, result)]
         lhs = QUANTITIES[step.quantity].symbol if step.quantity in QUANTITIES else escape_text(step.id)
         return [self.eq(lhs, result)]
 
@@ -445,6 +464,8 @@ class _Model:
                     rf"\({self.function_tex(r['unknown'])}\) with sympy's \texttt{{dsolve}}.")
         if fields(step) == ("ansatz", "ansatz_solution", "") and isinstance(r, dict):
             return "The metric with the solution put in."
+        if self.is_moved(step):
+            return self.moved_annotation(step)
         if step.kind == "raising" and step.quantity in QUANTITIES and fields(step) not in ANNOTATIONS:
             q = QUANTITIES[step.quantity]
             return rf"The {escape_text(q.words)}, \({q.formula}\) (components not listed vanish)."
@@ -453,6 +474,22 @@ class _Model:
                     r"accelerations \(du^a/d\tau = -\Gamma^a_{bc}\,u^b u^c\), summed over all \(b\) and \(c\), so "
                     r"that each cross term \(b \ne c\) appears twice.")
         return escape_text(step.annotation)
+
+    @staticmethod
+    def is_moved(step: Step) -> bool:
+        """A component the audit raised or lowered into the index position a claim names."""
+        return (step.kind in ("raising", "lowering") and bool(step.component) and step.quantity in QUANTITIES
+                and "positions" in step.params)
+
+    def moved_annotation(self, step: Step) -> str:
+        p = step.params
+        names = step.component.split(",")
+        symbol = component_symbol(step.quantity, names, self.writer, p["positions"])
+        source = QUANTITIES[p["source"]]
+        how = "raised with the inverse metric" if step.kind == "raising" else "lowered with the metric"
+        return (rf"The {escape_text(QUANTITIES[step.quantity].words)} with {position_words(p['positions'])}, "
+                rf"\({symbol}\), for the audit: {how} from the recorded {escape_text(source.words)} "
+                rf"(components of the metric that vanish are left out of the sum).")
 
     def component_annotation(self, step: Step) -> str:
         quantity = step.quantity
@@ -508,6 +545,9 @@ class _Model:
         decision = Decision.from_data(row["decision"])
         method = decision.method
         functions = ", free functions and their derivatives taken as real" if decision.free_functions else ""
+        if decision.function_signs:
+            functions = ", with " + ", ".join(
+                rf"\({self.function_sign_tex(s)}\)" for s in decision.function_signs) + " as declared"
         if method is Method.IDENTICALLY_ZERO:
             return "proven", "identically zero", "holds: it is identically zero"
         if method is Method.DECLARED_SIGNS and decision.holds:
@@ -687,7 +727,7 @@ class _Model:
         if key == "energy":
             text = [(r"Each condition is a set of inequalities in \(\rho\) and the \(p_{(k)}\), multiplied by "
                      r"\(\kappa > 0\), which changes no sign. Each is \textbf{proven} from the declared signs of the "
-                     r"symbols (or because it vanishes identically), \textbf{violated} (everywhere, or at an exact point "
+                     r"symbols and free functions (or because it vanishes identically), \textbf{violated} (everywhere, or at an exact point "
                      r"of the sampling region, which is a counterexample), or \textbf{undecided}, with the reason; "
                      r"non-negative values at every sampled point are evidence, not proof.")]
             region = next((s.params.get("region") for s in self.d.steps
@@ -730,6 +770,7 @@ class _Model:
                         for name, word in assumptions.items()],
             "functions": [{"tex": w.symbol(f.func.__name__),
                            "arguments": ", ".join(w.symbol(a.name) for a in f.args)} for f in m.functions],
+            "function_signs": [self.function_sign_tex(sign) for sign in m.function_signs],
             "abbreviations": [{"tex": w.definition(name, value)} for name, value in m.abbreviations],
             "line_element": breakable_text(m.line_element) if m.line_element else "",
             "components": [{"tex": tex, "long": long}
@@ -809,8 +850,9 @@ class _Model:
                 "solution": self.pack(solution), "verdicts": verdicts, "counts": counts,
                 "numeric": numeric_line}
 
-    def claim_symbol(self, quantity: str, component: str) -> str:
-        """The typeset symbol a claim is about, or '' when there is none."""
+    def claim_symbol(self, quantity: str, component: str, positions: str = "") -> str:
+        """The typeset symbol a claim is about, or '' when there is none; ``positions`` are the claim's
+        ``indices`` when it gave them."""
         w = self.writer
         if quantity == "ansatz_solution":
             return w.symbol(component) if component else ""
@@ -822,7 +864,29 @@ class _Model:
         names = component.split(",")
         if not all(n in self.d.metric.names for n in names):
             return ""
-        return component_symbol(quantity, names, w)
+        return component_symbol(quantity, names, w, positions)
+
+    def slip_tex(self, slip: dict) -> str:
+        """The diagnosis typeset from the slip's data (the audit's words are the plain-text version)."""
+        w = self.writer
+        if slip.get("kind") == "metric_factor":
+            table, key = slip["factor"]
+            g = component_symbol(table, key.split(","), w)
+            words = "inverse-metric" if table == "inverse_metric" else "metric"
+            return rf"off by a factor of the {words} component \({g}\): the claim is \({g}\) times the correct value"
+        tensor, component = slip["tensor"], slip["component"]
+        names = component.split(",")
+        other = component_symbol(tensor, names, w, slip["positions"])
+        text = (rf"an index raised or lowered: the claim is \({other}\), the component with "
+                rf"{position_words(slip['positions'])}")
+        terms = slip.get("terms", [])
+        if len(terms) > 4:
+            return text
+        shown = [r"\,".join([component_symbol(table, key.split(","), w) for table, key in t["factors"]]
+                            + [component_symbol(tensor, t["component"].split(","), w, slip["positions"])])
+                 for t in terms]
+        lhs = component_symbol(tensor, names, w, slip["claimed"])
+        return text + rf"; \({lhs} = {' + '.join(shown) or '0'}\)"
 
     def audit(self) -> dict | None:
         """Each claim with its verdict, the values involved and a link to the step it was checked against."""
@@ -842,16 +906,20 @@ class _Model:
                     return None
                 line, long = w.equation("", p[key])
                 return {"tex": line[3:] if line.startswith(" = ") else line, "long": long}
+            indices = p.get("indices", "")
             rows.append({
                 "anchor": self.anchor(step.id), "number": p["number"], "label": escape_text(p["label"]),
-                "what": escape_text(p["quantity"].replace("_", " ") + (f" {p['component']}" if p["component"] else "")),
-                "symbol": self.claim_symbol(p["quantity"], p["component"]),
+                "what": escape_text(p["quantity"].replace("_", " ") + (f" {p['component']}" if p["component"] else "")
+                                    + (f", indices {indices}" if indices else "")),
+                "symbol": self.claim_symbol(p["quantity"], p["component"], indices),
                 "syntax": escape_text(p["syntax"]), "text": breakable_text(p["text"]),
                 "outcome": escape_text(p["outcome"]), "agrees": p["outcome"] == "agrees",
-                "diagnosis": escape_text(p["diagnosis"]), "evidence": breakable_text(plain_evidence[p["number"]]),
+                "diagnosis": self.slip_tex(p["slip"]) if p.get("slip") else escape_text(p["diagnosis"]),
+                "evidence": breakable_text(plain_evidence[p["number"]]),
                 "claimed": tex("claimed"), "correct": tex("correct"), "difference": tex("difference"),
                 "checked": self.link(step.uses[0]), "earliest": p["earliest_wrong"]})
-        return {"title": escape_text(report["title"]), "claims": rows,
+        moved = [self.step_entry(s) for s in self.d.steps if s.stage == "audit" and s.kind != "claim"]
+        return {"title": escape_text(report["title"]), "claims": rows, "steps": moved,
                 "all_agree": report["all_agree"], "earliest": report["earliest_wrong"],
                 "agreed": sum(1 for r in rows if r["agrees"])}
 
@@ -869,7 +937,7 @@ class _Model:
 def report_model(derivation: Derivation) -> dict[str, Any]:
     """Plain data for the report templates."""
     model = _Model(derivation)
-    steps = [s for s in derivation.steps if s.kind != "claim"]
+    steps = [s for s in derivation.steps if s.stage != "audit"]  # the audit's own steps go into its section
     entries = [model.step_entry(s) for s in steps]
     return {
         "metric": model.metric_section(),

@@ -35,8 +35,8 @@ from sympy.core.function import AppliedUndef
 
 from .version import __version__
 from .errors import InputError
-from .record import (ASSUMPTION_WORDS, STAGES, AnsatzRequest, Derivation, MatterRequest, MetricRecord, OrbitRequest, Simplification, Step,
-                     StepKind, Verdict)
+from .record import (ASSUMPTION_WORDS, FUNCTION_SIGN_WORDS, STAGES, AnsatzRequest, Derivation, FunctionSign, MatterRequest,
+                     MetricRecord, OrbitRequest, Simplification, Step, StepKind, Verdict)
 
 TRACE_FORMAT = "stepper trace"
 TRACE_FORMAT_VERSION = 2
@@ -135,6 +135,9 @@ class _Writer:
         n = m.dimension
         for symbol in tuple(m.coordinates) + tuple(m.parameters):
             self.expression(symbol)
+        # Declared signs of free functions: written only when there are some, so that a metric without
+        # them has the same trace as before they existed.
+        signs = {"function_signs": [s.as_data() for s in m.function_signs]} if m.function_signs else {}
         return {
             "title": m.title,
             "notes": m.notes,
@@ -143,6 +146,7 @@ class _Writer:
             "assumptions": {name: word for name, word in m.assumptions},
             "parameters": [p.name for p in m.parameters],
             "functions": {f.func.__name__: [a.name for a in f.args] for f in m.functions},
+            **signs,
             "abbreviations": {name: self.expression(value) for name, value in m.abbreviations},
             "line_element": m.line_element,
             "line_element_expression": (None if m.line_element_expression is None
@@ -417,8 +421,26 @@ class _Reader:
             notes=_text(data.get("notes", ""), "metric.notes"),
             assumptions=tuple((_identifier(k, "metric.assumptions"), _text(v, "metric.assumptions"))
                               for k, v in _mapping(data.get("assumptions", {}), "metric.assumptions").items()),
+            function_signs=self.function_signs(data.get("function_signs", []), functions),
             matter=self.matter(requests.get("matter")), ansatz=self.ansatz(requests.get("ansatz")),
             orbit=self.orbit(requests.get("orbit")))
+
+    def function_signs(self, data, functions: list) -> tuple[FunctionSign, ...]:
+        """The declared signs of free functions (absent from traces of metrics without them)."""
+        where = "metric.function_signs"
+        arguments = {f.func.__name__: [a.name for a in f.args] for f in functions}
+        out = []
+        for entry in _list(data, where):
+            entry = _mapping(entry, where)
+            name, along = entry.get("function"), entry.get("derivative")
+            if name not in arguments:
+                raise TraceFormatError(f"{where}: {name!r} is not a function of the metric")
+            if along is not None and along not in arguments[name]:
+                raise TraceFormatError(f"{where}: {name} does not depend on {along!r}")
+            if entry.get("sign") not in FUNCTION_SIGN_WORDS:
+                raise TraceFormatError(f"{where}: unknown sign {entry.get('sign')!r} for {name}")
+            out.append(FunctionSign(name, entry["sign"], along or ""))
+        return tuple(out)
 
     def matter(self, data) -> MatterRequest | None:
         if data is None:

@@ -140,14 +140,28 @@ def test_claims_of_the_rotating_black_hole(tmp_path):
 
 
 def test_undecided_claims_say_why(monkeypatch):
-    # When simplify() cannot show a difference is zero, the verdict is "cannot be decided" with numeric evidence.
+    # When neither simplify() nor the identity rewrites show a difference is zero, the verdict is "cannot be
+    # decided" with numeric evidence.  sqrt(1 + 2H + 2 sqrt(2H)) = 1 + sqrt(2H) for H > 0 (common practice:
+    # square the right-hand side), a nested root no rewrite of stepper's denests.
+    import sympy
+    d = example_derivation("inflating_universe")
+    monkeypatch.setattr(sympy, "simplify", lambda expr, *a, **k: expr)
+    rows = [("scalar", "", "plain", "12*H^2 + sqrt(1 + 2*H + 2*sqrt(2*H)) - sqrt(2*H) - 1")]
+    verdicts, _ = outcomes(d, rows)
+    assert verdicts[0].outcome == UNDECIDED
+    assert "not proven symbolically" in verdicts[0].evidence
+    assert "identity rewrites" in verdicts[0].evidence
+
+
+def test_compound_angles_settle_without_simplify(monkeypatch):
+    # sin^2 x + cos^2 x = 1 for any x, here x = H t (Abramowitz & Stegun 4.3.10, from memory): once
+    # "cannot be decided" when simplify() did not find it, now proven by the identity rewrites.
     import sympy
     d = example_derivation("inflating_universe")
     monkeypatch.setattr(sympy, "simplify", lambda expr, *a, **k: expr)
     rows = [("scalar", "", "plain", "12*H^2 + sin(H*t)^2 + cos(H*t)^2 - 1")]
     verdicts, _ = outcomes(d, rows)
-    assert verdicts[0].outcome == UNDECIDED
-    assert "not proven symbolically" in verdicts[0].evidence
+    assert verdicts[0].outcome == AGREES
 
 
 def test_example_claims_file_shows_every_verdict_kind_and_is_recorded():
@@ -157,6 +171,11 @@ def test_example_claims_file_shows_every_verdict_kind_and_is_recorded():
     d = record_audit(d, title, verdicts, earliest)
     seen = {v.outcome for v in verdicts}
     assert {AGREES, DIFFERS, UNDECIDED, UNREADABLE} <= seen
+    by_label = {v.claim.label: v.outcome for v in verdicts}
+    # cot(theta) = (1/2)(cot(theta/2) - tan(theta/2)) (Abramowitz & Stegun 4.3.20 and 4.3.24, from memory);
+    # Gamma^phi_theta phi = cot(theta) (Carroll, Spacetime and Geometry, sec. 5.2, from memory).
+    assert by_label["notes p. 7, a half-angle form from an old table"] == AGREES
+    assert by_label["notes p. 8, a nested root copied from a table"] == UNDECIDED
     data = json.loads(trace_json(d))
     assert data["results"]["audit"]["all_agree"] is False
     assert data["results"]["audit"]["earliest_wrong"] == earliest

@@ -103,6 +103,17 @@ def expanding_dust_universe(x, p):
     return mpmath.diag([-1, a ** 2, a ** 2, a ** 2])
 
 
+def ball_compactness(r):
+    """The concrete q(r) used for the free function of anisotropic_ball: 0 <= q < 1 and q' >= 0 for r > 0,
+    as its metric file declares."""
+    return r ** 2 / (r ** 2 + 4)
+
+
+def anisotropic_ball(x, p):
+    _t, r, th, _ph = x
+    return mpmath.diag([-1, 1 / (1 - ball_compactness(r)), r ** 2, r ** 2 * mpmath.sin(th) ** 2])
+
+
 def spinning_black_hole(x, p):
     _t, r, th, _ph = x
     M, al = p["M"], p["alpha"]
@@ -220,6 +231,10 @@ CASES = {
         # outside the throat r = b0 = 1.1, where 1 - b0^2/r^2 > 0
         metric=wormhole_passage, params={"b0": Fraction(11, 10)},
         boxes=[(-1.0, 1.0), (2.0, 6.0), THETA, PHI]),
+    "anisotropic_ball": dict(
+        metric=anisotropic_ball, params={},
+        boxes=[(-1.0, 1.0), (0.5, 3.0), THETA, PHI],
+        functions={"q": lambda t, r, th, ph: r ** 2 / (r ** 2 + 4)}),
     "exterior_from_ansatz": dict(
         metric=exterior_from_ansatz, params={},
         boxes=[(-1.0, 1.0), (1.0, 4.0), THETA, PHI],
@@ -367,6 +382,7 @@ def _coordinate_names(name):
         "closed_static_universe": ["t", "chi", "theta", "phi"],
         "wormhole_passage": ["t", "r", "theta", "phi"],
         "exterior_from_ansatz": ["t", "r", "theta", "phi"],
+        "anisotropic_ball": ["t", "r", "theta", "phi"],
     }[name]
 
 

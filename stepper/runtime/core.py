@@ -350,6 +350,22 @@ def mixed_from_lowered(table, a, b):
     return sum((component(inverse_metric, a, c) * component(table, c, b) for c in index_names), sp.S.Zero)
 
 
+def moved_component(source, source_positions, positions, indices):
+    """A tensor component in `positions` ("ud": first index up, second down) at the index names `indices`,
+    from the same tensor in `source_positions`, given as a function of index names: each index that is down
+    there and up here is raised with the recorded g^ab, each the other way lowered with the recorded g_ab."""
+    slots = [k for k in range(len(positions)) if source_positions[k] != positions[k]]
+    total = sp.S.Zero
+    for dummies in itertools.product(index_names, repeat=len(slots)):
+        factor, inner = sp.S.One, list(indices)
+        for k, e in zip(slots, dummies):
+            factor *= component(inverse_metric if positions[k] == "u" else metric, indices[k], e)
+            inner[k] = e
+        if factor != 0:
+            total += factor * source(*inner)
+    return total
+
+
 def lowered_from_riemann(a, b, c, d):
     """R_abcd = g_ae R^e_bcd."""
     return sum((component(metric, a, e) * component(riemann, e, b, c, d) for e in index_names), sp.S.Zero)
@@ -408,4 +424,5 @@ metric, metric_derivatives, inverse_metric = {}, {}, {}
 christoffel, christoffel_trace, log_sqrt_det = {}, {}, {}
 riemann, ricci, ricci_second_route, einstein = {}, {}, {}, {}
 riemann_lowered, weyl, ricci_mixed, einstein_mixed = {}, {}, {}, {}
+moved_components = {}  # components an audit raised or lowered, keyed (tensor, positions, index names...)
 # ---- to here ----

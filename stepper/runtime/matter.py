@@ -252,36 +252,45 @@ def energy_condition_values(name):
     raise ValueError(name)
 
 
-def sign_decides(value, nonnegative):
+def sign_decides(value, nonnegative, signs=None):
     """Whether sympy's assumptions, from the declared signs alone, show value >= 0 (nonnegative=True) or
     value < 0 (nonnegative=False).  value and kappa * value (kappa > 0) are factored and tried as they are
     and as numerator * denominator (the sign of n/d wherever d != 0), with each free function and each
-    derivative taken as a real symbol (a metric is real)."""
+    derivative taken as a real symbol (a metric is real), carrying the sign ``signs`` gives it
+    ({m(v): "nonnegative", Derivative(m(v), v): "positive"}: the declared signs of free functions)."""
+    signs = signs or {}
     forms = []
     for form in (sp.factor(value), sp.factor(kappa * value)):
         numerator, denominator = sp.fraction(form)
         forms += [form, numerator * denominator]
+
+    def stand_in(f):
+        word = signs.get(f)
+        return sp.Dummy("f", real=True, **({word: True} if word else {}))
+
     for form in forms:
-        real = {f: sp.Dummy("f", real=True)
-                for f in sorted(form.atoms(sp.Derivative, sp.core.function.AppliedUndef), key=sp.default_sort_key)}
-        plain = form.subs(real)
+        derivatives = {d: stand_in(d) for d in sorted(form.atoms(sp.Derivative), key=sp.default_sort_key)}
+        plain = form.xreplace(derivatives)
+        functions = {f: stand_in(f) for f in sorted(plain.atoms(sp.core.function.AppliedUndef), key=sp.default_sort_key)}
+        plain = plain.xreplace(functions)
         if (plain.is_nonnegative if nonnegative else plain.is_negative) is True:
             return True
     return False
 
 
-def recheck_inequality(step, label, value, how, point=None):
+def recheck_inequality(step, label, value, how, point=None, signs=None):
     """Re-check one recorded answer to value >= 0.
 
     how is "zero" (identically 0), "signs" (>= 0 by the declared signs), "negative" (< 0 by the declared
     signs), "point" (< 0 at the recorded exact point), "search" (< 0 at some point of the region),
-    "sampled" (>= 0 at points of the region: evidence, not proof) or "undecided" (nothing to assert)."""
+    "sampled" (>= 0 at points of the region: evidence, not proof) or "undecided" (nothing to assert).
+    signs: the declared signs of free functions the recorded decision used (see sign_decides)."""
     where = f"step {step}, {label}"
     if how == "zero" and not vanishes(value):
         raise AssertionError(f"{where}: recorded as identically 0, but it is not")
-    if how == "signs" and not sign_decides(value, True):
+    if how == "signs" and not sign_decides(value, True, signs):
         raise AssertionError(f"{where}: recorded as >= 0 by the declared signs, which sympy does not confirm")
-    if how == "negative" and not sign_decides(value, False):
+    if how == "negative" and not sign_decides(value, False, signs):
         raise AssertionError(f"{where}: recorded as < 0 by the declared signs, which sympy does not confirm")
     if how == "point":
         here = sp.sympify(value).subs(point)
