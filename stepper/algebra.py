@@ -109,18 +109,23 @@ class _Pair:
     hyperbolic: bool
 
 
+RECIPROCAL_FUNCTIONS = {
+    sympy.tan: lambda a: sympy.sin(a) / sympy.cos(a),
+    sympy.cot: lambda a: sympy.cos(a) / sympy.sin(a),
+    sympy.sec: lambda a: 1 / sympy.cos(a),
+    sympy.csc: lambda a: 1 / sympy.sin(a),
+    sympy.tanh: lambda a: sympy.sinh(a) / sympy.cosh(a),
+    sympy.coth: lambda a: sympy.cosh(a) / sympy.sinh(a),
+    sympy.sech: lambda a: 1 / sympy.cosh(a),
+    sympy.csch: lambda a: 1 / sympy.sinh(a),
+}
+"""tan, cot, sec, csc and their hyperbolic kin through sin, cos, sinh and cosh."""
+
+
 def _rewrite_for_field(expr: sympy.Expr) -> sympy.Expr:
-    """Rewrite tan, cot, sec, csc, tanh, coth through sin/cos, sinh/cosh and
+    """Rewrite tan, cot, sec, csc, tanh, coth, sech, csch through sin/cos, sinh/cosh and
     expand multiple angles such as sin(2x) = 2 sin x cos x."""
-    replacements = {
-        sympy.tan: lambda a: sympy.sin(a) / sympy.cos(a),
-        sympy.cot: lambda a: sympy.cos(a) / sympy.sin(a),
-        sympy.sec: lambda a: 1 / sympy.cos(a),
-        sympy.csc: lambda a: 1 / sympy.sin(a),
-        sympy.tanh: lambda a: sympy.sinh(a) / sympy.cosh(a),
-        sympy.coth: lambda a: sympy.cosh(a) / sympy.sinh(a),
-    }
-    for head, rule in replacements.items():
+    for head, rule in RECIPROCAL_FUNCTIONS.items():
         if expr.has(head):
             expr = expr.replace(head, rule)
     if expr.has(sympy.sin, sympy.cos, sympy.sinh, sympy.cosh):

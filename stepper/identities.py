@@ -40,7 +40,7 @@ from typing import Iterable
 import sympy
 from sympy.core.function import AppliedUndef
 
-from .algebra import FieldArithmetic, UnsupportedByField
+from .algebra import RECIPROCAL_FUNCTIONS, FieldArithmetic, UnsupportedByField
 from .record import FUNCTION_SIGN_WORDS, FunctionSign, as_expression
 
 #: Largest expression (nodes of its tree) any rewrite may produce.
@@ -180,16 +180,7 @@ def signed_stand_ins(expr: sympy.Expr, signs: Iterable[FunctionSign] = ()) -> tu
 # The rewrites
 # ---------------------------------------------------------------------------
 
-_RECIPROCAL = {
-    sympy.tan: lambda a: sympy.sin(a) / sympy.cos(a),
-    sympy.cot: lambda a: sympy.cos(a) / sympy.sin(a),
-    sympy.sec: lambda a: 1 / sympy.cos(a),
-    sympy.csc: lambda a: 1 / sympy.sin(a),
-    sympy.tanh: lambda a: sympy.sinh(a) / sympy.cosh(a),
-    sympy.coth: lambda a: sympy.cosh(a) / sympy.sinh(a),
-    sympy.sech: lambda a: 1 / sympy.cosh(a),
-    sympy.csch: lambda a: 1 / sympy.sinh(a),
-}
+_RECIPROCAL = RECIPROCAL_FUNCTIONS
 
 
 def _reciprocal_functions(expr: sympy.Expr) -> sympy.Expr:
