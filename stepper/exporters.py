@@ -77,7 +77,10 @@ def latex_preamble() -> str:
     document.packages.append(Package("amsmath"))
     document.packages.append(Package("amssymb"))
     document.packages.append(Package("microtype"))
-    document.packages.append(Package("hyperref", options=["hidelinks", "bookmarks=false"]))
+    document.packages.append(Package("xcolor"))
+    document.packages.append(Package("hyperref", options=["colorlinks", "linkcolor=blue!50!black",
+                                                          "urlcolor=blue!50!black", "bookmarks=true",
+                                                          "bookmarksnumbered=true"]))
     return document.dumps_packages()
 
 

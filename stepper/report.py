@@ -776,7 +776,19 @@ class _Model:
             "components": [{"tex": tex, "long": long}
                            for tex, long in mapping_lines(self.d.results["metric"], "metric", w)],
             "arithmetic": escape_text(self.d.arithmetic_description),
+            "signature": self.signature_text(),
         }
+
+    def signature_text(self) -> str:
+        """The signature in words and signs, "Lorentzian, signature (-,+,+,+)", from the record's convention data;
+        a sentence saying it is not fixed when the declared signs do not fix it."""
+        signs = (self.d.convention_data or {}).get("signature")
+        if not signs:
+            return "Signature: not fixed by the declared signs of the symbols (sympy's assumptions)."
+        negative = signs.count("-")
+        kind = ("Riemannian" if negative in (0, len(signs)) else
+                "Lorentzian" if 1 in (negative, len(signs) - negative) else "of indefinite signature")
+        return f"Signature: \\(({','.join(signs)})\\), {kind}, as fixed by the declared signs."
 
     def summary(self) -> dict:
         r = self.d.results

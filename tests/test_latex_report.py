@@ -233,13 +233,13 @@ def test_ansatz_section_shows_reduced_equations_dependence_and_solutions():
     # Birkhoff's theorem (Carroll, sec. 5.2, from memory): the solution is Schwarzschild, here
     # B = r/(C1 + r) and A = C2 (1 + C1/r) with C1 = -2M.
     assert r"B = \frac{r}{C_{1} + r}" in body
-    summary = section_text(tex, "Summary")
+    summary = section_text(tex, "Summary of the results")
     assert "The solution of the ansatz" in summary and "satisfies every field equation" in summary
 
 
 def test_summary_lists_the_new_verdicts_with_their_evidence():
     tex = ReportExporter().export(derived("wormhole_passage"))
-    summary = section_text(tex, "Summary")
+    summary = section_text(tex, "Summary of the results")
     for label in ("Trace-free stress-energy", "Perfect fluid at rest in the frame", "Null energy condition",
                   "Weak energy condition", "Strong energy condition", "Dominant energy condition"):
         assert rf"\textbf{{{label}}}" in summary
