@@ -54,3 +54,12 @@ def test_page_one_holds_the_results_and_the_pdf_has_bookmarks(tmp_path):
                            capture_output=True, text=True, check=True).stdout
     for words in ("Summary of the results", "Signature", "Ricci-flat", "Numeric verification"):
         assert words in first, words
+
+
+def test_results_are_numbered_equations_with_stable_unique_labels():
+    derivation = example_derivation("compact_star_exterior")
+    tex = ReportExporter().export(derivation)
+    labels = re.findall(r"\\label\{([^}]*)\}", tex)
+    assert len(labels) == len(set(labels)) > 20
+    assert "eq:metric.1" in labels and "eq:summary.1" in labels and "eq:step3.1" in labels
+    assert ReportExporter().export(derivation) == tex  # the same labels on every run
