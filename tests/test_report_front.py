@@ -63,3 +63,11 @@ def test_results_are_numbered_equations_with_stable_unique_labels():
     assert len(labels) == len(set(labels)) > 20
     assert "eq:metric.1" in labels and "eq:summary.1" in labels and "eq:step3.1" in labels
     assert ReportExporter().export(derivation) == tex  # the same labels on every run
+
+
+def test_the_audit_difference_does_not_take_a_name_the_metric_uses():
+    # The seminar's metric has no Delta, but the rotating black hole's does (common practice: Delta =
+    # r^2 - 2Mr + a^2 in Boyer-Lindquist form); the audit's difference is written out in words instead.
+    tex = ReportExporter().export(example_derivation("seminar_notes"))
+    assert r"\text{claimed} - \text{correct} = " in tex
+    assert r"\Delta = " not in tex
