@@ -25,7 +25,7 @@ from .quantities import VERDICTS
 from .record import CONDITION_WORDS, HOLDS_WORDS, Derivation
 from .errors import InputError, Stopped, TimeLimitReached
 from .metricfile import load_metric
-from .outputs import SwapState, check_output_folder, replace_output_set
+from .outputs import SwapState, check_output_folder, replace_output_set, what_is_kept
 
 
 #: Exit status of a bug in stepper (distinct from 1, a disagreement, and 2, bad input).
@@ -330,8 +330,7 @@ def _tex_failure(err, out_dir: Path, user_templates: bool) -> _TexFailure:
     handle, log_path = tempfile.mkstemp(prefix="stepper-tex-", suffix=".log")
     with os.fdopen(handle, "w", encoding="utf-8") as log:
         log.write(err.log)
-    kept = "the previous outputs there are kept" if out_dir.exists() else "nothing was written"
-    return _TexFailure(f"no report.pdf: {err} (TeX's log: {log_path}); {kept} in {out_dir}",
+    return _TexFailure(f"no report.pdf: {err} (TeX's log: {log_path}); {what_is_kept(out_dir, SwapState())}",
                        2 if user_templates else INTERNAL_ERROR)
 
 
@@ -412,12 +411,7 @@ def main(argv: Sequence[str] | None = None) -> int:
 
 
 def _what_was_kept(args: argparse.Namespace) -> str:
-    folder = args.folder
-    if args.swap.replaced:
-        return f"the new outputs were already complete in {folder}"
-    if folder is not None and Path(folder).is_dir() and any(Path(folder).iterdir()):
-        return f"the previous outputs in {folder} are kept"
-    return "nothing was written"
+    return what_is_kept(args.folder, args.swap)
 
 
 @contextmanager

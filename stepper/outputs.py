@@ -51,6 +51,15 @@ class SwapState:
         self.replaced = False
 
 
+def what_is_kept(folder: Path | None, state: SwapState) -> str:
+    """What a run that stopped leaves in its output folder, in words for its last message."""
+    if state.replaced:
+        return f"the new outputs were already complete in {folder}"
+    if folder is not None and Path(folder).is_dir() and any(Path(folder).iterdir()):
+        return f"the previous outputs in {folder} are kept"
+    return "nothing was written"
+
+
 def check_output_folder(folder: Path) -> None:
     """Refuse, before any work is done, an output folder stepper may not replace as a whole.
 
@@ -127,8 +136,8 @@ def replace_output_set(folder: Path, files: Mapping[str, str | bytes], keep: tup
             shutil.rmtree(staging, ignore_errors=True)  # after an exchange it holds the previous set
     except OSError as err:
         shutil.rmtree(staging, ignore_errors=True)
-        kept = "the previous outputs there are kept" if folder.exists() else "nothing was written"
-        raise InputError(f"cannot write the outputs to {folder}: {err.strerror or err}; {kept}") from None
+        raise InputError(f"cannot write the outputs to {folder}: {err.strerror or err}; "
+                         f"{what_is_kept(folder, state)}") from None
     except BaseException:
         if not state.replaced:
             shutil.rmtree(staging, ignore_errors=True)

@@ -165,7 +165,7 @@ def test_a_full_disk_keeps_the_previous_set(tmp_path, reference_sets, monkeypatc
     capsys.readouterr()
     assert cli.main(["derive", str(SECOND), "-o", str(folder), "--jobs", "1", "--quiet"]) == 2
     err = capsys.readouterr().err.strip().splitlines()
-    assert len(err) == 1 and "No space left on device" in err[0] and "previous outputs there are kept" in err[0]
+    assert len(err) == 1 and "No space left on device" in err[0] and f"the previous outputs in {folder} are kept" in err[0]
     assert snapshot(folder) == reference_sets[0]
     assert staging_folders(tmp_path) == []
 

@@ -21,6 +21,12 @@ energy_density = sp.S.Zero
 # Matter: the stress-energy tensor, the orthonormal frame, the energy conditions
 # ---------------------------------------------------------------------------
 
+def expression(value):
+    """value as a sympy object: the notebook passes expressions stepper printed as code, never text, and
+    strict sympify refuses text rather than parse it."""
+    return sp.sympify(value, strict=True)
+
+
 def stress_energy_from_einstein(i, j):
     """T_ij = (G_ij + Lambda g_ij) / kappa."""
     return (component(einstein, i, j) + cosmological_constant * component(metric, i, j)) / kappa
@@ -78,7 +84,7 @@ def region_points(symbols, count, norms=None):
     fractions = [sp.Rational(p, q) for q in range(2, 9) for p in range(1, q) if sp.gcd(p, q) == 1]
     sizes = [sp.Integer(1), sp.Integer(2), sp.Integer(3), sp.Rational(1, 2), sp.Integer(5), sp.Integer(10),
              sp.Rational(3, 2), sp.Integer(7), sp.Rational(1, 3), sp.Integer(20)]
-    names = set(symbols) | {s for norm in norms.values() for s in sp.sympify(norm).free_symbols}
+    names = set(symbols) | {s for norm in norms.values() for s in expression(norm).free_symbols}
     ordered = sorted(names, key=sp.default_sort_key)
     points = []
     for attempt in range(400):
@@ -90,7 +96,7 @@ def region_points(symbols, count, norms=None):
             else:
                 size = sizes[(attempt + position) % len(sizes)]
                 point[s] = -size if s.is_nonpositive else size
-        if all(sp.sympify(norm).subs(point).is_positive is True for norm in norms.values()):
+        if all(expression(norm).subs(point).is_positive is True for norm in norms.values()):
             points.append(point)
             if len(points) == count:
                 break
@@ -104,7 +110,7 @@ def sign_agrees(first, second, point=None):
     the exact point (by default frame_point, a point of the region where the frame exists; a root of a
     positive function keeps its sign where the function stays positive); False when the signs differ
     there; None when neither can be told."""
-    product = sp.factor(sp.sympify(first) * sp.sympify(second))
+    product = sp.factor(expression(first) * expression(second))
     real = {f: sp.Dummy("f", real=True, nonzero=True)
             for f in sorted(product.atoms(sp.Derivative, sp.core.function.AppliedUndef), key=sp.default_sort_key)}
     if product.subs(real).is_nonnegative is True:
@@ -112,7 +118,7 @@ def sign_agrees(first, second, point=None):
     point = frame_point if point is None else point
     if point is None:
         return None
-    a, b = (sp.N(sp.sympify(value).subs(point), 40) for value in (first, second))
+    a, b = (sp.N(expression(value).subs(point), 40) for value in (first, second))
     if not (a.is_real and b.is_real):
         return None
     return not (a * b < 0)
@@ -122,7 +128,7 @@ def check_with_root(step, recorded, rational, radicand, part):
     """recorded must be rational / sqrt(radicand) with the positive root: recorded**2 * radicand = rational**2
     exactly, and recorded has the sign of rational (sign_agrees)."""
     where = f"step {step}, {part}"
-    if not vanishes(sp.expand(sp.sympify(recorded) ** 2) * radicand - rational ** 2):
+    if not vanishes(sp.expand(expression(recorded) ** 2) * radicand - rational ** 2):
         raise AssertionError(f"{where}: the recorded value {str(recorded)[:200]} differs from the value recomputed here")
     agrees = sign_agrees(recorded, rational)
     if agrees is False:
@@ -146,7 +152,7 @@ def check_frame(step, time, vectors, norms):
                              f"built here in the order {list(unnormalised)}")
     for label in frame_order:
         check(step, norms[label], squared_norms[label], part=f"squared norm N_({label})")
-    symbols = set().union(*(sp.sympify(value).free_symbols for vector in vectors.values() for value in vector.values()))
+    symbols = set().union(*(expression(value).free_symbols for vector in vectors.values() for value in vector.values()))
     point = next(iter(region_points(symbols, 1, norms)), None)
     for label in frame_order:
         e, w = vectors[label], unnormalised[label]
@@ -293,19 +299,19 @@ def recheck_inequality(step, label, value, how, point=None, signs=None):
     if how == "negative" and not sign_decides(value, False, signs):
         raise AssertionError(f"{where}: recorded as < 0 by the declared signs, which sympy does not confirm")
     if how == "point":
-        here = sp.sympify(value).subs(point)
+        here = expression(value).subs(point)
         if here.is_negative is not True:
             raise AssertionError(f"{where}: recorded as negative at {point}, but there it equals {here}")
     if how == "search":
-        points = region_points(sp.sympify(value).free_symbols, 50)
-        if not any(sp.sympify(value).subs(here).is_negative for here in points):
+        points = region_points(expression(value).free_symbols, 50)
+        if not any(expression(value).subs(here).is_negative for here in points):
             raise AssertionError(f"{where}: recorded as violated, but it is >= 0 at {len(points)} points of the region")
         print(f"{step}: {label} is negative at a point of the region, as recorded")
         return
     if how == "sampled":
-        points = region_points(sp.sympify(value).free_symbols, 5)
+        points = region_points(expression(value).free_symbols, 5)
         for here in points:
-            if sp.sympify(value).subs(here).is_negative:
+            if expression(value).subs(here).is_negative:
                 raise AssertionError(f"{where}: recorded as >= 0 at the sampled points, but it is negative at {here}")
         print(f"{step}: {label} >= 0 at {len(points)} exact points of the region (evidence, not proof)")
         return
