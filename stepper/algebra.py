@@ -56,6 +56,22 @@ class ZeroTest:
 
     vanishes: bool | None
     evidence: str
+    #: How it was decided, as data for the exporters: "canonical form", "cancel", "simplify", "sampled"
+    #: (vanishes at ``points`` random points to ``digits`` digits), "no point" (no sample point could be
+    #: evaluated) or "point" (non-zero at a sample point, ``magnitude`` its size there).
+    how: str = ""
+    points: int = 0
+    digits: int = 0
+    magnitude: float | None = None
+
+    def as_data(self) -> dict:
+        """The fields an exporter words the test from (recorded in a step's params)."""
+        data: dict = {"how": self.how, "vanishes": self.vanishes}
+        if self.how == "sampled":
+            data.update(points=self.points, digits=self.digits)
+        if self.magnitude is not None:
+            data["magnitude"] = self.magnitude
+        return data
 
 
 class UnsupportedByField(Exception):
@@ -319,7 +335,7 @@ class FieldArithmetic:
     description = (
         "canonical form of a rational function in the coordinates, parameters, "
         "sine/cosine pairs and derivatives of free functions, reduced with "
-        "cos^2 = 1 - sin^2 (cosh^2 = 1 + sinh^2) and a cosine-free denominator"
+        "cos² = 1 − sin² (cosh² = 1 + sinh²) and a cosine-free denominator"
     )
 
     @property
@@ -327,9 +343,9 @@ class FieldArithmetic:
         """The rewrite applied to every result, named for the generators this metric needs."""
         rules = []
         if any(sign < 0 for _, _, sign in self._relations):
-            rules.append("cos^2 = 1 - sin^2")
+            rules.append("cos² = 1 − sin²")
         if any(sign > 0 for _, _, sign in self._relations):
-            rules.append("cosh^2 = 1 + sinh^2")
+            rules.append("cosh² = 1 + sinh²")
         return "canonical rational form" + (", with " + " and ".join(rules) if rules else "")
 
     def __init__(self, coordinates: Sequence[sympy.Symbol], expressions: Iterable[sympy.Expr]):
@@ -526,8 +542,8 @@ class FieldArithmetic:
     # queries --------------------------------------------------------------
     def zero_test(self, element: RationalFunction) -> ZeroTest:
         if not element.num:
-            return ZeroTest(True, "its canonical rational form is 0")
-        return ZeroTest(False, "its canonical rational form has a non-zero numerator")
+            return ZeroTest(True, "its canonical rational form is 0", "canonical form")
+        return ZeroTest(False, "its canonical rational form has a non-zero numerator", "canonical form")
 
     def is_constant(self, element: RationalFunction) -> bool:
         return all(not self.diff(element, i) for i in range(len(self.coordinates)))
@@ -713,8 +729,8 @@ class ExpressionArithmetic:
     """Plain sympy expressions; zero tests by cancel/simplify, then numerically."""
 
     name = "expression"
-    rewrite = "sympy cancel()"
-    description = "sympy's cancel() after every operation; zero tests by simplify(), then at random points"
+    rewrite = "sympy's cancel"
+    description = "sympy's cancel after every operation; zero tests by sympy's simplify, then at random points"
 
     def __init__(self, coordinates: Sequence[sympy.Symbol], sample_symbols: Sequence[sympy.Symbol],
                  samples: int = 6, digits: int = 30, seed: int = 20261201):
@@ -751,12 +767,12 @@ class ExpressionArithmetic:
     def zero_test(self, element: Expression) -> ZeroTest:
         expr = element.expr
         if expr == 0:
-            return ZeroTest(True, "cancel() reduces it to 0")
+            return ZeroTest(True, "cancel() reduces it to 0", "cancel")
         if expr in self._zero_cache:
             return self._zero_cache[expr]
         simplified = sympy.simplify(expr)
         if simplified == 0:
-            outcome = ZeroTest(True, "simplify() reduces it to 0")
+            outcome = ZeroTest(True, "simplify() reduces it to 0", "simplify")
         else:
             outcome = self._numeric_zero_test(simplified)
         self._zero_cache[expr] = outcome
@@ -780,11 +796,12 @@ class ExpressionArithmetic:
             tried += 1
             worst = max(worst, abs(complex(value)))
         if tried == 0:
-            return ZeroTest(None, "simplify() does not reduce it to 0 and no sample point could be evaluated")
+            return ZeroTest(None, "simplify() does not reduce it to 0 and no sample point could be evaluated", "no point")
         if worst < 10 ** (-(self._digits - 5)):
             return ZeroTest(None, f"vanishes at {tried} random points to {self._digits - 5} digits; "
-                                  "not proven symbolically")
-        return ZeroTest(False, f"non-zero at a random point (|value| = {float(worst):.3g})")
+                                  "not proven symbolically", "sampled", tried, self._digits - 5)
+        magnitude = float(f"{float(worst):.3g}")
+        return ZeroTest(False, f"non-zero at a random point (|value| = {magnitude:.3g})", "point", magnitude=magnitude)
 
     def to_expr(self, element: Expression) -> sympy.Expr:
         return printer_stable(sympy.factor_terms(element.expr))

@@ -324,7 +324,10 @@ class _Ansatz:
         rescaled = self.absorbable(matrix)
         c.results["ansatz"]["metric"] = components
         c.results["ansatz"]["rescalings"] = rescaled
-        note = "; ".join(f"{k} is removed by rescaling {v}" for k, v in rescaled.items())
+        note = "; ".join(f"{k} is removed by rescaling {v['coordinate']}: {v['coordinate']} -> {v['coordinate']} / "
+                         f"sqrt(|{v['factor']}|) sets it to +1 or -1, the sign being fixed by the signature (a local "
+                         f"change of coordinates: if {v['coordinate']} is periodic, its period changes)"
+                         for k, v in rescaled.items())
         c.record(id="ansatz/solution", kind="ansatz", quantity="ansatz_solution",
                  annotation="The metric with the solution put in, with integration constants "
                             f"{', '.join(s.name for s in self.constants) or 'none'}"
@@ -342,14 +345,19 @@ class _Ansatz:
         undecided = []
         holds = True
         offending = ""
+        params: dict = {"count": len(residues)}
         for ij, r in zip(keys, residues):
             test = check.zero_test(r)
             if test.vanishes is False:
                 holds = False
                 offending = f"E_{c.key(*ij)} = {check.to_expr(r)} after substitution"
+                params["residue"] = {"component": c.key(*ij), "value": check.to_expr(r), "test": test.as_data()}
                 break
             if test.vanishes is None:
                 undecided.append(f"E_{c.key(*ij)}: {test.evidence}")
+                params.setdefault("undecided", []).append({"component": c.key(*ij), "test": test.as_data()})
+        if holds:
+            params["test"] = {"how": "canonical form" if check.name == "field" else "simplify", "vanishes": True}
         if holds and undecided:
             holds = None
         how = {True: f"all {len(residues)} components E_ij vanish after substitution ("
@@ -358,6 +366,7 @@ class _Ansatz:
                None: f"not proven symbolically: {undecided[0] if undecided else ''}"}[holds]
         if failure:
             free = ", ".join(str(f) for f in self.unknowns if f not in solved)
+            params["free_unknowns"] = [f for f in self.unknowns if f not in solved]
             if holds is True:
                 how += f"; the unknowns {free} remain free ({failure})"
             else:
@@ -369,10 +378,12 @@ class _Ansatz:
         c.record(id="ansatz/check", kind="check", quantity="ansatz_solution",
                  annotation="Substitute the solution into every component E_ij = G_ij + Lambda g_ij, including the "
                             "duplicates and those that follow by the Bianchi identity.",
-                 formula=FORMULAS["check"], uses=("ansatz/solution", "ansatz/equations"), result=verdict)
+                 formula=FORMULAS["check"], uses=("ansatz/solution", "ansatz/equations"), result=verdict,
+                 params=params)
 
     def absorbable(self, matrix) -> dict:
-        """Constants that only scale g_xx of a coordinate x the metric does not depend on."""
+        """Constants that only scale g_xx of a coordinate x the metric does not depend on, as
+        {constant: {"coordinate": x, "factor": f(C)}}: x -> x / sqrt(|f(C)|) sets the factor to +1 or -1."""
         out = {}
         n, x = self.n, self.c.x
         for C in self.constants:
@@ -385,9 +396,7 @@ class _Ansatz:
             entry = sympy.factor(matrix[i, i])
             scale, rest = entry.as_independent(C, as_Add=False)
             if rest.free_symbols == {C}:
-                out[C.name] = (f"{x[i].name}: {x[i].name} -> {x[i].name} / sqrt(|{rest}|) sets it to +1 or -1, "
-                              "the sign being fixed by the signature (a local change of coordinates: if "
-                              f"{x[i].name} is periodic, its period changes)")
+                out[C.name] = {"coordinate": x[i].name, "factor": printer_stable(rest)}
         return out
 
 

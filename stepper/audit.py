@@ -65,9 +65,15 @@ class ClaimVerdict:
     evidence: str
     #: For an ansatz solution: the values of the recorded integration constants that make it the claim.
     constants: tuple[tuple[str, sympy.Expr], ...] = ()
-    #: The slip the diagnosis names, as data, for the slips that have a form (see :func:`slip_sentence`,
-    #: which makes the diagnosis from it): {"kind": "index_position", "positions": the other position, ...}
-    #: or {"kind": "metric_factor", "factor": [table, component]}; empty otherwise.
+    #: The slip the diagnosis names, as data, for every claim that differs (empty otherwise): its "kind" and
+    #: the fields an exporter typesets it from.  {"kind": "index_position", "positions": the other position,
+    #: ...} and {"kind": "metric_factor", "factor": [table, component]} (:func:`slip_sentence` makes their
+    #: words from the data); "correct_is_zero", "claim_is_zero", "none"; "sign_flip" with "hint" (a key of
+    #: :data:`SIGN_HINTS`, "" for none); "factor" with the exact "ratio"; "kappa_missing" (with "lambda":
+    #: whether the Lambda term is there), "einstein_only", "lambda_missing", "kappa_twice", each with "kappa"
+    #: and "einstein": {"positions", "component"} (positions "ff": frame indices); "cross_terms_once" with
+    #: "direction" and "sign_lost"; "swapped_indices" with "quantity", "positions", "component", "other";
+    #: "other_direction" with "quantity", "component", "direction"; "density_for_pressure" with "component".
     slip: Mapping[str, Any] = field(default_factory=dict)
     #: Steps the audit recorded to check this claim: its component raised or lowered into the claimed
     #: index position when the derivation holds none in that position.
@@ -75,6 +81,31 @@ class ClaimVerdict:
     #: How the rewrites of :mod:`stepper.identities` decided the difference, when they were tried (as data:
     #: the rewrites applied, the one that settled it, the function signs used, what stopped them).
     zero_test: Mapping[str, Any] = field(default_factory=dict)
+    #: The arithmetic's own zero test of the difference, as data (algebra.ZeroTest.as_data: "how",
+    #: "vanishes", and "points", "digits" or "magnitude" where they apply).
+    test: Mapping[str, Any] = field(default_factory=dict)
+    #: For an ansatz solution, how the claim was compared with the recorded general solution, as data:
+    #: "case" ("recorded", "other branch", "no constants"), "fixed" ([[constant, value, claim number], ...]
+    #: fixed by earlier claims), "solves" (does it solve the recorded equation), "contradicts" (the recorded
+    #: solution only for constants that contradict an earlier claim), "equation_test" (the zero test of the
+    #: equation, as data).
+    solution: Mapping[str, Any] = field(default_factory=dict)
+
+
+#: The explanations a sign flip may have, keyed by the hint recorded in a "sign_flip" slip; the quantities
+#: each is given for.
+SIGN_HINTS = {
+    "riemann_formula": ("riemann",),
+    "riemann_sign": ("riemann_lowered",),
+    "ricci_contraction": ("ricci",),
+    "curvature_sign": ("frame_ricci", "scalar", "einstein", "stress_energy", "frame_stress_energy",
+                       "stress_energy_up"),
+    "curvature_sign_or_signature": ("stress_energy_mixed",),
+    "density_from_mixed": ("energy_density",),
+    "tension": ("pressure",),
+    "geodesic_minus": ("geodesic_acceleration",),
+}
+_HINT_OF = {quantity: hint for hint, quantities in SIGN_HINTS.items() for quantity in quantities}
 
 
 # index positions -------------------------------------------------------------------
@@ -272,6 +303,7 @@ class Auditor:
         expr = expr.xreplace({sympy.pi: PI})
         A = self.arithmetic_for(expr)
         test = A.zero_test(A.from_expr(expr))
+        self.__dict__.setdefault("plain_tests", {})[original] = test.as_data()
         # The stronger zero test (stepper.identities) where the arithmetic's own could not prove a zero:
         # rewrites that settle trigonometric, hyperbolic, exponential and logarithmic identities, with free
         # functions carrying their declared signs.  A "non-zero" found by sampling, which gives free
@@ -418,15 +450,20 @@ class Auditor:
         zero, evidence = self.vanishes(difference)
         found = getattr(self, "identity_tests", {}).get(difference)
         zero_test = found.as_data() if found is not None else {}
+        test = self.plain_test(difference)
         if zero is True:
             return ClaimVerdict(claim, AGREES, step_id, correct, sympy.Integer(0), "", f"the difference: {evidence}",
-                                steps=steps, zero_test=zero_test)
+                                steps=steps, zero_test=zero_test, test=test)
         if zero is None:
             return ClaimVerdict(claim, UNDECIDED, step_id, correct, self.simplified(difference), "",
-                                f"the difference: {evidence}", steps=steps, zero_test=zero_test)
+                                f"the difference: {evidence}", steps=steps, zero_test=zero_test, test=test)
         words, slip = self.diagnosis(seen, correct)
         return ClaimVerdict(claim, DIFFERS, step_id, correct, self.simplified(difference),
-                            words, f"the difference: {evidence}", slip=slip, steps=steps)
+                            words, f"the difference: {evidence}", slip=slip, steps=steps, test=test)
+
+    def plain_test(self, expr: sympy.Expr) -> dict:
+        """The arithmetic's own zero test of ``expr`` (after :meth:`vanishes` ran on it), as data."""
+        return dict(getattr(self, "plain_tests", {}).get(expr, {}))
 
     # ansatz solutions -------------------------------------------------------
     def recorded_constants(self) -> list[sympy.Symbol]:
@@ -461,29 +498,41 @@ class Auditor:
                 return ClaimVerdict(claim, AGREES, step_id, correct, sympy.Integer(0), "",
                                     f"the claim is the recorded solution {name} = {correct}"
                                     + (f" with {shown}" if shown else "") + f"; the difference: {evidence}",
-                                    tuple((c.name, printer_stable(v)) for c, v in assignments.items() if v != c))
+                                    tuple((c.name, printer_stable(v)) for c, v in assignments.items() if v != c),
+                                    test=self.plain_test(claim.expr - specific),
+                                    solution={"case": "recorded"})
         # no values of the constants make them equal
         difference = printer_stable(self.simplified(claim.expr - correct))
         solves, how = self.solves_equation(claim, step_id)
+        data = {"fixed": self.fixed_data(), "solves": solves, "equation_test": self.equation_test}
         if solves is True:
             return ClaimVerdict(claim, UNDECIDED, step_id, correct, difference, "",
                                 f"the claimed function solves the equation of {step_id} ({how}), but it is not the "
                                 f"recorded general solution {name} = {correct} for any values of its constants"
-                                + self.fixed_words() + ": another branch or a special solution")
-        diagnosis = self.diagnose(claim, correct)
+                                + self.fixed_words() + ": another branch or a special solution",
+                                solution={"case": "other branch", **data})
+        diagnosis, slip = self.diagnosis(claim, correct)
+        contradicts = False
         if self.fitted and not candidates:
             alone = self.fits(general, claim.expr, [dummies[c] for c in constants])
             for values in alone:
                 if self.vanishes(claim.expr - general.xreplace(values))[0] is True:
                     diagnosis = ("it is the recorded solution only for constants that contradict an earlier claim"
                                  + self.fixed_words())
+                    contradicts = True
                     break
         if solves is False:
             diagnosis += f"; it does not solve the equation of {step_id}" if diagnosis else \
                 f"it does not solve the equation of {step_id}"
         return ClaimVerdict(claim, DIFFERS, step_id, correct, difference, diagnosis,
                             f"no values of the integration constants make the recorded solution {name} = {correct} "
-                            f"equal to the claim{self.fixed_words()}")
+                            f"equal to the claim{self.fixed_words()}", slip={} if contradicts else slip,
+                            solution={"case": "no constants", "contradicts": contradicts, **data})
+
+    def fixed_data(self) -> list:
+        """The constants fixed by earlier claims, as data: [[name, value, claim number], ...] (the value is the
+        constant itself when the claim kept it)."""
+        return [[c.name, printer_stable(v), self.fitted_by[c]] for c, v in self.fitted.items()]
 
     def fixed_words(self) -> str:
         if not self.fitted:
@@ -510,7 +559,9 @@ class Auditor:
         return [s for s in solutions if all(not v.has(*self.m.coordinates) and not v.has(*free) for v in s.values())]
 
     def solves_equation(self, claim: Claim, step_id: str) -> tuple[bool | None, str]:
-        """Does the claimed function solve the equation recorded in the step that solved for it?"""
+        """Does the claimed function solve the equation recorded in the step that solved for it?  (Its zero
+        test, as data, is left in ``self.equation_test``.)"""
+        self.equation_test = {}
         try:
             step = self.d.step(step_id)
         except KeyError:
@@ -521,6 +572,8 @@ class Auditor:
         equation = step.result["equation"].xreplace(self.fitted)
         value = sympy.together(equation.subs(f, claim.expr).doit())
         zero, evidence = self.vanishes(value)
+        found = getattr(self, "identity_tests", {}).get(value)
+        self.equation_test = {**self.plain_test(value), **({"identities": found.as_data()} if found else {})}
         return zero, evidence
 
     # slips ----------------------------------------------------------------
@@ -532,26 +585,28 @@ class Auditor:
         is the :func:`subject` of the claim as written."""
         claimed = claim.expr
         if self.vanishes(correct)[0]:
-            return "the correct value is 0: this component vanishes", {}
+            return "the correct value is 0: this component vanishes", {"kind": "correct_is_zero"}
         if self.vanishes(claimed)[0]:
-            return "the claim says 0, but this component does not vanish", {}
-        special = self.matter_slip(claim, correct) or self.geodesic_slip(claim, correct)
-        if special:
-            return special, {}
+            return "the claim says 0, but this component does not vanish", {"kind": "claim_is_zero"}
+        words, slip = self.matter_slip(claim, correct)
+        if not words:
+            words, slip = self.geodesic_slip(claim, correct)
+        if words:
+            return words, slip
         ratio = self.simplified(claimed / correct)
-        words = self.ratio_words(ratio, claim.quantity)
+        words, slip = self.ratio_words(ratio, claim.quantity)
         if words:  # a constant factor first: where g_tt g_rr = -1, a sign flip is also an index moved
-            return words, {}
+            return words, slip
         slip = self.index_position_slip(claim)
         if slip:
             return slip_sentence(slip), slip
         slip = self.metric_factor_slip(claim, correct)
         if slip:
             return slip_sentence(slip), slip
-        swapped = self.swapped_indices(claim)
-        if swapped:
-            return swapped, {}
-        return "no typical slip explains the difference", {}
+        words, slip = self.swapped_indices(claim)
+        if words:
+            return words, slip
+        return "no typical slip explains the difference", {"kind": "none"}
 
     def other_positions(self, claim: Claim) -> list[str]:
         """The index positions of the claim's tensor other than the claimed one: the registry's first (in
@@ -593,7 +648,16 @@ class Auditor:
                     return {"kind": "metric_factor", "factor": [table, key]}
         return {}
 
-    def ratio_words(self, ratio: sympy.Expr, quantity: str) -> str:
+    def ratio_words(self, ratio: sympy.Expr, quantity: str) -> tuple[str, dict]:
+        """A constant ratio claimed/correct in words, and as data ("sign_flip" or "factor")."""
+        words = self.ratio_sentence(ratio, quantity)
+        if not words:
+            return "", {}
+        if ratio == -1:
+            return words, {"kind": "sign_flip", "hint": _HINT_OF.get(quantity, "")}
+        return words, {"kind": "factor", "ratio": printer_stable(ratio)}
+
+    def ratio_sentence(self, ratio: sympy.Expr, quantity: str) -> str:
         if not ratio.is_Rational:
             constants = set(self.m.parameters) | set(getattr(self.m, "extra_symbols", ()))
             if ratio.is_number or (ratio.free_symbols and ratio.free_symbols <= constants
@@ -633,12 +697,12 @@ class Auditor:
             return f"a sign flip and a factor of 2: the claim is {ratio} times the correct value"
         return f"off by a constant factor: the claim is {ratio} times the correct value"
 
-    def matter_slip(self, claim: Claim, correct: sympy.Expr) -> str:
+    def matter_slip(self, claim: Claim, correct: sympy.Expr) -> tuple[str, dict]:
         """A stress-energy value that is G_ij (or G_ij + Lambda g_ij): the field equations not divided by kappa,
-        or the cosmological-constant term left out."""
+        or the cosmological-constant term left out; in words and as data."""
         q = claim.quantity
         if q not in KAPPA_SCALED:
-            return ""
+            return "", {}
         metric_part = self.metric_part(q, claim.component)
         kappa = self.kappa
         kappa_words = "8 pi" if kappa == 8 * sympy.pi else f"kappa = {kappa}"
@@ -649,19 +713,28 @@ class Auditor:
                     "frame_stress_energy": "G_" + "".join(f"({x})" for x in c.split(",")),
                     "energy_density": f"G_({frame})({frame})",
                     "pressure": f"G_({c})({c})"}[q]
+        # the Einstein component as data: its index positions ("ff": frame indices) and component
+        positions = {"stress_energy": "dd", "stress_energy_mixed": "ud", "stress_energy_up": "uu"}.get(q, "ff")
+        names = {"energy_density": f"{frame},{frame}", "pressure": f"{c},{c}"}.get(q, c)
         if is_positioned(claim):  # T in a position of its own: Lambda multiplies g in that position
             metric_part = self.value_in("metric", claim.indices, c)
             einstein = component_text("G", claim.indices, c.split(","))
+            positions = claim.indices
+        data = {"kappa": kappa, "einstein": {"positions": positions, "component": names}}
+        kinds = []
         candidates = []
         if self.lam == 0:
+            kinds.append({"kind": "kappa_missing", "lambda": False})
             candidates.append((kappa * correct, f"a missing 1/({kappa_words}): the claim is {kappa_words} times "
                                                 f"the correct value, i.e. the Einstein tensor component {einstein} "
                                                 f"instead of T = {einstein}/({kappa_words})"))
         else:
+            kinds.append({"kind": "kappa_missing", "lambda": True})
             candidates.append((kappa * correct, f"a missing 1/({kappa_words}): the claim is {kappa_words} times the "
                                                 f"correct value, i.e. {einstein} + Lambda g instead of "
                                                 f"T = ({einstein} + Lambda g)/({kappa_words})"))
             if metric_part is not None:
+                kinds += [{"kind": "einstein_only"}, {"kind": "lambda_missing"}]
                 candidates.append((kappa * correct - self.lam * metric_part,
                                    f"the claim is the Einstein tensor component {einstein}: both the factor "
                                    f"1/({kappa_words}) and the cosmological-constant term Lambda g are missing"))
@@ -669,12 +742,13 @@ class Auditor:
                                    f"the cosmological-constant term is missing: the claim is {einstein}/({kappa_words}) "
                                    f"instead of ({einstein} + Lambda g)/({kappa_words}) (the field equations are "
                                    "G + Lambda g = kappa T)"))
+        kinds.append({"kind": "kappa_twice"})
         candidates.append((correct / kappa, f"divided by {kappa_words} once too often: the claim is the correct "
                                             f"value divided by {kappa_words}"))
-        for value, words in candidates:
+        for kind, (value, words) in zip(kinds, candidates):
             if self.vanishes(claim.expr - value)[0] is True:
-                return words
-        return ""
+                return words, {**kind, **data}
+        return "", {}
 
     def metric_part(self, quantity: str, component: str) -> sympy.Expr | None:
         """What Lambda multiplies in the field equations for this component: g_ij, delta^i_j, g^ij, eta or +-1."""
@@ -696,10 +770,10 @@ class Auditor:
             return sympy.Integer(1)
         return None
 
-    def geodesic_slip(self, claim: Claim, correct: sympy.Expr) -> str:
-        """The cross terms Gamma^a_bc u^b u^c (b != c) counted once instead of twice."""
+    def geodesic_slip(self, claim: Claim, correct: sympy.Expr) -> tuple[str, dict]:
+        """The cross terms Gamma^a_bc u^b u^c (b != c) counted once instead of twice; in words and as data."""
         if claim.quantity != "geodesic_acceleration":
-            return ""
+            return "", {}
         names = self.m.names
         a = claim.component
         gamma = self.d.results.get("christoffel", {})
@@ -712,17 +786,20 @@ class Auditor:
                 once -= value * u[b] * u[c]
         if self.vanishes(claim.expr - once)[0] is True and self.vanishes(once - correct)[0] is False:
             return ("the cross terms Gamma^a_bc u^b u^c with b != c are counted once; summing over all b and c "
-                    "counts each twice (Gamma^a_bc = Gamma^a_cb)")
+                    "counts each twice (Gamma^a_bc = Gamma^a_cb)",
+                    {"kind": "cross_terms_once", "direction": a, "sign_lost": False})
         if self.vanishes(claim.expr + once)[0] is True and self.vanishes(once - correct)[0] is False:
-            return ("the cross terms with b != c are counted once and the overall minus sign is lost")
-        return ""
+            return ("the cross terms with b != c are counted once and the overall minus sign is lost",
+                    {"kind": "cross_terms_once", "direction": a, "sign_lost": True})
+        return "", {}
 
-    def swapped_indices(self, claim: Claim) -> str:
+    def swapped_indices(self, claim: Claim) -> tuple[str, dict]:
+        """The claim is another ordering of the component's indices; in words and as data."""
         if claim.quantity in ("pressure", "geodesic_acceleration"):
             return self.other_direction(claim)
         parts = claim.component.split(",")
         if len(parts) < 2:
-            return ""
+            return "", {}
         for order in itertools.permutations(range(len(parts))):
             other = [parts[i] for i in order]
             if other == parts:
@@ -732,22 +809,27 @@ class Auditor:
                      else correct_value(self.d, claim.quantity, key)[0])
             if self.vanishes(claim.expr - value)[0]:
                 return (f"swapped indices: the claim equals the component ({','.join(other)}) "
-                        f"rather than ({claim.component})")
-        return ""
+                        f"rather than ({claim.component})",
+                        {"kind": "swapped_indices", "quantity": claim.quantity, "positions": claim.indices,
+                         "component": claim.component, "other": key})
+        return "", {}
 
-    def other_direction(self, claim: Claim) -> str:
-        """A pressure or acceleration that belongs to another direction."""
+    def other_direction(self, claim: Claim) -> tuple[str, dict]:
+        """A pressure or acceleration that belongs to another direction; in words and as data."""
         table = self.d.results.get(QUANTITIES[claim.quantity].key, {})
         for name, value in table.items():
             if name == claim.component or self.vanishes(value)[0]:
                 continue
             if self.vanishes(claim.expr - value)[0] is True:
-                return f"the claim is the value for the direction {name}, not {claim.component}"
+                return (f"the claim is the value for the direction {name}, not {claim.component}",
+                        {"kind": "other_direction", "quantity": claim.quantity, "component": claim.component,
+                         "direction": name})
         if claim.quantity == "pressure" and "energy_density" in self.d.results:
             rho = self.d.results["energy_density"]
             if self.vanishes(claim.expr - rho)[0] is True:
-                return "the claim is the energy density rho, not a pressure"
-        return ""
+                return ("the claim is the energy density rho, not a pressure",
+                        {"kind": "density_for_pressure", "component": claim.component})
+        return "", {}
 
 
 # where the calculation first went wrong -------------------------------------------
@@ -932,6 +1014,12 @@ def record_audit(derivation: Derivation, title: str, verdicts: list[ClaimVerdict
             params["slip"] = dict(v.slip)
         if v.zero_test:
             params["zero_test"] = dict(v.zero_test)
+        if v.test:
+            params["test"] = dict(v.test)
+        if v.solution:
+            params["solution"] = dict(v.solution)
+        if c.problem and c.expr is None:
+            params["problem"] = c.problem
         if c.expr is not None:
             params["claimed"] = printer_stable(c.expr)
         if v.correct is not None:

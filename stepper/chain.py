@@ -159,20 +159,34 @@ class _Chain:
             total += len(e.num) + len(e.den) if hasattr(e, "num") else sympy.count_ops(getattr(e, "expr", e))
         return total
 
-    def identity_verdict(self, statement: str, residues: list, what: str) -> Verdict:
-        """Holds when every residue is proven zero, fails on a proven non-zero, undecided otherwise."""
+    def identity_verdict(self, statement: str, residues: list, what: str) -> tuple[Verdict, dict]:
+        """Holds when every residue is proven zero, fails on a proven non-zero, undecided otherwise.
+
+        Returns the verdict and the step params the exporters typeset its evidence from: ``count`` (residues
+        checked), ``test`` (how the residue that decided it was tested, :meth:`ZeroTest.as_data`) and
+        ``undecided`` (how many were not proven).
+        """
         undecided = []
         for element in residues:
             test = self.A.zero_test(element)
             if test.vanishes is False:
-                return Verdict(statement, False, f"{what}: one is not zero ({test.evidence})")
+                return (Verdict(statement, False, f"{what}: one is not zero ({test.evidence})"),
+                        {"count": len(residues), "test": test.as_data()})
             if test.vanishes is None:
-                undecided.append(test.evidence)
+                undecided.append(test)
         if undecided:
-            return Verdict(statement, None, f"{what}: {len(undecided)} of {len(residues)} not proven symbolically "
-                                            f"({undecided[0]})")
+            return (Verdict(statement, None, f"{what}: {len(undecided)} of {len(residues)} not proven symbolically "
+                                             f"({undecided[0].evidence})"),
+                    {"count": len(residues), "undecided": len(undecided), "test": undecided[0].as_data()})
         how = "have canonical rational form 0" if self.A.name == "field" else "reduce to 0 with sympy"
-        return Verdict(statement, True, f"{what}: all {len(residues)} {how}")
+        return (Verdict(statement, True, f"{what}: all {len(residues)} {how}"),
+                {"count": len(residues), "test": {"how": "canonical form" if self.A.name == "field" else "simplify",
+                                                  "vanishes": True}})
+
+    def checked(self, statement: str, residues: list, what: str) -> dict:
+        """The ``result`` and ``params`` of a check step (see :meth:`identity_verdict`)."""
+        verdict, params = self.identity_verdict(statement, residues, what)
+        return {"result": verdict, "params": params}
 
     def record(self, **fields) -> Step:
         """Record a step; its stage is the one running unless given."""
@@ -318,7 +332,7 @@ class _Chain:
         raw = (lambda: sympy.Matrix(self.metric.matrix).det(method="berkowitz")) if n <= 4 else None
         self.record(id="determinant", kind="determinant", quantity="determinant", annotation=f"Determinant of the metric ({method}).",
                     formula=formula("determinant"), uses=("metric",), result=value,
-                    params={"method": method},
+                    params={"method": method, "blocks": [[self.x[i].name for i in b] for b in blocks]},
                     simplifications=self.simplification(raw, self.size(g[i][j] for i in range(n) for j in range(n)), det))
 
     def _blocks(self) -> list[list[int]]:
@@ -350,7 +364,7 @@ class _Chain:
                     ginv[i][j] = inv[a][b]
         self.ginv = ginv
         if all(len(b) == 1 for b in self.blocks):
-            method = "diagonal: g^ii = 1/g_ii"
+            method = "diagonal: each g^ii is 1/g_ii"
         elif len(self.blocks) > 1:
             method = "block: each block inverted as its adjugate over its determinant"
         else:
@@ -360,14 +374,15 @@ class _Chain:
         self.results["inverse_metric"] = comps
         self.record(id="inverse_metric", kind="inverse", quantity="inverse_metric", annotation=f"Inverse metric g^ij ({method}).",
                     formula=formula("inverse_metric"), uses=("metric", "determinant"), result=comps,
-                    params={"method": method})
-        verdict = self.identity_verdict(
+                    params={"method": method, "blocks": [[self.x[i].name for i in b] for b in self.blocks]})
+        verdict, check = self.identity_verdict(
             "g^ik g_kj = delta^i_j",
             [sum((ginv[i][k] * g[k][j] for k in range(n)), A.zero) - (1 if i == j else 0)
              for i in range(n) for j in range(n)], "the entries of g^ik g_kj - delta^i_j")
         self.record(id="inverse_metric/check", kind="check", quantity="inverse_metric", component="identity",
                     annotation="The product of the inverse and the metric is the identity.",
-                    formula=r"g^{ik} g_{kj} - \delta^i_j = 0", uses=("metric", "inverse_metric"), result=verdict)
+                    formula=r"g^{ik} g_{kj} - \delta^i_j = 0", uses=("metric", "inverse_metric"), result=verdict,
+                    params=check)
 
     def christoffel(self) -> None:
         n, A, dg, ginv = self.n, self.A, self.dg, self.ginv
@@ -464,7 +479,7 @@ class _Chain:
                     annotation="The contracted Christoffel symbols equal the derivative of ln sqrt|g| in every direction.",
                     formula=formula("contracted_christoffel"),
                     uses=tuple(f"contracted_christoffel/{c.name}" for c in self.x),
-                    result=self.identity_verdict("Gamma^l_li = d_i ln sqrt|g| for every i", differences,
+                    **self.checked("Gamma^l_li = d_i ln sqrt|g| for every i", differences,
                                                  "the differences of the two routes"))
 
     def _d_gamma(self, k, a, b, c):
@@ -503,6 +518,29 @@ class _Chain:
             value = value + term if sign > 0 else value - term
         return value
 
+    def _riemann_groups(self, a, b, c, d) -> list[dict]:
+        """The terms of R^a_bcd grouped as they come from the Christoffel symbols, each group's value exact:
+        the two derivative terms, then the products Gamma^a_ce Gamma^e_db summed over e, and those
+        Gamma^a_de Gamma^e_cb (with its sign).  Shown where the expression before simplification is too long
+        to reproduce, so that a reader can check a component group by group."""
+        G, key, A = self.gamma, self.key, self.A
+        groups = []
+        products = {1: [], -1: []}
+        total = {1: A.zero, -1: A.zero}
+        for sign, first, second in self._riemann_terms(a, b, c, d):
+            if second is None:
+                k, i, j, l = first
+                groups.append({"kind": "derivative", "sign": sign, "by": self.x[k].name,
+                               "christoffel": key(i, j, l), "value": self.expr(self._d_gamma(*first))})
+            else:
+                products[sign].append([key(*first), key(*second)])
+                total[sign] = total[sign] + G[first[0]][first[1]][first[2]] * G[second[0]][second[1]][second[2]]
+        for sign in (1, -1):
+            if products[sign]:
+                groups.append({"kind": "products", "sign": sign, "pairs": products[sign],
+                               "value": self.expr(total[sign])})
+        return groups
+
     def riemann(self) -> None:
         n, A, G = self.n, self.A, self.gamma
         R = {}
@@ -520,6 +558,7 @@ class _Chain:
             terms = self._riemann_terms(a, b, c, d)
             used = {t[1][1:] if t[2] is None else t[1] for t in terms} | {t[2] for t in terms if t[2] is not None}
             uses = sorted({self._christoffel_id(*u) for u in used}, key=lambda s: self._order(s.split("/")[1]))
+            size = self.size(G[u[0]][u[1]][u[2]] for u in used)
             step = self.record(
                 id=f"riemann/{key}", kind="component",
                 annotation=f"Riemann component R^{self.x[a].name}_({self.x[b].name} {self.x[c].name} {self.x[d].name}) "
@@ -527,8 +566,8 @@ class _Chain:
                 formula=formula("riemann"), uses=tuple(uses) or ("christoffel",), result=self.expr(value),
                 quantity="riemann", component=key,
                 substituted=self._riemann_tex(a, b, c, d),
-                simplifications=self.simplification(
-                    self._riemann_raw(a, b, c, d), self.size(G[u[0]][u[1]][u[2]] for u in used), value))
+                simplifications=self.simplification(self._riemann_raw(a, b, c, d), size, value),
+                params={"groups": self._riemann_groups(a, b, c, d)} if size > BEFORE_TERMS_LIMIT else {})
             components[key] = step.result
             components[self.key(a, b, d, c)] = printer_stable(-step.result)
         total = len(indices)
@@ -590,7 +629,7 @@ class _Chain:
                     if a != d:
                         value = value + R[a, b, a, d]
                 ric[b][d] = value
-        symmetry = self.identity_verdict("R_ij = R_ji", [ric[i][j] - ric[j][i] for i in range(n)
+        symmetry = self.checked("R_ij = R_ji", [ric[i][j] - ric[j][i] for i in range(n)
                                                           for j in range(i + 1, n)], "the differences R_ij - R_ji")
         self.ric = ric
         components = {}
@@ -625,7 +664,7 @@ class _Chain:
         self.record(id="ricci/symmetry", kind="check", quantity="ricci", component="symmetry",
                     annotation="The Ricci tensor is symmetric, R_ij = R_ji.",
                     formula=r"R_{ij} - R_{ji} = 0", uses=("riemann",),
-                    result=symmetry)
+                    **symmetry)
 
     def ricci_by_trace_identity(self) -> None:
         n, A, G, L = self.n, self.A, self.gamma, self.log_sqrt_det
@@ -659,7 +698,7 @@ class _Chain:
                     formula=r"R^{(1)}_{ij} - R^{(2)}_{ij} = 0",
                     uses=tuple(s.id for s in self.tracer.steps if s.id.startswith("ricci/") and s.kind == "component")
                     + ("ricci_by_trace_identity",),
-                    result=self.identity_verdict("contraction of Riemann = trace-identity formula",
+                    **self.checked("contraction of Riemann = trace-identity formula",
                                                  route_differences, "the component-wise differences"))
 
     def scalar(self) -> None:
@@ -731,33 +770,46 @@ class _Chain:
                         formula=q.formula, uses=("inverse_metric", summary), result=components)
 
     # verdicts -----------------------------------------------------------
-    def _verdict(self, name: str, statement: str, residues: dict, uses: tuple, extra: str = "",
+    def _verdict(self, name: str, statement: str, residues: list, uses: tuple, extra: str = "",
                  params: dict | None = None) -> Verdict:
-        """All residues vanish -> holds; the first that does not is named as evidence."""
+        """All residues vanish -> holds; the first that does not is named as evidence.
+
+        ``residues`` lists (label, kind, component, element): the label words the plain-text evidence, the
+        kind and component go into the step's params, from which the exporters typeset the evidence.
+        """
+        params = dict(params or {})
+        params["checked"] = len(residues)
         undecided = []
-        for key, element in residues.items():
+        for label, kind, component, element in residues:
             test = self.A.zero_test(element)
             if test.vanishes is False:
-                verdict = Verdict(statement, False, f"{key} is not zero: it equals {self.expr(element)}"
+                verdict = Verdict(statement, False, f"{label} is not zero: it equals {self.expr(element)}"
                                   + (f" ({test.evidence})" if self.A.name != "field" else ""))
+                params["residue"] = {"kind": kind, "component": component, "value": self.expr(element),
+                                     "test": test.as_data()}
                 break
             if test.vanishes is None:
-                undecided.append(f"{key}: {test.evidence}")
+                undecided.append((label, kind, component, test))
         else:
             if undecided:
-                verdict = Verdict(statement, None, "not proven symbolically; " + "; ".join(undecided))
+                verdict = Verdict(statement, None, "not proven symbolically; " + "; ".join(
+                    f"{label}: {test.evidence}" for label, _, _, test in undecided))
+                params["undecided"] = [{"kind": kind, "component": component, "test": test.as_data()}
+                                       for _, kind, component, test in undecided]
             else:
                 how = "its canonical rational form is 0" if self.A.name == "field" else "sympy reduces it to 0"
                 verdict = Verdict(statement, True,
                                   f"each of the {len(residues)} components checked vanishes ({how})" + extra)
+                params["test"] = "canonical form" if self.A.name == "field" else "simplify"
         self.results.setdefault("verdicts", {})[name] = {"holds": verdict.holds, "evidence": verdict.evidence}
         self.record(id=f"verdict/{name}", kind="verdict", quantity=name, annotation=statement, formula=formula(name),
-                    uses=uses, result=verdict, params=params or {})
+                    uses=uses, result=verdict, params=params)
         return verdict
 
     def verdict_ricci_flat(self) -> None:
         n = self.n
-        residues = {f"R_{self.key(i, j)}": self.ric[i][j] for i in range(n) for j in range(i, n)}
+        residues = [(f"R_{self.key(i, j)}", "ricci", self.key(i, j), self.ric[i][j])
+                    for i in range(n) for j in range(i, n)]
         self._verdict("ricci_flat", "Ricci-flat: every component of the Ricci tensor vanishes.", residues,
                       ("ricci/symmetry",) + tuple(s.id for s in self.tracer.steps if s.id.startswith("ricci/") and s.kind == "component"))
 
@@ -765,10 +817,10 @@ class _Chain:
         n, A = self.n, self.A
         lam = self.R_scalar / n
         self.results["einstein_constant"] = self.expr(lam)
-        residues = {f"R_{self.key(i, j)} - lambda g_{self.key(i, j)}": self.ric[i][j] - lam * self.g[i][j]
-                    for i in range(n) for j in range(i, n)}
+        residues = [(f"R_{self.key(i, j)} - lambda g_{self.key(i, j)}", "einstein_space", self.key(i, j),
+                     self.ric[i][j] - lam * self.g[i][j]) for i in range(n) for j in range(i, n)]
         extra = f"; lambda = R/{n} = {self.expr(lam)}"
-        params = {}
+        params = {"lambda": self.expr(lam)}
         if n == 2:
             constant = self.constancy(lam)
             params["lambda_constant"] = constant
@@ -823,12 +875,12 @@ class _Chain:
         self.record(id="riemann_lowered/pair_symmetry", kind="check", quantity="riemann_lowered", component="pair_symmetry",
                     annotation="Pair exchange symmetry R_abcd = R_cdab holds for the lowered components.",
                     formula=r"R_{abcd} - R_{cdab} = 0", uses=("riemann_lowered",),
-                    result=self.identity_verdict("R_abcd = R_cdab", pair_residues,
+                    **self.checked("R_abcd = R_cdab", pair_residues,
                                                  "R_abcd - R_cdab on the independent components"))
         self.record(id="riemann_lowered/first_bianchi", kind="check", quantity="riemann_lowered", component="first_bianchi",
                     annotation="First Bianchi identity: the cyclic sum R_abcd + R_acdb + R_adbc vanishes.",
                     formula=r"R_{abcd} + R_{acdb} + R_{adbc} = 0", uses=("riemann_lowered",),
-                    result=self.identity_verdict("R_a[bcd] = 0", cyclic_residues,
+                    **self.checked("R_a[bcd] = 0", cyclic_residues,
                                                  "the cyclic sums with b < c < d"))
 
     def full_lowered(self, a, b, c, d):
@@ -841,14 +893,16 @@ class _Chain:
     def verdict_constant_curvature(self) -> None:
         n, g = self.n, self.g
         k = self.R_scalar / (n * (n - 1))
-        residues = {}
+        residues = []
         for a, b, c, d in _independent_riemann_indices(n):
-            residues[f"R_{self.key(a, b, c, d)} - k(...)"] = self.Rdown[a, b, c, d] - k * (g[a][c] * g[b][d] - g[a][d] * g[b][c])
+            residues.append((f"R_{self.key(a, b, c, d)} - k(...)", "constant_curvature", self.key(a, b, c, d),
+                             self.Rdown[a, b, c, d] - k * (g[a][c] * g[b][d] - g[a][d] * g[b][c])))
         for i in range(n):
-            residues[f"d_{self.x[i].name} k"] = self.A.diff(k, i)
+            residues.append((f"d_{self.x[i].name} k", "derivative_of_k", self.x[i].name, self.A.diff(k, i)))
         self.results["sectional_curvature_if_constant"] = self.expr(k)
         self._verdict("constant_curvature", "Constant curvature: R_abcd = k (g_ac g_bd - g_ad g_bc) with constant k = R/(n(n-1)).",
-                      residues, ("riemann_lowered", "scalar", "metric"), f"; k = {self.expr(k)}")
+                      residues, ("riemann_lowered", "scalar", "metric"), f"; k = {self.expr(k)}",
+                      {"k": self.expr(k)})
 
     def kretschmann(self) -> None:
         n, A, ginv = self.n, self.A, self.ginv
@@ -898,7 +952,7 @@ class _Chain:
             return
         Rs = self.R_scalar
         comps = {}
-        residues = {}
+        residues = []
         c1 = sympy.Rational(1, n - 2)
         c2 = sympy.Rational(1, (n - 1) * (n - 2))
         for a, b, c, d in _independent_riemann_indices(n):
@@ -906,7 +960,7 @@ class _Chain:
             value = (self.Rdown[a, b, c, d]
                      - (g[a][c] * ric[b][d] - g[a][d] * ric[b][c] - g[b][c] * ric[a][d] + g[b][d] * ric[a][c]) * c1
                      + Rs * (g[a][c] * g[b][d] - g[a][d] * g[b][c]) * c2)
-            residues[f"C_{self.key(a, b, c, d)}"] = value
+            residues.append((f"C_{self.key(a, b, c, d)}", "weyl", self.key(a, b, c, d), value))
             if not self.is_zero(value):
                 comps[self.key(a, b, c, d)] = self.expr(value)
         self.results["weyl"] = comps
@@ -939,7 +993,7 @@ class _Chain:
 
     def bianchi(self) -> None:
         n, A, G, ginv, Gam = self.n, self.A, self.G, self.ginv, self.gamma
-        residues = {}
+        residues = []
         for b in range(n):
             self.progress(f"bianchi, component {b + 1}/{n}", b, n)
             total = A.zero
@@ -954,7 +1008,7 @@ class _Chain:
                         if not self.is_zero(Gam[e][c][b]) and not self.is_zero(G[a][e]):
                             term = term - Gam[e][c][b] * G[a][e]
                     total = total + ginv[a][c] * term
-            residues[f"nabla^a G_a{self.x[b].name}"] = total
+            residues.append((f"nabla^a G_a{self.x[b].name}", "divergence", self.x[b].name, total))
         self._verdict("bianchi", "Contracted Bianchi identity: the Einstein tensor is divergence-free.",
                       residues, ("einstein", "christoffel", "inverse_metric"))
 

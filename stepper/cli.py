@@ -74,7 +74,11 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def _add_appendix_options(run: argparse.ArgumentParser) -> None:
-    from .exporters import HEADING_LEVELS
+    from .exporters import DETAIL_LEVELS, HEADING_LEVELS
+    run.add_argument("--detail", choices=DETAIL_LEVELS, default="full",
+                     help="how much of the derivation report.tex, report.pdf and appendix.tex show: summary (the "
+                          "metric, results, verdicts and checks, no steps), condensed (every step with its results, "
+                          "no formulas or simplifications) or full (every line; the default)")
     run.add_argument("--appendix-heading", choices=HEADING_LEVELS, default="section",
                      help="top heading level of appendix.tex (default: section)")
     run.add_argument("--anchor-prefix", metavar="TEXT",
@@ -228,6 +232,9 @@ def run_render(args: argparse.Namespace) -> int:
     # Rendering into the trace's own folder rewrites part of a set that came from the same trace: keep the rest.
     same_folder = os.path.abspath(out_dir) == os.path.abspath(trace_path.parent)
     keep = ("trace.json", "report.tex", "appendix.tex", "report.pdf", "derivation.ipynb") if same_folder else ()
+    if same_folder:  # and the plots' figure files beside report.tex
+        from .outputs import PLOT_NAME
+        keep += tuple(sorted(n for n in os.listdir(out_dir) if PLOT_NAME.fullmatch(n)))
     return _export_and_write(args, record, out_dir, formats, templates, status, keep=keep)
 
 
@@ -283,7 +290,8 @@ def _export_and_write(args: argparse.Namespace, derivation: Derivation, out_dir:
     contents: dict[str, str | bytes] = {}
     problems: list[str] = []
     for name in formats:
-        exporter = (AppendixExporter(templates, args.appendix_heading, args.anchor_prefix) if name == "appendix"
+        exporter = (AppendixExporter(templates, args.appendix_heading, args.anchor_prefix, args.detail)
+                    if name == "appendix" else EXPORTERS[name](templates, args.detail) if name in ("tex", "pdf")
                     else EXPORTERS[name](templates))
         args.progress(f"writing {exporter.file_name}", 0, 1)
         try:
@@ -295,6 +303,10 @@ def _export_and_write(args: argparse.Namespace, derivation: Derivation, out_dir:
             raise _tex_failure(err, out_dir, bool(templates)) from None
         except jinja2.TemplateError as err:
             raise InputError(f"template problem in {name} output: {err}") from None
+    if {"tex", "appendix", "pdf"} & set(formats):  # the plots' figures, which report.tex and appendix.tex include
+        from .plots import plot_files
+        args.progress("drawing the plots", 0, 1)
+        contents.update(plot_files(record))
     _cancel_time_limit()
     replace_output_set(out_dir, contents, keep=tuple(name for name in keep if name not in contents),
                        state=args.swap)

@@ -78,6 +78,7 @@ def latex_preamble() -> str:
     document.packages.append(Package("amssymb"))
     document.packages.append(Package("microtype"))
     document.packages.append(Package("xcolor"))
+    document.packages.append(Package("graphicx"))
     document.packages.append(Package("hyperref", options=["colorlinks", "linkcolor=blue!50!black",
                                                           "urlcolor=blue!50!black", "bookmarks=true",
                                                           "bookmarksnumbered=true"]))
@@ -104,19 +105,33 @@ class TraceExporter(Exporter):
         return trace_json(derivation)
 
 
+DETAIL_LEVELS = ("summary", "condensed", "full")
+"""How much of the derivation report.tex, report.pdf and appendix.tex show: ``summary`` the metric, the results,
+verdicts, checks and audit without any step; ``condensed`` every step with its results but no general formula,
+substitution or simplification; ``full`` everything.  A setting of the exporter, not of the trace."""
+
+
 class _TemplateExporter(Exporter):
     template_name = ""
+
+    def __init__(self, templates: Sequence[Path] = (), detail: str = "full"):
+        super().__init__(templates)
+        if detail not in DETAIL_LEVELS:
+            raise ValueError(f"detail must be one of {', '.join(DETAIL_LEVELS)}")
+        self.detail = detail
 
     def export(self, derivation: Derivation) -> str:
         from .report import report_model
         from .latex import display_formula
         environment = template_environment(self.templates, filters={"display": display_formula})
         template = environment.get_template(self.template_name)
-        return template.render(preamble=latex_preamble(), **self.settings(derivation), **report_model(derivation))
+        from .plots import report_plots
+        return template.render(preamble=latex_preamble(), **self.settings(derivation), **report_model(derivation),
+                               plots=report_plots(derivation))
 
     def settings(self, derivation: Derivation) -> dict:
         """Template variables of this output beyond the record's content."""
-        return {}
+        return {"detail": self.detail}
 
 
 class ReportExporter(_TemplateExporter):
@@ -135,14 +150,16 @@ class AppendixExporter(_TemplateExporter):
 
     ``heading`` is its top heading level (one of HEADING_LEVELS; default section).  ``anchor_prefix``
     starts every link target it defines, so that several appendices live in one paper; by default
-    :func:`default_anchor_prefix` of the metric, which differs from one metric to another.
+    :func:`default_anchor_prefix` of the metric, which differs from one metric to another.  ``detail`` is one
+    of DETAIL_LEVELS, as for the report.
     """
 
     file_name = "appendix.tex"
     template_name = "latex/appendix.tex.j2"
 
-    def __init__(self, templates: Sequence[Path] = (), heading: str = "section", anchor_prefix: str | None = None):
-        super().__init__(templates)
+    def __init__(self, templates: Sequence[Path] = (), heading: str = "section", anchor_prefix: str | None = None,
+                 detail: str = "full"):
+        super().__init__(templates, detail)
         if heading not in HEADING_LEVELS:
             raise ValueError(f"heading must be one of {', '.join(HEADING_LEVELS)}")
         self.heading = heading
@@ -150,7 +167,8 @@ class AppendixExporter(_TemplateExporter):
 
     def settings(self, derivation: Derivation) -> dict:
         prefix = self.anchor_prefix if self.anchor_prefix is not None else default_anchor_prefix(derivation)
-        return {"section": self.heading, "subsection": _SUBDIVISION[self.heading], "anchor_prefix": prefix}
+        return {**super().settings(derivation), "section": self.heading, "subsection": _SUBDIVISION[self.heading],
+                "anchor_prefix": prefix}
 
 
 def default_anchor_prefix(derivation: Derivation) -> str:
@@ -168,8 +186,9 @@ def valid_anchor_prefix(prefix: str) -> bool:
     return len(prefix) <= 64 and all(c.isascii() and (c.isalnum() or c in "-.:") for c in prefix)
 
 
-def compile_latex(source: str, job: str = "report") -> tuple[bytes, str]:
-    """Run pdflatex on ``source`` in a temporary folder; return (pdf bytes, log).
+def compile_latex(source: str, job: str = "report", files: dict[str, bytes] | None = None) -> tuple[bytes, str]:
+    """Run pdflatex on ``source`` in a temporary folder, with ``files`` (the plots' figures, by plain file
+    name) beside it; return (pdf bytes, log).
 
     TeX runs with shell escape disabled and with dates and the trailer id
     fixed, so the same source gives the same bytes.
@@ -184,6 +203,10 @@ def compile_latex(source: str, job: str = "report") -> tuple[bytes, str]:
     with tempfile.TemporaryDirectory(prefix="stepper-tex-") as folder:
         tex_file = Path(folder) / f"{job}.tex"
         tex_file.write_text(source, encoding="utf-8")
+        for name, data in (files or {}).items():
+            if Path(name).name != name or name.startswith("."):
+                raise ValueError(f"a file beside the report must have a plain name, not {name!r}")
+            (Path(folder) / name).write_bytes(data)
         log = ""
         for _ in range(TEX_RUNS):
             run = subprocess.run(
@@ -227,7 +250,8 @@ class PdfExporter(ReportExporter):
     binary = True
 
     def export(self, derivation: Derivation) -> bytes:
-        pdf, self.log = compile_latex(super().export(derivation))
+        from .plots import plot_files
+        pdf, self.log = compile_latex(super().export(derivation), files=plot_files(derivation))
         return pdf
 
 

@@ -14,12 +14,14 @@ All settings come in through the constructor; nothing is global.
 
 from __future__ import annotations
 
+import re
 import unicodedata
 from typing import Iterable, Mapping, Sequence
 
 import sympy
 from pylatex.utils import escape_latex
 from sympy.core.function import AppliedUndef
+from sympy.polys.polyerrors import BasePolynomialError
 from sympy.printing.latex import LatexPrinter
 
 from .quantities import QUANTITIES, indexed_tex
@@ -201,8 +203,78 @@ def _math_tex(c: str) -> str | None:
     return None
 
 
+#: Accents for the first, second and third derivative by time.
+_DOTS = {1: r"\dot", 2: r"\ddot", 3: r"\dddot"}
+
+
 class _Printer(LatexPrinter):
-    """sympy's LaTeX printer with free functions written compactly."""
+    """sympy's LaTeX printer with free functions written compactly, derivatives by time with dots, and the
+    terms of a sum in descending powers of the coordinates.
+
+    ``time`` is the coordinate whose derivatives of one-variable functions are written with dots (\\dot{a});
+    derivatives by any other one variable get primes.  ``degrees`` (1 for each coordinate, an abbreviation's
+    highest power of them for its symbol) order the terms of sums, after the velocities a term holds
+    (``velocity_order``: u^t, u^r, ... in the order of the coordinates)."""
+
+    def __init__(self, settings: dict, time: sympy.Symbol | None = None,
+                 degrees: Mapping[sympy.Symbol, sympy.Rational] | None = None,
+                 velocity_order: Sequence[sympy.Symbol] = (), braced: Iterable[str] = ()):
+        super().__init__(settings)
+        self._braced = frozenset(braced)
+        self._time = time
+        self._degrees = dict(degrees or {})
+        self._velocity_order = {symbol: k for k, symbol in enumerate(velocity_order)}
+
+    # a free function is an atom, whatever its name: sympy ranks a function named Lambda (or Sum, Integral,
+    # Derivative, ...) by the precedence of the class it shares a name with and would write 2 \left(\Lambda\right)
+    def parenthesize(self, item, level, is_neg=False, strict=False) -> str:
+        if isinstance(item, AppliedUndef):
+            return self._print(item)
+        return super().parenthesize(item, level, is_neg, strict)
+
+    def _needs_mul_brackets(self, expr, first=False, last=False) -> bool:
+        if isinstance(expr, AppliedUndef):
+            return False
+        return super()._needs_mul_brackets(expr, first, last)
+
+    def _needs_add_brackets(self, expr) -> bool:
+        if isinstance(expr, AppliedUndef):
+            return False
+        return super()._needs_add_brackets(expr)
+
+    def _as_ordered_terms(self, expr, order=None):
+        """sympy's order, stably re-sorted so that higher powers of the coordinates come first (r - 2 M,
+        r^2 - 2 M r + a^2, 1 - 2 M / r)."""
+        terms = self.ordered_terms(expr, order)
+        if any(self._velocity_key(term) for term in terms):
+            return terms  # the geodesic equations keep the order of the velocities
+        first_positive = next((k for k, term in enumerate(terms) if not term.could_extract_minus_sign()), 0)
+        # a sum that is not a factor (those are turned to lead with a positive term) starts with its first
+        # positive term: 2 M - r rather than -r + 2 M
+        return [terms[first_positive]] + terms[:first_positive] + terms[first_positive + 1:]
+
+    def ordered_terms(self, expr, order=None) -> list:
+        """The terms by the velocities they hold, then in descending powers of the coordinates, then in
+        sympy's order."""
+        terms = super()._as_ordered_terms(expr, order)
+        if not self._degrees and not self._velocity_order:
+            return terms
+        return sorted(terms, key=lambda term: (self._velocity_key(term), -coordinate_degree(term, self._degrees)))
+
+    def _velocity_key(self, term: sympy.Expr) -> tuple[int, ...]:
+        """The velocities a term is quadratic (or linear) in, by coordinate order: u^t u^t before u^t u^r."""
+        key = []
+        for factor in sympy.Mul.make_args(term):
+            base, exponent = factor.as_base_exp()
+            if base in self._velocity_order and exponent.is_Integer and exponent > 0:
+                key += [self._velocity_order[base]] * int(exponent)
+        return tuple(sorted(key))
+
+    def _deal_with_super_sub(self, string: str, style: str = "plain") -> str:
+        """A name's LaTeX; in braces when it is one the report also uses for a quantity of its own (``braced``),
+        which draws the same and tells the metric's symbol from the report's."""
+        tex = super()._deal_with_super_sub(string, style)
+        return "{" + tex + "}" if tex in self._braced else tex
 
     def _print_Function(self, expr, exp=None):
         if isinstance(expr, AppliedUndef):
@@ -210,13 +282,24 @@ class _Printer(LatexPrinter):
             return f"{name}^{{{exp}}}" if exp else name
         return super()._print_Function(expr, exp)
 
+    def is_dotted(self, expr) -> bool:
+        """A derivative of a function of the time coordinate alone, written with dots."""
+        base = expr.expr
+        return (self._time is not None and isinstance(base, AppliedUndef) and len(base.args) == 1
+                and base.args[0] == self._time and all(v == self._time for v, _ in expr.variable_count))
+
     def _print_Derivative(self, expr):
         base = expr.expr
         if not isinstance(base, AppliedUndef):
             return super()._print_Derivative(expr)
         name = self._deal_with_super_sub(base.func.__name__)
+        order = sum(int(n) for _, n in expr.variable_count)
+        if self.is_dotted(expr):
+            if order <= 3:
+                return _DOTS[order] + "{" + name + "}"
+            time = self._print(self._time)
+            return rf"\frac{{d^{{{order}}}{name}}}{{d{time}^{{{order}}}}}"
         if len(base.args) == 1:
-            order = sum(int(n) for _, n in expr.variable_count)
             marks = "'" * order if order <= 3 else f"^{{({order})}}"
             return f"{name}{marks}"
         subscript = "".join(self._print(v) * int(n) for v, n in expr.variable_count)
@@ -224,45 +307,83 @@ class _Printer(LatexPrinter):
 
     def _print_Pow(self, expr):
         if isinstance(expr.base, sympy.Derivative) and expr.exp.is_Integer and expr.exp > 0:
-            return rf"\left({self._print(expr.base)}\right)^{{{self._print(expr.exp)}}}"
+            base = self._print(expr.base)
+            if self.is_dotted(expr.base) and not base.startswith(r"\frac"):
+                return rf"{base}^{{{self._print(expr.exp)}}}"  # \dot{a}^{2} = (da/dt)^2, unambiguous
+            return rf"\left({base}\right)^{{{self._print(expr.exp)}}}"
         return super()._print_Pow(expr)
+
+
+def coordinate_degree(term: sympy.Expr, degrees: Mapping[sympy.Symbol, sympy.Rational]) -> sympy.Rational:
+    """The total power of the coordinates in one term of a sum (r^2 cos(theta) has 2, M/r has -1), each symbol
+    counted with its weight in ``degrees``; functions of the coordinates count 0."""
+    degree = sympy.Integer(0)
+    for factor in sympy.Mul.make_args(term):
+        base, exponent = factor.as_base_exp()
+        if base in degrees and exponent.is_Rational:
+            degree += degrees[base] * exponent
+    return degree
 
 
 class ExpressionWriter:
     """Writes expressions for a report, with the metric's abbreviations."""
 
     def __init__(self, abbreviations: Sequence[tuple[str, sympy.Expr]] = (), coordinates: Sequence[sympy.Symbol] = (),
-                 velocities: dict[str, tuple[sympy.Symbol, str]] | None = None):
+                 velocities: dict[str, tuple[sympy.Symbol, str]] | None = None, time: sympy.Symbol | None = None,
+                 braced: Iterable[str] = ()):
         """``velocities`` maps a coordinate name to the symbol standing for its rate d x/d tau and the
-        LaTeX to print for it (u_{r_{s}} for the symbol u_r_s)."""
+        LaTeX to print for it (u^{r} for the symbol u_r); ``time`` is the coordinate by which derivatives of
+        functions of it alone are written with dots (None: primes for every function of one variable);
+        ``braced`` lists LaTeX symbols (\\Lambda) the metric's names print as in braces, {\\Lambda}, so that
+        the report can tell them from its own uses of the same symbol."""
         velocities = dict(velocities or {})
         self.velocities = {name: tex for name, (_, tex) in velocities.items()}
-        self._printer = _Printer({"mul_symbol": None,
-                                  "symbol_names": {symbol: tex for symbol, tex in velocities.values()}})
         self._abbreviations = [(sympy.Symbol(name), _trig_normal(sympy.expand(value)))
                                for name, value in abbreviations
                                if sympy.expand(value).is_Add and _is_polynomial_like(value)]
         self._coordinates = tuple(coordinates)
+        self.time = time
+        # terms of sums in descending powers of the coordinates; an abbreviation counts as its highest power
+        degrees = {x: sympy.Integer(1) for x in self._coordinates}
+        for name, value in self._abbreviations:
+            degrees[name] = max(coordinate_degree(term, degrees) for term in value.args)
+        self._printer = _Printer({"mul_symbol": None,
+                                  "symbol_names": {symbol: tex for symbol, tex in velocities.values()}},
+                                 time=time, degrees=degrees,
+                                 velocity_order=[symbol for symbol, _ in velocities.values()], braced=braced)
 
     # public -------------------------------------------------------------
     def inline(self, expr: sympy.Expr) -> str:
-        """Plain LaTeX of an expression (abbreviated, unbroken)."""
-        return self._printer.doprint(self.abbreviate(expr))
+        """Plain LaTeX of an expression (abbreviated, signs normalised, unbroken)."""
+        return self._printer.doprint(self.prepare(expr))
 
-    def equation(self, lhs: str, expr: sympy.Expr) -> tuple[str, bool]:
-        """LaTeX for ``lhs = expr`` and whether it needs the breakable form."""
+    def prepare(self, expr: sympy.Expr) -> sympy.Expr:
+        """The expression as it is printed: abbreviated, and every factor that is a sum led by a positive
+        term (see :meth:`normal_signs`; only when the coordinates are known, which order the terms). Equal to
+        ``expr`` once the abbreviations are written out."""
+        abbreviated = self.abbreviate(expr)
+        return self.normal_signs(abbreviated) if self._coordinates else abbreviated
+
+    def equation(self, lhs: str, expr: sympy.Expr, whole_terms: bool = False) -> tuple[str, bool]:
+        """LaTeX for ``lhs = expr`` and whether it needs the breakable form (``whole_terms``: see
+        :meth:`breakable`)."""
         short = self.inline(expr)
         if len(short) + len(lhs) <= SHORT_LATEX:
             return f"{lhs} = {short}", False
-        return f"{lhs} = {self.breakable(expr)}", True
+        return f"{lhs} = {self.breakable(expr, whole_terms=whole_terms)}", True
 
-    def breakable(self, expr: sympy.Expr, short_denominator: int = SHORT_DENOMINATOR) -> str:
+    def breakable(self, expr: sympy.Expr, short_denominator: int = SHORT_DENOMINATOR,
+                  whole_terms: bool = False) -> str:
         """LaTeX in which TeX may break lines after a top-level + or -.
 
-        Fractions whose numerator or denominator is longer than ``short_denominator``
-        characters are written as a product with a factor to the power -1, which
-        can break; narrow table cells pass a smaller width."""
-        return self._breakable(self.abbreviate(expr), short_denominator)
+        Fractions whose denominator is longer than ``short_denominator`` characters are written as a
+        product with a factor to the power -1, which can break; narrow table cells pass a smaller width.
+        ``whole_terms``: every top-level term short enough to fit a line is a TeX group, so that lines
+        break only between terms, never inside a bracket."""
+        prepared = self.prepare(expr)
+        if whole_terms and isinstance(prepared, sympy.Add):
+            return self._sum(self._printer._as_ordered_terms(prepared), short_denominator, whole=True)
+        return self._breakable(prepared, short_denominator)
 
     def fits(self, expr: sympy.Expr, width: int) -> str:
         """Plain LaTeX when it is at most ``width`` characters long, otherwise the breakable form."""
@@ -281,12 +402,47 @@ class ExpressionWriter:
             match = self._match(expr)
             if match is not None:
                 return match
-            return sympy.Add(*[self.abbreviate(a) for a in expr.args])
+            plain = sympy.Add(*[self.abbreviate(a) for a in expr.args])
+            return self._shortest_in_abbreviations(expr, plain)
         if isinstance(expr, sympy.Derivative):
             return sympy.Derivative(self.abbreviate(expr.expr), *expr.variable_count)
         if isinstance(expr, (sympy.Mul, sympy.Pow)):
             return expr.func(*[self.abbreviate(a) for a in expr.args])
         return expr
+
+    def _shortest_in_abbreviations(self, polynomial: sympy.Expr, plain: sympy.Expr) -> sympy.Expr:
+        """The polynomial written in powers of one abbreviation, P = c_0 + c_1 A + c_2 A^2 + ... (the c_k by
+        repeated division by A's value in the coordinates, sin^2 written 1 - cos^2 and back where shorter),
+        when that prints shorter than ``plain``; exact: the written-out form is checked to equal P."""
+        if len(polynomial.args) > ABBREVIATION_TERMS or not _is_polynomial_like(polynomial):
+            return plain
+        best, best_length = plain, len(self._printer.doprint(plain))
+        normal = _trig_normal(sympy.expand(polynomial))
+        for name, value in self._abbreviations:
+            try:
+                found = sympy.parallel_poly_from_expr([normal, value])[1].gens
+                # the coordinates first, so that division takes away their highest powers
+                gens = sorted(found, key=lambda g: (g not in self._coordinates, sympy.default_sort_key(g)))
+                coefficients, rest = [], normal
+                for _ in range(4):
+                    (quotient,), remainder = sympy.reduced(rest, [value], *gens, order="lex")
+                    coefficients.append(remainder)
+                    rest = quotient
+                    if quotient == 0:
+                        break
+                else:
+                    continue
+            except BasePolynomialError:
+                continue
+            if len(coefficients) < 2:
+                continue
+            candidate = sympy.Add(*[_sin_normal(c) * name**k for k, c in enumerate(coefficients)])
+            if sympy.expand(_trig_normal(sympy.expand(candidate.subs(name, value))) - normal) != 0:
+                continue
+            length = len(self._printer.doprint(candidate))
+            if length < best_length:
+                best, best_length = candidate, length
+        return best
 
     def _match(self, polynomial: sympy.Expr):
         """The abbreviation times a rational number, when the polynomial is one."""
@@ -298,6 +454,45 @@ class ExpressionWriter:
                     return sign * content / value_content * name
         return None
 
+    # signs -------------------------------------------------------------
+    def normal_signs(self, expr: sympy.Expr) -> sympy.Expr:
+        """The same expression with every sum that is a factor (in a numerator or a denominator, to an
+        integer power) negated where that leaves it with fewer negative terms or, as many, a positive term
+        first in printing order, the signs moved to the front: M/(r (2M - r)) becomes -M/(r (r - 2M)).
+        Exact: only factors (-1)^k move."""
+        if expr.is_Atom or isinstance(expr, AppliedUndef):
+            return expr
+        if isinstance(expr, sympy.Add):
+            return sympy.Add(*[self.normal_signs(term) for term in expr.args])
+        if isinstance(expr, sympy.Derivative):
+            return sympy.Derivative(self.normal_signs(expr.expr), *expr.variable_count)
+        if isinstance(expr, (sympy.Mul, sympy.Pow)):
+            sign, factors = 1, []
+            for factor in sympy.Mul.make_args(expr):
+                base, exponent = factor.as_base_exp()
+                if isinstance(base, sympy.Add):
+                    base = self.normal_signs(base)
+                    if exponent.is_Integer and self._led_by_minus(base):
+                        base, sign = -base, -sign if int(exponent) % 2 else sign
+                    factors.append(sympy.Pow(base, exponent))
+                elif isinstance(factor, sympy.Pow):
+                    factors.append(sympy.Pow(self.normal_signs(base), exponent))
+                else:
+                    factors.append(self.normal_signs(factor))
+            return sympy.Mul(sign, *factors) if sign == -1 else sympy.Mul(*factors)
+        if isinstance(expr, sympy.Function) and expr.args:
+            return expr.func(*[self.normal_signs(a) for a in expr.args])
+        return expr
+
+    def _led_by_minus(self, total: sympy.Add) -> bool:
+        """Whether the sum reads better negated: more negative terms than positive ones, or as many and a
+        negative one first in printing order (2 M - r is turned, -r + 2 M; r^2 - 2 M r + a^2 is not)."""
+        terms = self._printer.ordered_terms(total)
+        negative = sum(1 for term in terms if term.could_extract_minus_sign())
+        if 2 * negative != len(terms):
+            return 2 * negative > len(terms)
+        return bool(terms[0].could_extract_minus_sign())
+
     def definition(self, name: str, value: sympy.Expr) -> str:
         """LaTeX for ``name = value`` without abbreviating the value by itself."""
         return f"{self.symbol(name)} = {self._printer.doprint(value)}"
@@ -306,7 +501,7 @@ class ExpressionWriter:
     def _breakable(self, expr: sympy.Expr, short: int = SHORT_DENOMINATOR) -> str:
         p = self._printer
         if isinstance(expr, sympy.Add):
-            return self._sum(expr.as_ordered_terms(), short)
+            return self._sum(p._as_ordered_terms(expr), short)
         if isinstance(expr, sympy.Derivative) and not isinstance(expr.expr, AppliedUndef):
             variables = "".join(p.doprint(v) * int(n) for v, n in expr.variable_count)
             return rf"\partial_{{{variables}}}\bigl(" + self._breakable(expr.expr, short) + r"\bigr)"
@@ -334,7 +529,9 @@ class ExpressionWriter:
         parts = []
         if bottom != 1:
             bottom_tex = p.doprint(bottom)
-            if len(bottom_tex) <= short and len(top_tex) <= short:
+            # a short denominator is always a fraction (a long product above it cannot break either way)
+            if visible_length(bottom_tex) <= short or not any(isinstance(f.as_base_exp()[0], sympy.Add)
+                                                               for f in denominator):
                 parts.append(rf"\frac{{{top_tex}}}{{{bottom_tex}}}")
             else:
                 if top != 1:
@@ -348,17 +545,26 @@ class ExpressionWriter:
                 continue
             base, exponent = factor.as_base_exp()
             if isinstance(base, sympy.Abs):  # |a + b|: TeX may break inside \bigl| \bigr| but not \left| \right|
-                inner = r"\bigl|" + self._sum(base.args[0].as_ordered_terms(), short) + r"\bigr|"
+                inner = r"\bigl|" + self._sum(p._as_ordered_terms(base.args[0]), short) + r"\bigr|"
             else:
-                inner = r"\bigl(" + self._sum(base.as_ordered_terms(), short) + r"\bigr)"
+                inner = r"\bigl(" + self._sum(p._as_ordered_terms(base), short) + r"\bigr)"
             parts.append(inner if exponent == 1 else inner + f"^{{{p.doprint(exponent)}}}")
         return sign + r"\,".join(parts)
 
-    def _sum(self, terms: Iterable[sympy.Expr], short: int = SHORT_DENOMINATOR) -> str:
+    def _sum(self, terms: Iterable[sympy.Expr], short: int = SHORT_DENOMINATOR, whole: bool = False) -> str:
+        """Terms joined by + and -; ``whole``: a term of at most WHOLE_TERM visible characters is printed
+        as one fraction in a TeX group, inside which no line breaks."""
         out = []
         for i, term in enumerate(terms):
-            text = (self._breakable(term, short) if isinstance(term, (sympy.Mul, sympy.Derivative))
-                    else self._printer.doprint(term))
+            text = None
+            if whole:
+                inline = self._printer.doprint(term)
+                if visible_length(inline) <= WHOLE_TERM:
+                    negative = inline.startswith("-")
+                    text = ("-" if negative else "") + "{" + inline[1:].lstrip() + "}" if negative else "{" + inline + "}"
+            if text is None:
+                text = (self._breakable(term, short) if isinstance(term, (sympy.Mul, sympy.Derivative))
+                        else self._printer.doprint(term))
             if text.startswith("-"):
                 out.append(("- " if i else "-") + text[1:].lstrip())
             else:
@@ -366,9 +572,43 @@ class ExpressionWriter:
         return " ".join(out)
 
 
+#: Commands that take no room of their own (sizes of brackets, spacing).
+_INVISIBLE_COMMANDS = re.compile(r"\\(?:left|right|bigl|bigr|displaystyle|,|;|!)|[{}\s^_]")
+_COMMAND = re.compile(r"\\[A-Za-z]+")
+#: A top-level term of a geodesic equation up to this many visible characters is kept on one line.
+WHOLE_TERM = 50
+
+
+def visible_length(tex: str) -> int:
+    """A rough count of the characters a line of math LaTeX shows: bracket sizes, braces, spaces and script
+    marks take none, a command (a Greek letter, \\sin) one or three; fractions count both levels."""
+    stripped = _INVISIBLE_COMMANDS.sub("", tex.replace(r"\frac", ""))
+    return len(_COMMAND.sub(lambda m: "xxx" if len(m.group()) > 4 and m.group() not in _GREEK_COMMANDS else "x",
+                            stripped))
+
+
+_GREEK_COMMANDS = frozenset(_GREEK.values())
+
+
 def _is_polynomial_like(expr: sympy.Expr) -> bool:
     return all(not (isinstance(f, sympy.Pow) and f.exp.is_negative) for f in sympy.preorder_traversal(expr)
                if isinstance(f, sympy.Pow))
+
+
+#: Sums with more terms than this are not rewritten in powers of an abbreviation (it would cost too much).
+ABBREVIATION_TERMS = 40
+
+
+def _sin_normal(expr: sympy.Expr) -> sympy.Expr:
+    """``expr`` (a polynomial in cos x) with cos^2 x written 1 - sin^2 x where that is shorter: a^2 cos^2 - a^2
+    becomes -a^2 sin^2."""
+    cosines = [c for c in expr.atoms(sympy.cos)]
+    if not cosines:
+        return expr
+    other = sympy.expand(expr.subs({c**2: 1 - sympy.sin(c.args[0]) ** 2 for c in cosines}))
+    if other.has(*cosines):
+        return expr
+    return other if sympy.count_ops(other) < sympy.count_ops(expr) else expr
 
 
 def _trig_normal(expr: sympy.Expr) -> sympy.Expr:

@@ -181,7 +181,6 @@ class _Matter:
         trace = sum((self.mixed[i][i] for i in range(n)), self.A.zero)
         c.results["stress_energy_trace"] = self.physical(trace)
         test = self.A.zero_test(trace)
-        zero_test = test.evidence or ""
         if test.vanishes is False:
             verdict = Verdict("", False, f"the trace T^i_i = {self.physical(trace)} is not zero")
         elif test.vanishes:
@@ -193,7 +192,7 @@ class _Matter:
         c.results.setdefault("verdicts", {})["trace_free"] = {"holds": verdict.holds, "evidence": verdict.evidence}
         c.record(id="verdict/trace_free", kind="verdict", quantity="trace_free", annotation=statement, formula=formula("trace_free"),
                  uses=("stress_energy_mixed",), result=verdict,
-                 params={"trace": self.physical(trace), "zero_test": zero_test})
+                 params={"trace": self.physical(trace), "test": test.as_data()})
 
     # the frame ------------------------------------------------------------
     def inner(self, u: list, v: list):
@@ -279,12 +278,12 @@ class _Matter:
                 if a == b:
                     value = value - (-norms[a] if a == 0 else norms[a])
                 residues.append(value)
+        frame_verdict, frame_check = c.identity_verdict(
+            "g(e_a, e_b) = eta_ab", residues, "g(w_a, w_b) - eta_ab N_a for the unnormalised vectors")
         c.record(id="frame/check", kind="check", quantity="", component="frame",
                  annotation="The frame is orthonormal: g(e_(a), e_(b)) = diag(-1, 1, ..., 1).",
                  formula=FORMULAS["frame_check"], uses=("frame",),
-                 result=c.identity_verdict("g(e_a, e_b) = eta_ab", residues,
-                                           "g(w_a, w_b) - eta_ab N_a for the unnormalised vectors"),
-                 params={"residues": "unnormalised frame", "count": len(residues)})
+                 result=frame_verdict, params={"residues": "unnormalised frame", **frame_check})
         return True
 
     def norm_signs_or_reason(self, norms: list, labels: list) -> tuple[str, dict]:
@@ -429,12 +428,12 @@ class _Matter:
                         for a in range(n) for b in range(a + 1, n)}
             residues.update({("pressure difference", self.frame_key(k), self.frame_key(1)): self.p[k - 1] - self.p[0]
                              for k in range(2, n)})
-            verdict, residue, zero_test = self.residue_verdict(statement, residues)
+            verdict, residue, test = self.residue_verdict(statement, residues)
             params["checked"] = len(residues)
             if residue is not None:
                 params["residue"] = {"kind": residue[0], "frame_indices": list(residue[1:])}
-            if zero_test:
-                params["zero_test"] = zero_test
+            if test:
+                params["test"] = test
             if verdict.holds:
                 u = c.results["frame"]["vectors"][self.name(self.labels[0])]
                 vacuum = all(c.is_zero(self.S[i][j]) for i in range(n) for j in range(n))
@@ -452,8 +451,8 @@ class _Matter:
         c.record(id="verdict/perfect_fluid", kind="verdict", quantity="perfect_fluid", annotation=statement, formula=formula("perfect_fluid"),
                  uses=("density_and_pressures",) if self.frame_built else ("frame",), result=verdict, params=params)
 
-    def residue_verdict(self, statement: str, residues: dict) -> tuple[Verdict, tuple | None, str]:
-        """(verdict, the residue that decided it or None, the zero test's words when undecided).
+    def residue_verdict(self, statement: str, residues: dict) -> tuple[Verdict, tuple | None, dict]:
+        """(verdict, the residue that decided it or None, how that residue was tested as data).
 
         Residues are keyed (kind, frame index, frame index): "off-diagonal" T_(a)(b) or "pressure difference"
         p_(a) - p_(b)."""
@@ -461,13 +460,13 @@ class _Matter:
         for key, element in residues.items():
             test = self.A.zero_test(element)
             if test.vanishes is False:
-                return Verdict(statement, False, f"{residue_label(key)} is not zero"), key, ""
+                return Verdict(statement, False, f"{residue_label(key)} is not zero"), key, test.as_data()
             if test.vanishes is None and undecided is None:
-                undecided = (key, test.evidence)
+                undecided = (key, test)
         if undecided is not None:
-            key, words = undecided
-            return Verdict(statement, None, f"{residue_label(key)}: {words}"), key, words
-        return Verdict(statement, True, f"each of the {len(residues)} conditions checked vanishes exactly"), None, ""
+            key, test = undecided
+            return Verdict(statement, None, f"{residue_label(key)}: {test.evidence}"), key, test.as_data()
+        return Verdict(statement, True, f"each of the {len(residues)} conditions checked vanishes exactly"), None, {}
 
     def energy_conditions(self) -> None:
         c, n = self.c, self.n

@@ -38,6 +38,12 @@ Optional requests beyond curvature::
     start = { t = "0", r = "10", theta = "pi/2", phi = "0" }
     velocity = { r = "0", theta = "0", phi = "1/30" }
     span = "300"
+    [[plot]]                     # a plot in the report and the notebook (as many as PLOT_LIMIT)
+    quantity = "kretschmann"     # or a list; see PLOT_QUANTITIES
+    along = "r"
+    range = ["2", "12"]
+    values = { M = "1", theta = "pi/2" }   # a number for every parameter; coordinates as needed
+    shade = "null"               # optional: shade where this energy condition fails (needs [matter])
 """
 
 from __future__ import annotations
@@ -53,7 +59,8 @@ import sympy
 from .errors import InputError
 from .algebra import printer_stable
 from .metric import AnsatzRequest, MatterRequest, Metric, OrbitRequest, _validate
-from .record import FUNCTION_SIGN_WORDS, FunctionSign
+from .record import FUNCTION_SIGN_WORDS, PLOT_SHADES, FunctionSign, PlotRequest
+from .quantities import QUANTITIES
 from .parse import Vocabulary, check_identifier, parse_expression
 
 ASSUMPTIONS = {
@@ -66,10 +73,15 @@ ASSUMPTIONS = {
 }
 
 KNOWN_KEYS = ("title", "notes", "coordinates", "line_element", "components", "symbols", "functions",
-              "abbreviations", "matter", "ansatz", "orbit")
+              "abbreviations", "matter", "ansatz", "orbit", "plot")
 MATTER_KEYS = ("units", "cosmological_constant", "time", "region")
 ANSATZ_KEYS = ("unknowns", "cosmological_constant")
 ORBIT_KEYS = ("kind", "time", "values", "start", "velocity", "span")
+PLOT_KEYS = ("quantity", "along", "range", "values", "shade")
+#: What a [[plot]] may draw: the registry's scalar results, and "pressure" for the principal pressures.
+PLOT_QUANTITIES = tuple(q.name for q in QUANTITIES.values() if q.rank == 0) + ("pressure",)
+#: Most [[plot]] tables a metric file may hold (each is evaluated at a few hundred points).
+PLOT_LIMIT = 12
 UNITS = ("geometric", "physical")
 
 
@@ -244,6 +256,9 @@ def metric_from_data(data: dict[str, Any], default_title: str = "Untitled metric
         requests["ansatz"] = _ansatz_request(_table(data, "ansatz"), coordinates, symbols, functions, matrix)
     if "orbit" in data:
         requests["orbit"] = _orbit_request(_table(data, "orbit"), coordinates, symbols, functions, used)
+    if "plot" in data:
+        requests["plots"] = _plot_requests(data["plot"], coordinates, symbols, functions, used,
+                                           requests.get("matter"))
     return Metric(
         coordinates=coordinates,
         matrix=matrix,
@@ -434,6 +449,66 @@ def _orbit_request(table: dict, coordinates, symbols: dict, functions: dict, use
     return OrbitRequest(time=time, kind=kind, values=numbers("values", parameters),
                         start=numbers("start", names), velocity=numbers("velocity", [n for n in names if n != time.name]),
                         span=_positive_span(table))
+
+
+def _plot_requests(entries, coordinates, symbols: dict, functions: dict, used: set, matter) -> tuple:
+    """The [[plot]] tables: quantity (a name or a list), along (a coordinate), range = [low, high] (exact
+    numbers, low < high), values (an exact number for every parameter the plotted results may hold; other
+    coordinates as needed) and an optional energy condition to shade."""
+    if not isinstance(entries, list) or not all(isinstance(e, dict) for e in entries):
+        raise InputError("'plot' must be an array of tables, each written [[plot]]")
+    if len(entries) > PLOT_LIMIT:
+        raise InputError(f"at most {PLOT_LIMIT} [[plot]] tables, not {len(entries)}")
+    if entries and functions:
+        raise InputError("[[plot]] needs a metric without free functions")
+    names = [c.name for c in coordinates]
+    plots = []
+    for number, table in enumerate(entries, start=1):
+        where = f"plot {number}"
+        _check_keys(table, PLOT_KEYS, where)
+        given = table.get("quantity")
+        wanted = [given] if isinstance(given, str) else given
+        if not isinstance(wanted, list) or not wanted or not all(isinstance(q, str) for q in wanted):
+            raise InputError(f"{where}: 'quantity' must be one of {', '.join(PLOT_QUANTITIES)} (or a list of them)")
+        for quantity in wanted:
+            if quantity not in PLOT_QUANTITIES:
+                raise InputError(f"{where}: cannot plot {quantity!r}; choose from {', '.join(PLOT_QUANTITIES)}")
+            if QUANTITIES[quantity].requires == "matter" and matter is None:
+                raise InputError(f"{where}: {quantity} needs a [matter] table")
+        if len(set(wanted)) != len(wanted):
+            raise InputError(f"{where}: 'quantity' names a quantity twice")
+        along = table.get("along")
+        if not isinstance(along, str) or along not in names:
+            raise InputError(f"{where}: 'along' must be one of the coordinates ({', '.join(names)})")
+        bounds = table.get("range")
+        if not (isinstance(bounds, list) and len(bounds) == 2):
+            raise InputError(f"{where}: 'range' must be a pair [low, high], e.g. range = [\"2\", \"12\"]")
+        low, high = (_number(b, symbols, f"{where}.range") for b in bounds)
+        if not low < high:
+            raise InputError(f"{where}: the low end {low} of the range is not below the high end {high}")
+        needed = sorted(s.name for s in used if s not in coordinates)
+        if matter is not None and any(QUANTITIES[q].requires == "matter" for q in wanted):
+            extra = matter.cosmological_constant.free_symbols | {s for s in (matter.newton, matter.light) if s}
+            needed += sorted(s.name for s in extra if s.name not in needed and s not in coordinates)
+        allowed = needed + [n for n in names if n != along]
+        values = _table(table, "values")
+        for name in values:
+            if name not in allowed:
+                raise InputError(f"{where}.values: '{name}' is not one of {', '.join(allowed)}")
+        missing = [n for n in needed if n not in values]
+        if missing:
+            raise InputError(f"{where}.values is missing '{missing[0]}' (it needs {', '.join(needed)})")
+        known = {**symbols, **({s.name: s for s in (matter.newton, matter.light) if s} if matter else {})}
+        known.update({s.name: s for s in (matter.cosmological_constant.free_symbols if matter else ())})
+        pairs = tuple((known[n], _number(values[n], symbols, f"{where}.values.{n}")) for n in allowed if n in values)
+        shade = table.get("shade", "")
+        if shade != "" and shade not in PLOT_SHADES:
+            raise InputError(f"{where}: 'shade' must be one of {', '.join(PLOT_SHADES)}, not {shade!r}")
+        if shade and matter is None:
+            raise InputError(f"{where}: 'shade' needs a [matter] table (the energy conditions)")
+        plots.append(PlotRequest(quantities=tuple(wanted), along=symbols[along], low=low, high=high, values=pairs,
+                                 shade=shade))
+    return tuple(plots)
 
 
 def _positive_span(table: dict) -> sympy.Expr:

@@ -50,6 +50,7 @@ from .record import Derivation
 from .quantities import QUANTITIES, in_position
 from .runtime import MODULES as RUNTIME_MODULES, inlined_source
 from .record import ASSUMPTION_WORDS, HOLDS_WORDS, Decision, Method, Step, Verdict
+from .plots import plots as derivation_plots
 
 #: The project's own templates; user directories given to :func:`notebook_text` come first.
 from .exporters import template_environment  # noqa: E402  (one environment for every template set)
@@ -83,6 +84,7 @@ _NOTEBOOK_NAMES = _runtime_names() | frozenset("""
     ansatz_constant ansatz_einstein ansatz_unknowns other_branches recorded_follows recorded_independent
     recorded_relations recorded_solution recorded_position integrate_orbit orbit_normalisation orbit_rates
     orbit_solution orbit_span orbit_start orbit_time orbit_time_rate orbit_tolerance orbit_values
+    check_plot plot_data
 """.split())
 
 
@@ -1208,8 +1210,8 @@ print("ansatz/solution: not solved, as recorded")"""
         solution = ", ".join(f"{self.s.expr(unknowns[k])}: {self.s.expr(v)}" for k, v in step.params["solution"].items())
         constants = {s.name: s for _, s in self.s.others}
         rescalings = []
-        for name, text in step.params.get("rescalings", {}).items():
-            coordinate_name = str(text).split(":", 1)[0]
+        for name, rescaling in step.params.get("rescalings", {}).items():
+            coordinate_name = str(rescaling["coordinate"])
             if name not in constants:
                 raise NotebookError(f"ansatz/solution: unknown constant {name!r}")
             rescalings.append(f"check_rescaling({self._id(step)}, {self.s.expr(constants[name])}, "
@@ -1254,6 +1256,99 @@ check_table("geodesic_equations", recorded, geodesic_from_christoffel, [(a,) for
 geodesic_acceleration.update({{a: sp.sympify(component(recorded, a)) for a in index_names}})
 {self._done(step)}"""
         return "geodesic_equations", code
+
+    def plot(self, plot) -> str:
+        """The cell of one plot (stepper.plots): put the plot's values into the recorded results, evaluate them
+        at the plot's points with sympy, assert that they agree with the values stepper drew (and, when it
+        shades, that the same points fail the energy condition), and draw them with matplotlib."""
+        import math
+        from .latex import ExpressionWriter
+        from .plots import DIGITS, INTERVALS, SHADE_TOLERANCE, notebook_samples
+        s = self.s
+        values = "{" + ", ".join(f"{s.expr(symbol)}: {s.expr(value)}" for symbol, value in plot.values) + "}"
+        curves = "\n".join(f"        {c.tex!r}: {s.expr(c.recorded)}," for c in plot.curves)
+
+        def number(v: float) -> str:
+            return repr(v) if math.isfinite(v) else 'float("nan")'
+        drawn = "\n".join(f"        {label!r}: {{{', '.join(f'{k}: {number(v)}' for k, v in samples.items())}}},"
+                          for label, samples in notebook_samples(plot).items())
+        inequalities = "\n".join(f"        {s.expr(v)}," for v in plot.shade_recorded)
+        along = ExpressionWriter().symbol(plot.along.name)
+        shade_words = (f"the points where one of the recorded inequalities (value >= 0) of the {plot.shade} energy "
+                       f"condition is negative beyond {SHADE_TOLERANCE:g} times its largest size on the points: "
+                       f"stepper shaded {sum(plot.failing)} of {len(plot.failing)}" if plot.shade else
+                       "no energy condition is shaded")
+        return f"""def check_plot():
+    \"\"\"Plot {plot.number} ({plot.file_name} beside the report): the recorded results with the plot's values put in,
+    at the {INTERVALS + 1} points stepper drew, to {DIGITS} digits; some must agree with the values stepper drew (doubles),
+    and {shade_words}.\"\"\"
+    import math
+    along = {s.expr(plot.along)}
+    values = {values}
+    curves = {{
+{curves}
+    }}
+    low, high = {s.expr(plot.low)}, {s.expr(plot.high)}
+    points = [low + (high - low) * sp.Rational(k, {INTERVALS}) for k in range({INTERVALS + 1})]
+    drawn = {{
+{drawn}
+    }}
+    inequalities = [
+{inequalities}
+    ]
+
+    def number_at(expression, point):
+        value = sp.N(sp.Integer(expression) if isinstance(expression, int) else expression.subs(along, point), {DIGITS})
+        return float(value) if value.is_real and value.is_finite else float("nan")
+
+    data = {{}}
+    for label, expression in curves.items():
+        concrete = sp.Integer(expression) if isinstance(expression, int) else expression.subs(values)
+        if concrete.free_symbols - {{along}}:
+            raise AssertionError(f"plot {plot.number}: {{label}} still depends on {{concrete.free_symbols - {{along}}}}")
+        data[label] = [number_at(concrete, x) for x in points]
+        for k, theirs in drawn[label].items():
+            mine = data[label][k]
+            if not (math.isnan(mine) and math.isnan(theirs)) and not math.isclose(mine, theirs, rel_tol=1e-12, abs_tol=1e-300):
+                raise AssertionError(f"plot {plot.number}: {{label}} at point {{k}} is {{mine}}, but stepper drew {{theirs}}")
+    failing = [False] * len(points)
+    for expression in inequalities:
+        concrete = sp.Integer(expression) if isinstance(expression, int) else expression.subs(values)
+        numbers = [number_at(concrete, x) for x in points]
+        scale = max((abs(v) for v in numbers if math.isfinite(v)), default=0.0)
+        for k, v in enumerate(numbers):
+            if math.isfinite(v) and v < -{SHADE_TOLERANCE!r} * scale:
+                failing[k] = True
+    if sum(failing) != {sum(plot.failing)}:
+        raise AssertionError(f"plot {plot.number}: {{sum(failing)}} points fail the energy condition, but stepper shaded {sum(plot.failing)}")
+    print(f"plot {plot.number}: {{len(points)}} points of {{', '.join(data)}} agree with the values stepper drew")
+    try:
+        from matplotlib.figure import Figure
+    except ImportError:
+        print("matplotlib is not installed here: the values are checked, the plot is not drawn")
+        return data
+    import io
+    from IPython.display import SVG, display
+    figure = Figure(figsize=(6.2, 3.5))
+    axes = figure.subplots()
+    xs = [float(x) for x in points]
+    for k, (label, ys) in enumerate(data.items()):
+        axes.plot(xs, ys, ("-", "--", ":", "-.")[k % 4], label=f"${{label}}$", linewidth=max(2.6 - 0.5 * k, 1.0))
+    for k, fails in enumerate(failing):
+        if fails:
+            axes.axvspan((xs[max(k - 1, 0)] + xs[k]) / 2, (xs[k] + xs[min(k + 1, len(xs) - 1)]) / 2,
+                         color="#f3d3cf", linewidth=0, zorder=0)
+    if {plot.logarithmic!r}:
+        axes.set_yscale("log")
+    axes.set_xlabel({f"${along}$"!r})
+    axes.legend()
+    picture = io.StringIO()
+    figure.savefig(picture, format="svg")
+    display(SVG(picture.getvalue()))
+    return data
+
+
+plot_data = check_plot()"""
 
     def orbit(self, step) -> str:
         orbit = step.params["orbit"]
@@ -1461,6 +1556,9 @@ def notebook_text(derivation: Derivation, templates: list[Path] | None = None) -
             text = env.get_template("notebook/orbit.md.j2").render(step=step, number=number, orbit=step.params["orbit"],
                                                                    dimension=metric.dimension)
             step_cells.append((step.id, text.strip("\n"), writer.orbit(step), "orbit"))
+    for plot in (p for p in derivation_plots(derivation) if p.drawn):  # after every step: the plots
+        text = env.get_template("notebook/plot.md.j2").render(plot=plot, values=[(s.name, v) for s, v in plot.values])
+        step_cells.append((None, text.strip("\n"), writer.plot(plot), "plot"))
 
     context = {
         "metric": metric,

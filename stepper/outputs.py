@@ -19,6 +19,7 @@ from __future__ import annotations
 import ctypes
 import errno
 import os
+import re
 import shutil
 import signal
 import stat
@@ -31,7 +32,15 @@ from .errors import InputError
 
 OUTPUT_NAMES = frozenset({"trace.json", "report.tex", "appendix.tex", "report.pdf", "derivation.ipynb",
                           "report.log"})
-"""Every file name a run may write into its output folder."""
+"""Every file name a run may write into its output folder (besides the plots, see PLOT_NAME)."""
+
+PLOT_NAME = re.compile(r"plot-[0-9]{1,3}(-[a-z]+)+\.pdf")
+"""The plots' figure files (``plot-1-kretschmann.pdf``), written beside report.tex (stepper.plots)."""
+
+
+def is_output_name(name: str) -> bool:
+    """Whether ``name`` is a file name stepper writes into an output folder."""
+    return name in OUTPUT_NAMES or PLOT_NAME.fullmatch(name) is not None
 
 TOLERATED_NAMES = frozenset({".ipynb_checkpoints"})
 """Names others put into an output folder (Jupyter's checkpoints of the notebook); replaced with the set."""
@@ -78,7 +87,7 @@ def check_output_folder(folder: Path) -> None:
                          "output folder as a whole, so give another folder with -o")
     if folder.is_dir():
         foreign = sorted(name for name in os.listdir(folder)
-                         if name not in OUTPUT_NAMES and name not in TOLERATED_NAMES)
+                         if not is_output_name(name) and name not in TOLERATED_NAMES)
         if foreign:
             shown = ", ".join(foreign[:3]) + (", ..." if len(foreign) > 3 else "")
             raise InputError(f"output folder {folder} holds files stepper did not write ({shown}); stepper "

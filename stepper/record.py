@@ -337,6 +337,28 @@ class OrbitRequest:
     span: sympy.Expr
 
 
+#: Energy conditions a plot may shade where they fail (the names of the energy-condition steps' components).
+PLOT_SHADES = ("null", "weak", "strong", "dominant")
+
+
+@dataclass(frozen=True)
+class PlotRequest:
+    """One plot for the report and the notebook (the metric file's ``[[plot]]``).
+
+    ``quantities`` are registry names of scalar results (``scalar``, ``kretschmann``, ``energy_density``,
+    ``pressure`` for every principal pressure, ...), drawn along the coordinate ``along`` from ``low`` to
+    ``high`` with every other symbol fixed by ``values`` (exact numbers); ``shade`` names an energy
+    condition whose failing stretch is shaded ("" for none).
+    """
+
+    quantities: tuple[str, ...]
+    along: sympy.Symbol
+    low: sympy.Expr
+    high: sympy.Expr
+    values: tuple[tuple[sympy.Symbol, sympy.Expr], ...] = ()
+    shade: str = ""
+
+
 @dataclass(frozen=True)
 class MetricRecord:
     """An n-dimensional metric g_ij in coordinates x^i, with what it was built from and what was asked."""
@@ -358,6 +380,8 @@ class MetricRecord:
     line_element_expression: sympy.Expr | None = None
     #: Declared signs of free functions and of their first derivatives, in the order of the metric file.
     function_signs: tuple[FunctionSign, ...] = ()
+    #: The plots asked for with ``[[plot]]``, in the order of the metric file.
+    plots: tuple[PlotRequest, ...] = ()
 
     @property
     def extra_symbols(self) -> tuple[sympy.Symbol, ...]:

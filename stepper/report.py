@@ -68,6 +68,78 @@ STATEMENTS = {
     ("check", "ansatz_solution", ""): r"The solution satisfies every field equation \(E_{ij} = 0\)",
 }
 
+#: Typeset annotations of the curvature chain's steps whose words do not depend on the metric, keyed like
+#: ANNOTATIONS (the trace keeps the engine's plain-text sentences).
+CHAIN_ANNOTATIONS = {
+    ("input", "metric", ""): r"The metric components \(g_{ij}\) read from the input.",
+    ("derivative", "metric_derivatives", ""): (r"First partial derivatives \(\partial_k g_{ij}\) of the metric for "
+                                               r"\(i \le j\) (\(\partial_k g_{ji} = \partial_k g_{ij}\)); those not "
+                                               r"listed vanish."),
+    ("determinant", "determinant", ""): r"Determinant of the metric, \(g = \det(g_{ij})\).",
+    ("inverse", "inverse_metric", ""): r"Inverse metric \(g^{ij}\).",
+    ("check", "inverse_metric", "identity"): (r"The product of the inverse and the metric is the identity, "
+                                              r"\(g^{ik} g_{kj} = \delta^i{}_j\)."),
+    ("check", "contracted_christoffel", ""): (r"The contracted Christoffel symbols equal the derivative of "
+                                              r"\(\ln\sqrt{|g|}\) in every direction."),
+    ("summary", "ricci", ""): (r"Ricci tensor \(R_{bd} = R^a{}_{bad}\) from the contraction of the Riemann tensor "
+                               r"(components not listed vanish)."),
+    ("check", "ricci", "symmetry"): r"The Ricci tensor is symmetric, \(R_{ij} = R_{ji}\).",
+    ("route", "ricci_by_trace_identity", ""): (r"Ricci tensor by the second route, from the Christoffel symbols and "
+                                               r"\(\ln\sqrt{|g|}\) (independent components \(i \le j\); those not "
+                                               r"listed vanish)."),
+    ("check", "ricci", "agreement"): r"The two routes to the Ricci tensor agree component by component.",
+    ("contraction", "scalar", ""): r"Scalar curvature \(R = g^{ij} R_{ij}\).",
+    ("summary", "einstein", ""): (r"Einstein tensor \(G_{ij} = R_{ij} - \tfrac12 R\,g_{ij}\) (components not "
+                                  r"listed vanish)."),
+    ("lowering", "riemann_lowered", ""): (r"Riemann tensor with all indices down, \(R_{abcd} = g_{ae} R^e{}_{bcd}\), "
+                                          r"for \(a < b\), \(c < d\) and \((a, b) \le (c, d)\); the others follow "
+                                          r"from \(R_{abcd} = -R_{bacd} = -R_{abdc} = R_{cdab}\)."),
+    ("check", "riemann_lowered", "pair_symmetry"): (r"Pair exchange symmetry \(R_{abcd} = R_{cdab}\) of the lowered "
+                                                    r"components."),
+    ("check", "riemann_lowered", "first_bianchi"): (r"First Bianchi identity: the cyclic sum "
+                                                    r"\(R_{abcd} + R_{acdb} + R_{adbc}\) vanishes."),
+    ("invariant", "kretschmann", ""): (r"Kretschmann scalar \(K = R_{abcd} R^{abcd}\), the full contraction of the "
+                                       r"Riemann tensor with itself, summed as 4 times the sum over \(a < b\) and "
+                                       r"\(c < d\)."),
+    ("tensor", "weyl", ""): (r"Weyl tensor with all indices down, for \(a < b\), \(c < d\) and "
+                             r"\((a, b) \le (c, d)\); components not listed vanish."),
+    ("verdict", "ricci_flat", ""): r"Ricci-flat: every component of the Ricci tensor vanishes, \(R_{ij} = 0\).",
+    ("verdict", "constant_curvature", ""): (r"Constant curvature: \(R_{abcd} = k\,(g_{ac} g_{bd} - g_{ad} g_{bc})\) "
+                                            r"with constant \(k = R/(n(n-1))\)."),
+    ("verdict", "conformally_flat", ""): r"Conformally flat: the Weyl tensor vanishes, \(C_{abcd} = 0\).",
+    ("verdict", "bianchi", ""): (r"Contracted Bianchi identity: the Einstein tensor is divergence-free, "
+                                 r"\(\nabla^a G_{ab} = 0\)."),
+}
+
+#: Typeset statements of the curvature chain's checks and verdicts, keyed like ANNOTATIONS.
+CHAIN_STATEMENTS = {
+    ("check", "inverse_metric", "identity"): r"\(g^{ik} g_{kj} = \delta^i{}_j\)",
+    ("check", "contracted_christoffel", ""): r"\(\Gamma^l{}_{li} = \partial_i \ln\sqrt{|g|}\) for every \(i\)",
+    ("check", "ricci", "symmetry"): r"\(R_{ij} = R_{ji}\)",
+    ("check", "ricci", "agreement"): r"The two routes to the Ricci tensor agree",
+    ("check", "riemann_lowered", "pair_symmetry"): r"\(R_{abcd} = R_{cdab}\)",
+    ("check", "riemann_lowered", "first_bianchi"): r"\(R_{a[bcd]} = 0\)",
+    ("verdict", "ricci_flat", ""): r"Ricci-flat: \(R_{ij} = 0\)",
+    ("verdict", "constant_curvature", ""): (r"Constant curvature: \(R_{abcd} = k\,(g_{ac} g_{bd} - g_{ad} g_{bc})\) "
+                                            r"with constant \(k = R/(n(n-1))\)"),
+    ("verdict", "conformally_flat", ""): r"Conformally flat: \(C_{abcd} = 0\)",
+    ("verdict", "bianchi", ""): r"Contracted Bianchi identity: \(\nabla^a G_{ab} = 0\)",
+    ("numeric check", "", ""): (r"The symbolic Christoffel symbols, Riemann and Ricci tensors and scalar curvature "
+                                r"agree with an independent numeric computation"),
+}
+
+#: What the residues of each check are, typeset, keyed like ANNOTATIONS.
+CHECK_RESIDUES = {
+    ("check", "inverse_metric", "identity"): r"the entries of \(g^{ik} g_{kj} - \delta^i{}_j\)",
+    ("check", "contracted_christoffel", ""): "the differences of the two routes",
+    ("check", "ricci", "symmetry"): r"the differences \(R_{ij} - R_{ji}\)",
+    ("check", "ricci", "agreement"): "the component-wise differences",
+    ("check", "riemann_lowered", "pair_symmetry"): r"\(R_{abcd} - R_{cdab}\) on the independent components",
+    ("check", "riemann_lowered", "first_bianchi"): r"the cyclic sums with \(b < c < d\)",
+    ("check", "", "frame"): r"\(g(w_{(a)}, w_{(b)}) - \eta_{(a)(b)} N_{(a)}\) for the unnormalised vectors",
+    ("check", "ansatz_solution", ""): r"the components \(E_{ij}\) with the solution put in",
+}
+
 #: Width (in characters of LaTeX) of an expression shown in a table cell before it is broken.
 CELL_WIDTH = 48
 
@@ -76,6 +148,45 @@ _SIGN_TEX = {"positive": "> 0", "nonnegative": r"\ge 0", "negative": "< 0", "non
              "nonzero": r"\ne 0"}
 
 _LONG_WORD = re.compile(r"\S{25,}")
+
+#: Symbols the report uses for quantities of its own, what each stands for, and the symbol it takes instead
+#: when a name of the metric prints the same (a function Lambda(r), a coordinate tau, a parameter rho).
+OWN_SYMBOLS = (
+    (r"\Lambda", "the cosmological constant", r"\Lambda_{\mathrm{c}}"),
+    (r"\kappa", "the coupling constant of the field equations", r"\kappa_{\mathrm{E}}"),
+    (r"\rho", "the energy density", r"\rho_{\mathrm{E}}"),
+    (r"\tau", "the proper time or affine parameter along a geodesic", r"\tau_{\mathrm{g}}"),
+)
+
+
+def _own_use(tex: str) -> re.Pattern:
+    """The report's own uses of a symbol: the command not in braces (the metric's names print braced, {\\Lambda},
+    and so does \\ensuremath{\\Lambda} in escaped text) and not followed by more letters."""
+    return re.compile(r"(?<!\{)" + re.escape(tex) + r"(?![A-Za-z])")
+
+
+def _renamed(value: Any, renames: dict[str, str]) -> Any:
+    """Every string in nested lists and dicts with the report's own uses of the symbols renamed."""
+    if isinstance(value, str):
+        for tex, new in renames.items():
+            value = _own_use(tex).sub(lambda _: new, value)
+        return value
+    if isinstance(value, dict):
+        return {k: _renamed(v, renames) for k, v in value.items()}
+    if isinstance(value, list):
+        return [_renamed(v, renames) for v in value]
+    return value
+
+
+def _strings(value: Any):
+    if isinstance(value, str):
+        yield value
+    elif isinstance(value, dict):
+        for v in value.values():
+            yield from _strings(v)
+    elif isinstance(value, list):
+        for v in value:
+            yield from _strings(v)
 
 
 def breakable_text(text: str) -> str:
@@ -90,10 +201,6 @@ def breakable_text(text: str) -> str:
 def fields(step: Step) -> tuple[str, str, str]:
     """What a step is: its (kind, quantity, component)."""
     return step.kind.value, step.quantity, step.component
-
-
-def _id_text(step_id: str) -> str:
-    return escape_text(step_id)
 
 
 def _verdict_word(holds: bool | None) -> str:
@@ -114,9 +221,13 @@ class _Model:
         self.d = derivation
         m = derivation.metric
         self.number = {s.id: n for n, s in enumerate(derivation.steps, start=1)}
+        self.by_id = {s.id: s for s in derivation.steps}
         self.writer = ExpressionWriter(m.abbreviations, m.coordinates)  # velocity_tex needs it for coordinates
+        self.clashes = self.symbol_clashes()
+        self.writer = ExpressionWriter(m.abbreviations, m.coordinates, braced=self.clashes)
         velocities = {x: (sympy.Symbol(self.velocity_name(x), real=True), self.velocity_tex(x)) for x in m.names}
-        self.writer = ExpressionWriter(m.abbreviations, m.coordinates, velocities)
+        self.writer = ExpressionWriter(m.abbreviations, m.coordinates, velocities, time=self.time_coordinate(),
+                                       braced=self.clashes)
         self.formula_first_shown: dict[str, int] = {}
 
     # small pieces ---------------------------------------------------------
@@ -124,7 +235,8 @@ class _Model:
         return f"step{self.number[step_id]}"
 
     def link(self, step_id: str) -> dict:
-        return {"anchor": self.anchor(step_id), "number": self.number[step_id], "id": _id_text(step_id)}
+        return {"anchor": self.anchor(step_id), "number": self.number[step_id],
+                "name": self.step_name(self.by_id[step_id])}
 
     def has(self, step_id: str) -> bool:
         return step_id in self.number
@@ -296,25 +408,90 @@ class _Model:
         return f"u_{coordinate}"
 
     def velocity_tex(self, coordinate: str) -> str:
-        """LaTeX for d(coordinate)/dtau: u_{r}, or uu_{r} when the metric already used the name u_r;
-        the subscript is the coordinate as typeset elsewhere."""
+        """LaTeX for d(coordinate)/dtau, the contravariant component with an upper index: u^{r}, or
+        \\tilde{u}^{r} when the metric already used the name u_r (recorded as uu_r); the index is the
+        coordinate as typeset elsewhere."""
         name = self.velocity_name(coordinate)
         prefix = name[:len(name) - len(coordinate) - 1] if name.endswith("_" + coordinate) else "u"
-        return f"{prefix}_{{{self.sym(coordinate)}}}"
+        head = {"u": "u", "uu": r"\tilde{u}"}.get(prefix) or self.sym(prefix)
+        return f"{head}^{{{self.sym(coordinate)}}}"
+
+    def symbol_clashes(self) -> dict[str, str]:
+        """The report's own symbols (OWN_SYMBOLS) that a name of the metric also prints as, each with the
+        metric's name; a symbol that is itself the cosmological constant asked for is no clash."""
+        m = self.d.metric
+        names = ([x.name for x in m.coordinates] + [p.name for p in m.parameters] + [a for a, _ in m.assumptions]
+                 + [f.func.__name__ for f in m.functions] + [a for a, _ in m.abbreviations])
+        constants = {request.cosmological_constant for request in (m.matter, m.ansatz) if request is not None}
+        clashes = {}
+        for name in dict.fromkeys(names):
+            tex = self.writer.symbol(name)
+            if any(tex == own for own, _, _ in OWN_SYMBOLS) and tex not in clashes:
+                if tex == r"\Lambda" and constants and all(getattr(c, "name", None) == name for c in constants):
+                    continue  # the metric's Lambda is the cosmological constant itself
+                clashes[tex] = name
+        return clashes
+
+    def renaming_sentence(self, used: list[str]) -> str:
+        """Which of the report's symbols were renamed, and why."""
+        functions = {f.func.__name__ for f in self.d.metric.functions}
+        coordinates = set(self.d.metric.names)
+        parts = []
+        for own, words, new in OWN_SYMBOLS:
+            if own in used:
+                name = self.clashes[own]
+                kind = "function" if name in functions else "coordinate" if name in coordinates else "symbol"
+                parts.append(rf"the metric's {kind} \({{{own}}}\) is not {words}, which is written \({new}\)")
+        return "In this report " + "; ".join(parts) + "."
+
+    def time_coordinate(self) -> sympy.Symbol | None:
+        """The coordinate whose derivatives are written with dots: the time the matter's frame or the orbit
+        was declared with, else the one coordinate with g_aa < 0 when the declared signs fix the signature,
+        else a coordinate named t; None when there is none (primes throughout)."""
+        m = self.d.metric
+        for request in (m.matter, m.orbit):
+            if request is not None and request.time in m.coordinates:
+                return request.time
+        signs = (self.d.convention_data or {}).get("signature")
+        if signs and signs.count("-") == 1 and len(signs) == len(m.coordinates) > 1:
+            return m.coordinates[signs.index("-")]
+        return next((x for x in m.coordinates if x.name == "t"), None)
+
+    def derivative_sentence(self) -> str:
+        """How derivatives of the free functions are written, for the functions this metric has."""
+        w, time = self.writer, self.writer.time
+        single = [f for f in self.d.metric.functions if len(f.args) == 1]
+        dotted = [f for f in single if f.args[0] == time]
+        primed = [f for f in single if f.args[0] != time]
+        several = [f for f in self.d.metric.functions if len(f.args) > 1]
+        parts = []
+        if dotted:
+            f = dotted[0]
+            parts.append(rf"derivatives by the time coordinate \({w.symbol(time.name)}\) are written with dots, "
+                         rf"\({w.inline(sympy.Derivative(f, time))} = d{w.symbol(f.func.__name__)}/d{w.symbol(time.name)}\)")
+        if primed:
+            f = primed[0]
+            x = f.args[0]
+            lead = "those of other functions of one variable" if parts else \
+                "derivatives of functions of one variable are written"
+            parts.append(rf"{lead} with primes, \({w.inline(sympy.Derivative(f, x))} = "
+                         rf"d{w.symbol(f.func.__name__)}/d{w.inline(x)}\)")
+        if several:
+            lead = "those of functions of several variables" if parts else \
+                "derivatives of functions of several variables are written"
+            parts.append(rf"{lead} with \(\partial\) and subscripts")
+        return "; ".join(parts) + "." if parts else ""
 
     def geodesic_lines(self, result: dict) -> list[dict]:
-        lines = []
-        positions = result.get("position", {})
+        """dx^a/dtau = u^a for every coordinate, side by side, then one equation per acceleration du^a/dtau
+        whose lines break only between whole terms."""
+        rates, accelerations = [], []
         for name, acceleration in result.get("velocity", {}).items():
-            x = self.sym(name)
-            first = rf"\frac{{d{x}}}{{d\tau}} = {self.velocity_tex(name)},\qquad "
+            rates.append(self.line(rf"\frac{{d{self.sym(name)}}}{{d\tau}} = {self.velocity_tex(name)}"))
             lhs = component_symbol("geodesic_acceleration", [name], self.writer)
-            tex, long = self.writer.equation(lhs, acceleration)
-            if long or len(first) + len(tex) > SHORT_LATEX:
-                lines.append({"tex": first + tex, "long": True})
-            else:
-                lines.append(self.line(first + tex))
-        return self.flush_together(lines)
+            tex, long = self.writer.equation(lhs, acceleration, whole_terms=True)
+            accelerations.append({"tex": tex, "long": long})
+        return self.pack(rates, per_row=4, width=40) + self.flush_together(accelerations)
 
     # notes: typeset sentences shown after a step's equations ----------------------
     def notes_for(self, step: Step) -> list[str]:
@@ -386,13 +563,12 @@ class _Model:
         constants = self.d.results.get("ansatz", {}).get("constants", [])
         if constants:
             notes.append("Integration constants: " + ", ".join(rf"\({self.sym(c)}\)" for c in constants) + ".")
-        for constant, how in p.get("rescalings", {}).items():
-            coordinate, _, rest = how.partition(":")
-            if rest and re.fullmatch(r"[A-Za-z][A-Za-z0-9_]*", coordinate.strip()):
-                notes.append(rf"\({self.sym(constant)}\) is removed by rescaling \({self.sym(coordinate.strip())}\): "
-                             + breakable_text(rest.strip()) + ".")
-            else:
-                notes.append(rf"\({self.sym(constant)}\): " + breakable_text(how) + ".")
+        for constant, rescaling in p.get("rescalings", {}).items():
+            x = self.sym(rescaling["coordinate"])
+            factor = self.writer.inline(rescaling["factor"])
+            notes.append(rf"\({self.sym(constant)}\) is removed by rescaling \({x}\): "
+                         rf"\({x} \to {x} / \sqrt{{|{factor}|}}\) sets it to \(+1\) or \(-1\), the sign being fixed by "
+                         rf"the signature (a local change of coordinates: if \({x}\) is periodic, its period changes).")
         unsolved = self.d.results.get("ansatz", {}).get("unsolved")
         if unsolved:
             notes.append("Not every unknown is solved: " + breakable_text(unsolved) + ".")
@@ -445,6 +621,9 @@ class _Model:
                     r"where every \(N_{(x)} > 0\).")
         if fields(step) in ANNOTATIONS and not (fields(step) == ("summary", "stress_energy", "") and not isinstance(r, dict)):
             return ANNOTATIONS[fields(step)]
+        chain = self.chain_annotation(step)
+        if chain:
+            return chain
         if step.kind == "field equations" and isinstance(r, dict):
             return (r"Einstein's field equations with the cosmological constant "
                     rf"\(\Lambda = {self.writer.inline(r['cosmological_constant'])}\), solved for the stress-energy "
@@ -474,6 +653,29 @@ class _Model:
                     r"accelerations \(du^a/d\tau = -\Gamma^a_{bc}\,u^b u^c\), summed over all \(b\) and \(c\), so "
                     r"that each cross term \(b \ne c\) appears twice.")
         return escape_text(step.annotation)
+
+    def chain_annotation(self, step: Step) -> str:
+        """The curvature chain's annotations, typeset; '' for a step that is not one of them."""
+        n = self.d.metric.dimension
+        if fields(step) == ("verdict", "conformally_flat", "") and n < 4:
+            return ("Conformally flat." if n != 2 else
+                    "Conformally flat: in two dimensions every metric is locally conformally flat.")
+        if fields(step) in CHAIN_ANNOTATIONS:
+            return CHAIN_ANNOTATIONS[fields(step)]
+        r = step.result
+        if fields(step) == ("summary", "christoffel", "") and isinstance(r, dict):
+            return (rf"Christoffel symbols of the second kind: {len(r)} of the {n * n * (n + 1) // 2} independent "
+                    r"components (\(b \le c\)) are non-zero; the rest vanish, and \(\Gamma^a_{cb} = \Gamma^a_{bc}\).")
+        if fields(step) == ("summary", "riemann", "") and isinstance(r, dict):
+            return (rf"Riemann tensor: {len(r)} of the {n ** 3 * (n - 1) // 2} components with \(c < d\) are "
+                    r"non-zero; the others vanish, and \(R^a{}_{bdc} = -R^a{}_{bcd}\).")
+        if step.kind == "identity" and step.quantity == "contracted_christoffel":
+            x = self.sym(step.component)
+            return (rf"Trace identity along \({x}\): the sum \(\Gamma^l{{}}_{{l{x}}}\) over \(l\), and "
+                    rf"\(\partial_{{{x}}} \ln\sqrt{{|g|}}\) from the determinant, agree.")
+        if fields(step) == ("verdict", "einstein_space", ""):
+            return rf"Einstein manifold: \(R_{{ij}} = \lambda g_{{ij}}\) with \(\lambda = R/{n}\)."
+        return ""
 
     @staticmethod
     def is_moved(step: Step) -> bool:
@@ -615,10 +817,34 @@ class _Model:
             out.append({"rewrite": escape_text(s.rewrite), "before": before, "before_terms": s.before_size})
         return out
 
+    def riemann_groups(self, step: Step) -> list[dict]:
+        """A Riemann component's terms grouped by the Christoffel symbols they come from, each with its
+        simplified value: the derivative terms, then each sum of products over the repeated index."""
+        out = []
+        w = self.writer
+        for group in step.params.get("groups", []):
+            sign = "-" if group["sign"] < 0 else ""
+            if group["kind"] == "derivative":
+                gamma = component_symbol("christoffel", group["christoffel"].split(","), w)
+                lhs = rf"{sign}\partial_{{{self.sym(group['by'])}}} {gamma}"
+            else:
+                products = [r"\,".join(component_symbol("christoffel", k.split(","), w) for k in pair)
+                            for pair in group["pairs"]]
+                lhs = sign + (products[0] if len(products) == 1 else r"\left(" + " + ".join(products) + r"\right)")
+            value = group["value"] if group["sign"] > 0 else -group["value"]
+            tex, long = w.equation(lhs, value)
+            out.append({"tex": tex, "long": long})
+        return out
+
     def verdict_statement(self, step: Step) -> str:
         if step.kind == "energy condition":
             return self.condition_statement(step.component)
-        return STATEMENTS.get(fields(step)) or escape_text(step.result.statement)
+        if fields(step) == ("verdict", "einstein_space", ""):
+            return rf"Einstein manifold: \(R_{{ij}} = \lambda g_{{ij}}\) with \(\lambda = R/{self.d.metric.dimension}\)"
+        if fields(step) == ("verdict", "conformally_flat", "") and self.d.metric.dimension < 4:
+            return "Conformally flat"
+        return (STATEMENTS.get(fields(step)) or CHAIN_STATEMENTS.get(fields(step))
+                or escape_text(step.result.statement))
 
     def verdict_evidence(self, step: Step) -> str:
         """A verdict's evidence as LaTeX text."""
@@ -635,26 +861,189 @@ class _Model:
                 rf"{component_symbol('pressure', [b], self.writer)}\)")
 
     def evidence_tex(self, step: Step) -> str:
-        """A verdict's evidence as LaTeX text, typeset from the step's fields where it has them."""
+        """A verdict's evidence as LaTeX text, typeset from the step's fields (the trace keeps the plain-text
+        sentence for the terminal)."""
         verdict, p = step.result, step.params
         if fields(step) == ("verdict", "perfect_fluid", "") and "residue" in p:
             residue = self.residue_tex(p["residue"])
             if verdict.holds is False:
                 return residue + " is not zero; a fluid moving relative to these observers is not tested"
-            return residue + ": " + breakable_text(p.get("zero_test", ""))
-        if fields(step) == ("verdict", "perfect_fluid", "") and verdict.holds and not p.get("vacuum"):
+            return residue + ": " + self.zero_test_tex(p.get("test", {}))
+        if fields(step) == ("verdict", "perfect_fluid", "") and verdict.holds and p.get("vacuum"):
+            return r"trivially: \(T_{ij}\) vanishes (vacuum), a perfect fluid with \(\rho = p = 0\)"
+        if fields(step) == ("verdict", "perfect_fluid", "") and verdict.holds:
             return f"each of the {p['checked']} conditions checked vanishes exactly"
         if fields(step) == ("verdict", "trace_free", "") and "trace" in p:
             if verdict.holds is False:
                 return rf"the trace \(T^i{{}}_i = {self.value_tex(p['trace'])}\) is not zero"
             if verdict.holds:
-                return rf"the trace \(T^i{{}}_i\) vanishes ({breakable_text(p.get('zero_test', ''))})"
+                return rf"the trace \(T^i{{}}_i\) vanishes ({self.zero_test_tex(p.get('test', {}))})"
             return (rf"the trace \(T^i{{}}_i = {self.value_tex(p['trace'])}\) is not proven zero: "
-                    + breakable_text(p.get("zero_test", "")))
-        if fields(step) == ("check", "", "frame") and p.get("residues") == "unnormalised frame":
-            return (r"\(g(w_{(a)}, w_{(b)}) - \eta_{(a)(b)} N_{(a)}\) for the unnormalised vectors: "
-                    + self.check_outcome_tex(verdict.holds, p["count"]))
+                    + self.zero_test_tex(p.get("test", {})))
+        if step.kind == "verdict" and "checked" in p and step.stage == "curvature":
+            return self.curvature_verdict_tex(step)
+        if step.kind == "check" and ("count" in p or "checked" in p):
+            return self.check_evidence_tex(step)
+        if step.kind == "numeric check":
+            return self.numeric_evidence_tex(step)
         return breakable_text(verdict.evidence)
+
+    # evidence typeset from the step's data --------------------------------------
+    @staticmethod
+    def scientific_tex(value: float) -> str:
+        """A float in LaTeX to three digits (7.91e-32 as 7.91 times 10 to the -32)."""
+        mantissa, _, exponent = f"{value:.3g}".partition("e")
+        if not exponent:
+            return mantissa
+        return rf"{mantissa} \times 10^{{{int(exponent)}}}"
+
+    def zero_test_tex(self, test: dict) -> str:
+        """How a zero test decided, in words (see algebra.ZeroTest.as_data)."""
+        how = test.get("how", "")
+        if how == "canonical form":
+            return ("its canonical rational form is 0" if test.get("vanishes")
+                    else "its canonical rational form has a non-zero numerator")
+        if how == "cancel":
+            return "sympy's cancel reduces it to 0"
+        if how == "simplify":
+            return "sympy's simplify reduces it to 0"
+        if how == "sampled":
+            return (f"it vanishes at {test['points']} random points to {test['digits']} digits, but is not proven "
+                    "zero symbolically")
+        if how == "no point":
+            return "sympy's simplify does not reduce it to 0, and no sample point could be evaluated"
+        if how == "point":
+            return rf"it is non-zero at a random point (\(|\text{{value}}| \approx {self.scientific_tex(test['magnitude'])}\))"
+        return "undecided"
+
+    def verdict_residue_tex(self, kind: str, component: str) -> str:
+        """The residue a curvature verdict tests (R_tt - lambda g_tt, say), as inline math."""
+        names = component.split(",") if component else []
+        w = self.writer
+        if kind == "ricci":
+            return component_symbol("ricci", names, w)
+        if kind == "einstein_space":
+            return rf"{component_symbol('ricci', names, w)} - \lambda\, {component_symbol('metric', names, w)}"
+        if kind == "constant_curvature":
+            a, b, c, d = names
+            g = lambda i, j: component_symbol("metric", [i, j], w)  # noqa: E731
+            return (rf"{component_symbol('riemann_lowered', names, w)} - k\,"
+                    rf"({g(a, c)} {g(b, d)} - {g(a, d)} {g(b, c)})")
+        if kind == "derivative_of_k":
+            return rf"\partial_{{{w.symbol(component)}}} k"
+        if kind == "weyl":
+            return component_symbol("weyl", names, w)
+        if kind == "divergence":
+            return rf"\nabla^a G_{{a{w.symbol(component)}}}"
+        return ""
+
+    def curvature_verdict_tex(self, step: Step) -> str:
+        """Evidence of a curvature verdict (Ricci-flat, Einstein, constant curvature, conformally flat, Bianchi)."""
+        verdict, p = step.result, step.params
+        constants = []
+        if "lambda" in p:
+            constants.append(rf"\(\lambda = R/{self.d.metric.dimension} = {self.value_tex(p['lambda'])}\)")
+        if "k" in p:
+            constants.append(rf"\(k = {self.value_tex(p['k'])}\)")
+        if verdict.holds is False and "residue" in p:
+            r = p["residue"]
+            residue = self.verdict_residue_tex(r["kind"], r["component"])
+            value = self.value_tex(r["value"])
+            text = rf"\({residue}\) is not zero: it equals \({value}\)"
+            if r.get("test", {}).get("how") == "point":
+                text += " (" + self.zero_test_tex(r["test"]) + ")"
+            return text
+        if verdict.holds is None and p.get("undecided"):
+            shown = p["undecided"][0]
+            more = len(p["undecided"]) - 1
+            return (rf"not proven symbolically: for \({self.verdict_residue_tex(shown['kind'], shown['component'])}\), "
+                    + self.zero_test_tex(shown["test"])
+                    + (f"; {more} more residue{'s' if more > 1 else ''} likewise" if more else ""))
+        how = "its canonical rational form is 0" if p.get("test") == "canonical form" else "sympy reduces it to 0"
+        text = f"each of the {p['checked']} components checked vanishes ({how})"
+        if constants:
+            text += "; " + ", ".join(constants)
+        if step.quantity == "einstein_space" and self.d.metric.dimension == 2:
+            text += (r"; in two dimensions every metric satisfies \(R_{ij} = \tfrac12 R\, g_{ij}\)"
+                     + {False: r", and here \(\lambda\) is not constant: this is that identity, not an Einstein "
+                               r"space with a constant \(\lambda\) (the surface does not have constant curvature)",
+                        True: r", and here \(\lambda\) is constant: a surface of constant curvature",
+                        None: ""}[p.get("lambda_constant")])
+        return text
+
+    def check_evidence_tex(self, step: Step) -> str:
+        """Evidence of an identity check: what its residues are and how they were tested."""
+        verdict, p = step.result, step.params
+        what = CHECK_RESIDUES.get(fields(step), "the residues")
+        count = p.get("count", p.get("checked", 0))
+        test = p.get("test", {})
+        if verdict.holds is False:
+            if fields(step) == ("check", "ansatz_solution", "") and "residue" in p:
+                r = p["residue"]
+                return (rf"\({self.E(r['component'])} = {self.value_tex(r['value'])}\) with the solution put in, "
+                        "which is not zero")
+            return f"{what}: one is not zero ({self.zero_test_tex(test)})"
+        if verdict.holds is None:
+            undecided = p.get("undecided", 0)
+            undecided = len(undecided) if isinstance(undecided, list) else undecided
+            text = f"{what}: {undecided} of {count} not proven symbolically"
+            if isinstance(test, dict) and test:
+                text += f" ({self.zero_test_tex(test)})"
+            elif p.get("undecided") and isinstance(p["undecided"], list):
+                text += f" ({self.zero_test_tex(p['undecided'][0]['test'])})"
+            return text + self.free_unknowns_tex(p)
+        return f"{what}: {self.check_outcome_tex(True, count)}" + self.free_unknowns_tex(p)
+
+    def free_unknowns_tex(self, p: dict) -> str:
+        free = p.get("free_unknowns", [])
+        if not free:
+            return ""
+        return "; the unknowns " + ", ".join(rf"\({self.function_tex(f)}\)" for f in free) + " remain free"
+
+    def numeric_evidence_tex(self, step: Step) -> str:
+        """The numeric cross-check's evidence: largest deviations per quantity, points, digits, tolerance."""
+        p = step.params
+        points = len(p.get("points", []))
+        if not points:
+            return "no random point of the domain could be evaluated, so nothing was compared"
+        names = {"christoffel": r"Christoffel symbols", "riemann": "Riemann tensor", "ricci": "Ricci tensor",
+                 "scalar": "scalar curvature"}
+        deviations = ", ".join(rf"{names.get(q, escape_text(q))} \({self.scientific_tex(float(v))}\)"
+                               for q, v in p.get("deviations", {}).items())
+        return (f"largest relative deviations at {points} random points, computed to {p['digits']} digits: "
+                + deviations + rf" (tolerance \({self.scientific_tex(float(p['tolerance']))}\))")
+
+    def method_tex(self, step: Step) -> str:
+        """How the determinant or the inverse was computed, from the step's blocks."""
+        blocks = step.params.get("blocks")
+        if not blocks:
+            return escape_text(step.params.get("method", ""))
+        if all(len(b) == 1 for b in blocks):
+            return ("diagonal: the product of the diagonal components" if step.kind == "determinant"
+                    else r"diagonal: \(g^{ii} = 1/g_{ii}\)")
+        if len(blocks) > 1:
+            shown = "; ".join(r"\((" + ", ".join(self.sym(x) for x in b) + r")\)" for b in blocks)
+            return (f"block diagonal: the product of the determinants of the blocks {shown}"
+                    if step.kind == "determinant" else
+                    f"block diagonal (blocks {shown}): each block inverted as its adjugate over its determinant")
+        return ("general: expansion by minors" if step.kind == "determinant"
+                else "general: the adjugate over the determinant")
+
+    def step_name(self, step: Step) -> str:
+        """A short typeset name of a step for lists of links (its id stays in the trace)."""
+        if step.kind == "component" and step.quantity in QUANTITIES:
+            return rf"\({component_symbol(step.quantity, step.component.split(','), self.writer)}\)"
+        if step.kind == "verdict" and step.quantity in VERDICTS:
+            return escape_text(VERDICTS[step.quantity].label)
+        if step.kind == "check":
+            return "check " + (CHAIN_STATEMENTS.get(fields(step)) or STATEMENTS.get(fields(step)) or "")
+        if step.kind == "identity" and step.quantity == "contracted_christoffel":
+            return rf"trace identity along \({self.sym(step.component)}\)"
+        if step.kind == "claim":
+            return f"claim {step.params.get('number', '')}"
+        if step.quantity in QUANTITIES:
+            return escape_text(QUANTITIES[step.quantity].words)
+        return escape_text(str(step.kind))
 
     def check_outcome_tex(self, holds: bool | None, count: int) -> str:
         how = "have canonical rational form 0" if self.d.arithmetic == "field" else "reduce to 0 with sympy"
@@ -676,7 +1065,7 @@ class _Model:
         return {
             "number": self.number[step.id],
             "anchor": self.anchor(step.id),
-            "id": _id_text(step.id),
+            "name": self.step_name(step),
             "kind": "frame missing" if step.kind == "frame" and isinstance(step.result, Verdict) else step.kind,
             "annotation": self.annotation(step),
             "formula": step.formula,
@@ -687,9 +1076,10 @@ class _Model:
             "table": table,
             "region": self.region_tex(region) if region and table else "",
             "simplifications": self.simplifications_for(step) if step.kind != "summary" else [],
+            "groups": self.riemann_groups(step),
             "uses": [self.link(u) for u in step.uses],
             "verdict": verdict,
-            "params": {k: escape_text(str(v)) for k, v in step.params.items()
+            "params": {k: (self.method_tex(step) if k == "method" else escape_text(v)) for k, v in step.params.items()
                        if k in ("method", "convention") and isinstance(v, str)},
         }
 
@@ -748,10 +1138,10 @@ class _Model:
                      r"solved one unknown at a time, and the solution is put back into every component.")]
         if key == "geodesics":
             example = self.d.metric.names[min(1, len(self.d.metric.names) - 1)]
-            return [(rf"The velocity components are written \({self.velocity_tex(example)}\) "
-                     rf"for \(d{self.sym(example)}/d\tau\) and so on (the subscript names the coordinate; these are "
-                     r"the contravariant components \(u^a\)), the names a claims file uses for them. \(\tau\) is the "
-                     r"proper time along a timelike geodesic, an affine parameter along a null one.")]
+            return [(rf"The velocity components are the contravariant components \(u^a = dx^a/d\tau\), written "
+                     rf"\({self.velocity_tex(example)} = d{self.sym(example)}/d\tau\) and so on, with the coordinate as an "
+                     r"upper index. \(\tau\) is the proper time along a timelike geodesic, an affine parameter along "
+                     r"a null one.")]
         return []
 
     # the whole report ---------------------------------------------------------------
@@ -771,6 +1161,7 @@ class _Model:
             "functions": [{"tex": w.symbol(f.func.__name__),
                            "arguments": ", ".join(w.symbol(a.name) for a in f.args)} for f in m.functions],
             "function_signs": [self.function_sign_tex(sign) for sign in m.function_signs],
+            "derivatives": self.derivative_sentence(),
             "abbreviations": [{"tex": w.definition(name, value)} for name, value in m.abbreviations],
             "line_element": breakable_text(m.line_element) if m.line_element else "",
             "components": [{"tex": tex, "long": long}
@@ -827,7 +1218,8 @@ class _Model:
             check = self.d.step("ansatz/check").result
             verdicts.append({"label": "The ansatz solution satisfies every field equation",
                              "word": _verdict_word(check.holds), "holds": check.holds,
-                             "evidence": breakable_text(check.evidence), "link": self.link("ansatz/check")})
+                             "evidence": self.evidence_tex(self.d.step("ansatz/check")),
+                             "link": self.link("ansatz/check")})
         elif self.has("ansatz/solution") and isinstance(self.d.step("ansatz/solution").result, Verdict):
             unsolved = self.d.step("ansatz/solution").result
             verdicts.append({"label": "The ansatz equations are solved", "word": _verdict_word(unsolved.holds),
@@ -846,9 +1238,11 @@ class _Model:
         if numeric:
             numeric_line = {
                 "word": {True: "passed", False: "FAILED", None: "not done"}[numeric["passed"]],
-                "deviations": ", ".join(f"{escape_text(q)} {escape_text(f'{v:.3g}')}" for q, v in numeric["deviations"].items()),
+                "deviations": ", ".join(rf"{escape_text(q)} \({self.scientific_tex(float(v))}\)"
+                                        for q, v in numeric["deviations"].items()),
                 "points": len(numeric["points"]), "digits": numeric["digits"],
-                "tolerance": escape_text(f"{numeric['tolerance']:.3g}"), "link": self.link("numeric_verification")}
+                "tolerance": rf"\({self.scientific_tex(float(numeric['tolerance']))}\)",
+                "link": self.link("numeric_verification")}
         matter_intro = ("The matter the metric requires, a perfect fluid at rest in the frame:" if fluid else
                         "The matter the metric requires, as measured in the orthonormal frame:")
         if not fluid and not r.get("frame_diagonal", True):
@@ -878,14 +1272,39 @@ class _Model:
             return ""
         return component_symbol(quantity, names, w, positions)
 
-    def slip_tex(self, slip: dict) -> str:
-        """The diagnosis typeset from the slip's data (the audit's words are the plain-text version)."""
+    def claim_words(self, quantity: str, component: str, positions: str = "") -> str:
+        """What a claim is about in words, from the registry: its quantity, and the index positions of a
+        tensor's member that the registry's words would name by a symbol (T^i_j); with the component's
+        coordinates typeset when the claim has no symbol."""
+        q = QUANTITIES[quantity]
+        if quantity == "pressure":
+            words = "pressure"
+        elif positions or (q.tensor and q.name != q.tensor and q.tensor != "metric"):
+            words = f"{QUANTITIES[q.tensor or quantity].words} with {position_words(positions or q.positions)}"
+        else:
+            words = q.words
+        words = escape_text(words)
+        if component and not self.claim_symbol(quantity, component, positions):
+            words += " for " + ", ".join(rf"\({self.sym(n)}\)" for n in component.split(","))
+        return words
+
+    def slip_tex(self, slip: dict, symbol: str = "") -> str:
+        """The diagnosis typeset from the slip's data (the audit's words are the plain-text version): one
+        method per kind of slip, ``slip_<kind>``; ``symbol`` is the claim's typeset symbol ('' for none)."""
+        kinds = ("index_position", "metric_factor", "correct_is_zero", "claim_is_zero", "none", "sign_flip", "factor",
+                 "kappa_missing", "einstein_only", "lambda_missing", "kappa_twice", "cross_terms_once",
+                 "swapped_indices", "other_direction", "density_for_pressure")
+        kind = slip.get("kind")
+        return getattr(self, f"slip_{kind}")(slip, symbol or "X") if kind in kinds else ""
+
+    def slip_metric_factor(self, slip: dict, symbol: str) -> str:
+        table, key = slip["factor"]
+        g = component_symbol(table, key.split(","), self.writer)
+        words = "inverse-metric" if table == "inverse_metric" else "metric"
+        return rf"off by a factor of the {words} component \({g}\): the claim is \({g}\) times the correct value"
+
+    def slip_index_position(self, slip: dict, symbol: str) -> str:
         w = self.writer
-        if slip.get("kind") == "metric_factor":
-            table, key = slip["factor"]
-            g = component_symbol(table, key.split(","), w)
-            words = "inverse-metric" if table == "inverse_metric" else "metric"
-            return rf"off by a factor of the {words} component \({g}\): the claim is \({g}\) times the correct value"
         tensor, component = slip["tensor"], slip["component"]
         names = component.split(",")
         other = component_symbol(tensor, names, w, slip["positions"])
@@ -900,14 +1319,263 @@ class _Model:
         lhs = component_symbol(tensor, names, w, slip["claimed"])
         return text + rf"; \({lhs} = {' + '.join(shown) or '0'}\)"
 
+    def slip_correct_is_zero(self, slip: dict, symbol: str) -> str:
+        return r"the correct value is \(0\): this component vanishes"
+
+    def slip_claim_is_zero(self, slip: dict, symbol: str) -> str:
+        return r"the claim says \(0\), but this component does not vanish"
+
+    def slip_none(self, slip: dict, symbol: str) -> str:
+        return "no typical slip explains the difference"
+
+    def slip_sign_flip(self, slip: dict, symbol: str) -> str:
+        return "a sign flip: the claim is minus the correct value" + self.sign_hint_tex(slip.get("hint", ""))
+
+    def sign_hint_tex(self, hint: str) -> str:
+        """What would explain a sign flip, by the hint the audit recorded ('' for none)."""
+        curvature = "; an opposite sign convention for the Riemann or Ricci tensor would explain it"
+        time = self.d.results.get("frame", {}).get("time") or self.d.metric.names[0]
+        t = "{" + self.sym(time) + "}"
+        return {
+            "riemann_formula": (r"; an overall sign convention for the Riemann tensor opposite to this derivation's "
+                                r"(\(R^a{}_{bcd} = \partial_c \Gamma^a_{db} - \dots\)) would explain it"),
+            "riemann_sign": "; an overall sign convention for the Riemann tensor opposite to this derivation's "
+                            "would explain it",
+            "ricci_contraction": (r"; contracting the Riemann tensor on its last index (\(R_{bd} = R^a{}_{bda}\)) "
+                                  r"instead of the third, or the opposite Riemann sign, would explain it"),
+            "curvature_sign": curvature,
+            "curvature_sign_or_signature": (curvature + r", and so would a metric of the opposite signature "
+                                                        r"(which flips \(T^i{}_j\) but not \(T_{ij}\))"),
+            "density_from_mixed": (rf"; reading \(\rho\) off the mixed component \(T^{t}{{}}_{t}\), which is "
+                                   rf"\(-\rho\) for observers at rest, would explain it"),
+            "tension": (r"; a tension (\(\tau = -p\), as for the radial stress of a wormhole throat) written as a "
+                        r"pressure would explain it"),
+            "geodesic_minus": r"; the minus sign of \(du^a/d\tau = -\Gamma^a_{bc}\,u^b u^c\) was lost",
+        }.get(hint, "")
+
+    def slip_factor(self, slip: dict, symbol: str) -> str:
+        ratio = slip["ratio"]
+        if ratio == 2:
+            return r"an extra factor of \(2\): the claim is twice the correct value"
+        if ratio == sympy.Rational(1, 2):
+            return (r"a missing factor of \(2\): the claim is half the correct value (a lost \(\tfrac12\) is a "
+                    r"common cause)")
+        shown = self.writer.inline(ratio)
+        if ratio in (-2, sympy.Rational(-1, 2)):
+            return rf"a sign flip and a factor of \(2\): the claim is \({shown}\) times the correct value"
+        return rf"off by a constant factor: the claim is \({shown}\) times the correct value"
+
+    # the matter slips: the field equations G + Lambda g = kappa T used wrongly
+    def kappa_tex(self, slip: dict) -> tuple[str, str]:
+        """kappa as it is written in a matter slip (8 pi, or kappa), and what to add when it is kappa."""
+        kappa = slip["kappa"]
+        if kappa == 8 * sympy.pi:
+            return r"8\pi", ""
+        return r"\kappa", rf", with \(\kappa = {self.writer.inline(kappa)}\)"
+
+    @staticmethod
+    def inverse_tex(k: str) -> str:
+        """1/(8 pi) or 1/kappa."""
+        return r"1/\kappa" if k == r"\kappa" else f"1/({k})"
+
+    def einstein_tex(self, slip: dict, head: str = "G") -> str:
+        """The Einstein component of a matter slip (``head`` "g" or "eta": the metric in the same place)."""
+        positions, names = slip["einstein"]["positions"], slip["einstein"]["component"].split(",")
+        if positions == "ff":
+            frame = "".join(frame_index(n, self.writer) for n in names)
+            return ("G" if head == "G" else r"\eta") + "_{" + frame + "}"
+        return component_symbol("einstein" if head == "G" else "metric", names, self.writer, positions)
+
+    def slip_kappa_missing(self, slip: dict, symbol: str) -> str:
+        k, where = self.kappa_tex(slip)
+        G = self.einstein_tex(slip)
+        if slip.get("lambda"):
+            sum_tex = rf"{G} + \Lambda\,{self.einstein_tex(slip, 'g')}"
+            return (rf"a missing \({self.inverse_tex(k)}\): the claim is \({k}\) times the correct value, that is \({sum_tex}\) "
+                    rf"instead of \({symbol} = \frac{{1}}{{{k}}}\left({sum_tex}\right)\){where}")
+        return (rf"a missing \({self.inverse_tex(k)}\): the claim is \({k}\) times the correct value, that is the Einstein tensor "
+                rf"component \({G}\) instead of \({symbol} = \frac{{1}}{{{k}}}\,{G}\){where}")
+
+    def slip_einstein_only(self, slip: dict, symbol: str) -> str:
+        k, where = self.kappa_tex(slip)
+        return (rf"the claim is the Einstein tensor component \({self.einstein_tex(slip)}\): both the factor "
+                rf"\({self.inverse_tex(k)}\) and the cosmological-constant term \(\Lambda\,{self.einstein_tex(slip, 'g')}\) are "
+                rf"missing{where}")
+
+    def slip_lambda_missing(self, slip: dict, symbol: str) -> str:
+        k, where = self.kappa_tex(slip)
+        G, g = self.einstein_tex(slip), self.einstein_tex(slip, "g")
+        return (rf"the cosmological-constant term is missing: the claim is \(\frac{{1}}{{{k}}}\,{G}\) instead of "
+                rf"\(\frac{{1}}{{{k}}}\left({G} + \Lambda\,{g}\right)\) (the field equations are "
+                rf"\(G_{{ij}} + \Lambda g_{{ij}} = \kappa T_{{ij}}\)){where}")
+
+    def slip_kappa_twice(self, slip: dict, symbol: str) -> str:
+        k, where = self.kappa_tex(slip)
+        return rf"divided by \({k}\) once too often: the claim is the correct value divided by \({k}\){where}"
+
+    def slip_cross_terms_once(self, slip: dict, symbol: str) -> str:
+        a = "{" + self.sym(slip["direction"]) + "}"
+        if slip.get("sign_lost"):
+            return (r"the cross terms with \(b \ne c\) are counted once and the overall minus sign is lost")
+        return (rf"the cross terms \(\Gamma^{a}_{{bc}}\,u^b u^c\) with \(b \ne c\) are counted once; summing "
+                rf"over all \(b\) and \(c\) counts each twice (\(\Gamma^{a}_{{bc}} = \Gamma^{a}_{{cb}}\))")
+
+    def slip_swapped_indices(self, slip: dict, symbol: str) -> str:
+        quantity, positions = slip["quantity"], slip.get("positions", "")
+        other = component_symbol(quantity, slip["other"].split(","), self.writer, positions)
+        this = component_symbol(quantity, slip["component"].split(","), self.writer, positions)
+        return rf"swapped indices: the claim equals the component \({other}\) rather than \({this}\)"
+
+    def slip_other_direction(self, slip: dict, symbol: str) -> str:
+        quantity = slip["quantity"]
+        other = component_symbol(quantity, [slip["direction"]], self.writer)
+        this = component_symbol(quantity, [slip["component"]], self.writer)
+        return (rf"the claim is the value for the direction \({self.sym(slip['direction'])}\), \({other}\), "
+                rf"not \({this}\)")
+
+    def slip_density_for_pressure(self, slip: dict, symbol: str) -> str:
+        pressure = component_symbol("pressure", [slip["component"]], self.writer)
+        return rf"the claim is the energy density \(\rho\), not the pressure \({pressure}\)"
+
+    def solution_slip_tex(self, p: dict, symbol: str) -> str:
+        """The diagnosis of an ansatz solution that differs: its slip, an earlier claim's constants it
+        contradicts, and whether it solves the recorded equation."""
+        solution = p["solution"]
+        parts = [self.slip_tex(p["slip"], symbol)] if p.get("slip") else []
+        if solution.get("contradicts"):
+            parts = ["it is the recorded solution only for constants that contradict an earlier claim"
+                     + self.fixed_tex(solution)]
+        if solution.get("solves") is False:
+            parts.append("it does not solve the equation it was solved from")
+        return "; ".join(part for part in parts if part)
+
+    # evidence: the zero test of the difference, typeset from its data
+    @staticmethod
+    def number_text(x: float) -> str:
+        """A float in LaTeX with three significant digits (1.2 \\times 10^{-5})."""
+        mantissa, _, exponent = f"{x:.3g}".partition("e")
+        return mantissa + (rf" \times 10^{{{int(exponent)}}}" if exponent else "")
+
+    def plain_test_tex(self, test: dict) -> str:
+        """The arithmetic's own zero test of a difference (algebra.ZeroTest.as_data) in words."""
+        how, holds = test.get("how"), test.get("vanishes")
+        if how == "canonical form":
+            return ("its canonical rational form is \\(0\\)" if holds
+                    else "its canonical rational form has a non-zero numerator")
+        if how == "cancel":
+            return r"over a common denominator its terms cancel to \(0\)"
+        if how == "simplify":
+            return r"sympy's simplification reduces it to \(0\)"
+        if how == "sampled":
+            return (rf"it vanishes at {test['points']} random points to {test['digits']} digits, but sympy's "
+                    r"simplification does not reduce it to \(0\): not proven symbolically")
+        if how == "no point":
+            return r"sympy's simplification does not reduce it to \(0\) and no sample point could be evaluated"
+        if how == "point":
+            return (rf"it is not zero at a random point, where its size is \({self.number_text(test['magnitude'])}\)"
+                    if test.get("magnitude") is not None else "it is not zero at a random point")
+        return ""
+
+    def rewrite_tex(self, key: str) -> tuple[str, str]:
+        """A rewrite of stepper's identity test (recorded by its key): what it does, and the identities it
+        uses."""
+        return {
+            "as written": ("functions of compound arguments read as independent",
+                           r"\(\sin^2 x + \cos^2 x = 1\), \(\cosh^2 x - \sinh^2 x = 1\)"),
+            "reciprocal functions": (r"\(\tan\), \(\cot\), \(\sec\), \(\csc\) and their hyperbolic counterparts "
+                                     r"through \(\sin\), \(\cos\), \(\sinh\) and \(\cosh\)",
+                                     r"\(\tan x = \sin x/\cos x\), \(\cot x = \cos x/\sin x\), "
+                                     r"\(\sec x = 1/\cos x\), \(\csc x = 1/\sin x\) and their hyperbolic counterparts"),
+            "common angles": ("the angles as integer multiples of a common angle, expanded (half and double angles)",
+                              r"\(\sin(a + b) = \sin a \cos b + \cos a \sin b\), "
+                              r"\(\cos(a + b) = \cos a \cos b - \sin a \sin b\)"),
+            "exponentials": (r"\(\sinh\), \(\cosh\) and \(\exp\) through powers of one exponential per base",
+                             r"\(\sinh x = (e^x - e^{-x})/2\), \(\cosh x = (e^x + e^{-x})/2\), "
+                             r"\(e^{a + b} = e^a e^b\)"),
+            "logarithms": ("logarithms of products and powers split where the declared signs make the factors "
+                           "positive",
+                           r"\(\log(ab) = \log a + \log b\) and \(\log a^k = k \log a\) for \(a, b > 0\)"),
+        }.get(key, (escape_text(key), escape_text(key)))
+
+    def identity_test_tex(self, found: dict) -> str:
+        """What stepper's identity rewrites found (identities.IdentityTest.as_data) in words."""
+        signs = [self.function_sign_tex(FunctionSign.from_data(s)) for s in found.get("function_signs", [])]
+        signs_tex = (" (free functions with their declared signs: " + ", ".join(rf"\({s}\)" for s in signs) + ")"
+                     if signs else "")
+        if found.get("vanishes"):
+            rewrites = found.get("rewrites", [])
+            if not rewrites:
+                return rf"its canonical form is \(0\) with {self.rewrite_tex('as written')[0]}{signs_tex}"
+            steps = ", then ".join(self.rewrite_tex(k)[0] for k in rewrites)
+            decisive = self.rewrite_tex(found.get("decisive") or rewrites[-1])[1]
+            return rf"its canonical form is \(0\) after rewriting {steps}{signs_tex}; decided by: {decisive}"
+        if found.get("stopped"):
+            return (f"stepper's identity rewrites stopped at a bound ({escape_text(found['stopped'])}) before "
+                    r"reducing it to \(0\)")
+        return ("stepper's identity rewrites (reciprocal functions, common angles, exponentials, logarithms) do "
+                rf"not reduce it to \(0\){signs_tex}")
+
+    def difference_test_tex(self, test: dict, found: dict) -> str:
+        """How the difference was found zero, non-zero or undecided, from the zero tests' data."""
+        if found.get("vanishes"):
+            return "the difference: " + self.identity_test_tex(found)
+        plain = self.plain_test_tex(test)
+        if found and test.get("vanishes") is None:
+            plain += "; " + self.identity_test_tex(found)
+        return "the difference: " + plain if plain else ""
+
+    def fixed_tex(self, solution: dict) -> str:
+        """The integration constants earlier claims fixed: ' (with C_1 as in claim 2, C_2 = 3 from claim 1)'."""
+        fixed = solution.get("fixed", [])
+        if not fixed:
+            return ""
+        shown = []
+        for name, value, number in fixed:
+            if value == sympy.Symbol(name, real=True) or str(value) == name:
+                shown.append(rf"\({self.sym(name)}\) as in claim {number}")
+            else:
+                shown.append(rf"\({self.sym(name)} = {self.writer.inline(value)}\) from claim {number}")
+        return " (with " + ", ".join(shown) + ")"
+
+    def solution_test_tex(self, p: dict) -> str:
+        """The evidence of an ansatz-solution claim, from its data."""
+        solution = p["solution"]
+        if solution["case"] == "recorded":
+            constants = p.get("constants", {})
+            shown = ", ".join(rf"\({self.sym(name)} = {self.writer.inline(value)}\)" for name, value in constants.items())
+            return ("the claim is the recorded general solution" + (f" with {shown}" if shown else "") + "; "
+                    + self.difference_test_tex(p.get("test", {}), p.get("zero_test", {})))
+        equation = solution.get("equation_test", {})
+        how = self.identity_test_tex(equation["identities"]) if equation.get("identities", {}).get("vanishes") \
+            else self.plain_test_tex(equation)
+        if solution["case"] == "other branch":
+            return ("the claimed function solves the equation it was solved from" + (f" ({how})" if how else "")
+                    + ", but it is not the recorded general solution for any values of its constants"
+                    + self.fixed_tex(solution) + ": another branch or a special solution")
+        return ("no values of the integration constants make the recorded general solution equal to the claim"
+                + self.fixed_tex(solution))
+
+    def claim_test_tex(self, p: dict, plain: str) -> str:
+        """A claim's evidence typeset from its data; ``plain`` (the audit's sentence, escaped) where the claim
+        has none: a claim the derivation holds no value for."""
+        if "problem" in p:
+            return "the claimed value could not be read: " + escape_text(p["problem"])
+        if "solution" in p:
+            return self.solution_test_tex(p)
+        if "test" in p:
+            return self.difference_test_tex(p["test"], p.get("zero_test", {})) or plain
+        return plain
+
     def audit(self) -> dict | None:
-        """Each claim with its verdict, the values involved and a link to the step it was checked against."""
+        """Each claim with its verdict, the values involved and a link to the step it was checked against.
+        Everything shown is typeset from the claim step's data: the claim's symbol and words, the slip, the
+        zero test; the claim's text, its syntax and its keys stay in the trace."""
         report = self.d.results.get("audit")
         if not report:
             return None
         w = self.writer
         rows = []
-        plain_evidence = {row["number"]: row["evidence"] for row in report["claims"]}
+        plain = {row["number"]: breakable_text(row["evidence"]) for row in report["claims"]}
         for step in self.d.steps:
             if step.kind != "claim":
                 continue
@@ -919,15 +1587,21 @@ class _Model:
                 line, long = w.equation("", p[key])
                 return {"tex": line[3:] if line.startswith(" = ") else line, "long": long}
             indices = p.get("indices", "")
+            symbol = self.claim_symbol(p["quantity"], p["component"], indices)
+            if "solution" in p and p["outcome"] == "differs":
+                diagnosis = self.solution_slip_tex(p, symbol)
+            else:
+                diagnosis = self.slip_tex(p["slip"], symbol) if p.get("slip") else ""
             rows.append({
                 "anchor": self.anchor(step.id), "number": p["number"], "label": escape_text(p["label"]),
+                # the claim as the trace names it (for tools and tests; the report shows symbol and words)
                 "what": escape_text(p["quantity"].replace("_", " ") + (f" {p['component']}" if p["component"] else "")
                                     + (f", indices {indices}" if indices else "")),
-                "symbol": self.claim_symbol(p["quantity"], p["component"], indices),
-                "syntax": escape_text(p["syntax"]), "text": breakable_text(p["text"]),
+                "words": self.claim_words(p["quantity"], p["component"], indices),
+                "symbol": symbol,
                 "outcome": escape_text(p["outcome"]), "agrees": p["outcome"] == "agrees",
-                "diagnosis": self.slip_tex(p["slip"]) if p.get("slip") else escape_text(p["diagnosis"]),
-                "evidence": breakable_text(plain_evidence[p["number"]]),
+                "diagnosis": diagnosis or (escape_text(p["diagnosis"]) if p["diagnosis"] else ""),
+                "evidence": self.claim_test_tex(p, plain[p["number"]]),
                 "claimed": tex("claimed"), "correct": tex("correct"), "difference": tex("difference"),
                 "checked": self.link(step.uses[0]), "earliest": p["earliest_wrong"]})
         moved = [self.step_entry(s) for s in self.d.steps if s.stage == "audit" and s.kind != "claim"]
@@ -938,7 +1612,7 @@ class _Model:
     def checks(self) -> list[dict]:
         out = []
         for step in self.d.steps:
-            if isinstance(step.result, Verdict):
+            if isinstance(step.result, Verdict) and step.kind != "claim":  # claims are listed in the audit section
                 word = _condition_word if step.kind == "energy condition" else _verdict_word
                 out.append({"link": self.link(step.id), "statement": self.verdict_statement(step),
                             "word": word(step.result.holds), "holds": step.result.holds,
@@ -951,7 +1625,7 @@ def report_model(derivation: Derivation) -> dict[str, Any]:
     model = _Model(derivation)
     steps = [s for s in derivation.steps if s.stage != "audit"]  # the audit's own steps go into its section
     entries = [model.step_entry(s) for s in steps]
-    return {
+    out = {
         "metric": model.metric_section(),
         "conventions": [{"name": k, "text": v} for k, v in derivation.conventions_latex.items()],
         "steps": entries,
@@ -960,3 +1634,11 @@ def report_model(derivation: Derivation) -> dict[str, Any]:
         "summary": model.summary(),
         "checks": model.checks(),
     }
+    # a symbol of the metric's that the report also uses for a quantity of its own: the report's quantity
+    # takes another symbol, and the conventions say so
+    used = [tex for tex in model.clashes if any(_own_use(tex).search(text) for text in _strings(out))]
+    renames = {own: new for own, _, new in OWN_SYMBOLS if own in used}
+    if renames:
+        out = _renamed(out, renames)
+        out["conventions"].insert(0, {"name": "Symbols", "text": model.renaming_sentence(used)})
+    return out

@@ -35,8 +35,8 @@ from sympy.core.function import AppliedUndef
 
 from .version import __version__
 from .errors import InputError
-from .record import (ASSUMPTION_WORDS, FUNCTION_SIGN_WORDS, STAGES, AnsatzRequest, Derivation, FunctionSign, MatterRequest,
-                     MetricRecord, OrbitRequest, Simplification, Step, StepKind, Verdict)
+from .record import (ASSUMPTION_WORDS, FUNCTION_SIGN_WORDS, PLOT_SHADES, STAGES, AnsatzRequest, Derivation, FunctionSign,
+                     MatterRequest, MetricRecord, OrbitRequest, PlotRequest, Simplification, Step, StepKind, Verdict)
 
 TRACE_FORMAT = "stepper trace"
 TRACE_FORMAT_VERSION = 2
@@ -182,6 +182,14 @@ class _Writer:
                             "span": self.expression(o.span)}
             for s, _ in o.values:
                 self.expression(s)
+        if m.plots:
+            out["plots"] = [{"quantities": list(p.quantities), "along": p.along.name,
+                             "range": [self.expression(p.low), self.expression(p.high)],
+                             "values": {s.name: self.expression(v) for s, v in p.values},
+                             "shade": p.shade or None} for p in m.plots]
+            for p in m.plots:
+                for s in (p.along, *(s for s, _ in p.values)):
+                    self.expression(s)
         return out
 
 
@@ -423,7 +431,7 @@ class _Reader:
                               for k, v in _mapping(data.get("assumptions", {}), "metric.assumptions").items()),
             function_signs=self.function_signs(data.get("function_signs", []), functions),
             matter=self.matter(requests.get("matter")), ansatz=self.ansatz(requests.get("ansatz")),
-            orbit=self.orbit(requests.get("orbit")))
+            orbit=self.orbit(requests.get("orbit")), plots=self.plots(requests.get("plots", [])))
 
     def function_signs(self, data, functions: list) -> tuple[FunctionSign, ...]:
         """The declared signs of free functions (absent from traces of metrics without them)."""
@@ -476,6 +484,26 @@ class _Reader:
         return OrbitRequest(time=self.symbol(data.get("time"), where), kind=_text(data.get("kind"), where),
                             values=pairs("values"), start=pairs("start"), velocity=pairs("velocity"),
                             span=self.expression(data.get("span"), where))
+
+
+    def plots(self, data) -> tuple[PlotRequest, ...]:
+        """The [[plot]] requests (absent from traces of metrics without them)."""
+        where = "metric.requests.plots"
+        out = []
+        for entry in _list(data, where):
+            entry = _mapping(entry, where)
+            bounds = _list(entry.get("range"), where)
+            shade = entry.get("shade") or ""
+            if len(bounds) != 2 or shade not in ("",) + PLOT_SHADES:
+                raise TraceFormatError(f"{where}: a range of two values and an energy condition (or null) to shade")
+            out.append(PlotRequest(
+                quantities=tuple(_text(q, where) for q in _list(entry.get("quantities"), where)),
+                along=self.symbol(entry.get("along"), where),
+                low=self.expression(bounds[0], where), high=self.expression(bounds[1], where),
+                values=tuple((self.symbol(k, where), self.expression(v, where))
+                             for k, v in _mapping(entry.get("values", {}), where).items()),
+                shade=shade))
+        return tuple(out)
 
 
 def _mapping(value, where: str) -> dict:

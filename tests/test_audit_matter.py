@@ -289,7 +289,7 @@ def test_audit_section_typesets_the_new_quantities():
     d = record_audit(d, title, verdicts, earliest)
     tex = ReportExporter().export(d)
     section = tex.split(r"\section{Audit:")[1].split(r"\section{Checks")[0]
-    for symbol in (r"\(\rho\)", r"\(p_{(\theta)}\)", r"\(T_{{t}{t}}\)", r"\(\frac{du_{\phi}}{d\tau}\)",
+    for symbol in (r"\(\rho\)", r"\(p_{(\theta)}\)", r"\(T_{{t}{t}}\)", r"\(\frac{du^{\phi}}{d\tau}\)",
                    r"\(T^{{r}}{}_{{r}}\)", r"\(R_{{(r)}{(r)}}\)"):
         assert symbol in section, symbol
     assert "missing 1/(8 pi)" in section

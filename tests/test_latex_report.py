@@ -220,8 +220,9 @@ def test_frame_density_and_orbit_are_typeset():
     assert r"\rho = 0" in matter
     geodesics = section_text(tex, "Geodesic equations")
     # The orbit of examples/compact_star_exterior.toml: r = 10, u_phi = 3/80, proper time up to 1000.
-    assert r"r = 10" in geodesics and r"u_{\phi} = \frac{3}{80}" in geodesics and "1000" in geodesics
-    assert r"\frac{du_{r}}{d\tau}" in geodesics
+    # dx^a/dtau is the contravariant velocity, written with an upper index (common practice).
+    assert r"r = 10" in geodesics and r"u^{\phi} = \frac{3}{80}" in geodesics and "1000" in geodesics
+    assert r"\frac{du^{r}}{d\tau}" in geodesics
 
 
 def test_ansatz_section_shows_reduced_equations_dependence_and_solutions():
@@ -232,7 +233,7 @@ def test_ansatz_section_shows_reduced_equations_dependence_and_solutions():
     assert "follows from" in body and "Independent equations" in body
     # Birkhoff's theorem (Carroll, sec. 5.2, from memory): the solution is Schwarzschild, here
     # B = r/(C1 + r) and A = C2 (1 + C1/r) with C1 = -2M.
-    assert r"B = \frac{r}{C_{1} + r}" in body
+    assert r"B = \frac{r}{r + C_{1}}" in body  # sums in descending powers of the coordinates
     summary = section_text(tex, "Summary of the results")
     assert "The solution of the ansatz" in summary and "satisfies every field equation" in summary
 

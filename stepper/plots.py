@@ -1,0 +1,450 @@
+"""Plots for the report and the notebook, made from the trace alone.
+
+What is drawn: the metric file's ``[[plot]]`` requests (:class:`~stepper.record.PlotRequest`), or, when it
+has none and asks for ``[matter]`` with a ``[matter.region]``, one default plot: the energy density and the
+principal pressures along the first coordinate (not the time) that the region gives a range for, every other
+symbol of the region at the midpoint of its range, shaded where the first of the null, weak, strong and
+dominant energy conditions that fails on that stretch fails.
+
+How: the recorded exact results (``Derivation.results``) get the exact values put in, then are evaluated
+with mpmath to ``DIGITS`` digits at ``INTERVALS + 1`` evenly spaced exact points of the range (a fixed grid,
+so the same trace gives the same numbers), and drawn with matplotlib's object interface (a
+``matplotlib.figure.Figure`` on a PDF canvas; no pyplot, no global backend) as a vector PDF whose metadata
+holds no date, so the same trace gives the same bytes.  Nothing here imports the engine; every caption is
+LaTeX made from the data.
+"""
+
+from __future__ import annotations
+
+import io
+import math
+from dataclasses import dataclass
+from typing import Any, Mapping
+
+import mpmath
+import sympy
+
+from .latex import ExpressionWriter, component_symbol
+from .quantities import QUANTITIES
+from .record import PLOT_SHADES, Derivation, PlotRequest, as_expression
+
+#: The grid: INTERVALS + 1 evenly spaced points from the low end to the high end, both included.
+INTERVALS = 200
+#: Digits each point is evaluated to (then rounded to a double for drawing).
+DIGITS = 30
+#: An inequality value fails at a point when it is below -SHADE_TOLERANCE times its largest size on the grid
+#: (so that a value that is exactly 0 somewhere, evaluated as -1e-31, does not count as failing).
+SHADE_TOLERANCE = 1e-12
+#: Points of each curve the notebook compares its own values with.
+NOTEBOOK_CHECK_EVERY = 25
+
+#: The inequalities of each energy condition, typeset (rho and p_(k) are the frame's).
+CONDITION_TEX = {
+    "null": r"\rho + p_{(k)} \ge 0",
+    "weak": r"\rho \ge 0,\ \rho + p_{(k)} \ge 0",
+    "strong": r"\rho + p_{(k)} \ge 0,\ (n-3)\rho + \sum_k p_{(k)} \ge 0",
+    "dominant": r"\rho \ge |p_{(k)}|",
+}
+
+#: Figure size in inches (fits the report's text width) and the matplotlib settings every figure is drawn
+#: with, over matplotlib's defaults (a user's matplotlibrc does not reach the figures).
+FIGURE_SIZE = (6.2, 3.5)
+STYLE = {
+    "font.family": "serif", "font.serif": ["cmr10"], "mathtext.fontset": "cm", "axes.formatter.use_mathtext": True,
+    "font.size": 10, "axes.titlesize": 10, "legend.fontsize": 9, "lines.linewidth": 1.4,
+    "pdf.fonttype": 3, "pdf.compression": 6, "axes.unicode_minus": True,
+}
+LINE_STYLES = ("-", "--", ":", "-.")
+#: Line widths, widest first, so that a curve drawn over an equal one leaves it visible.
+LINE_WIDTHS = (2.6, 1.7, 1.5, 1.2)
+SHADE_COLOUR = "#f3d3cf"
+#: A plot whose values are all positive and span more than this ratio is drawn on a logarithmic scale.
+LOG_RATIO = 100.0
+
+
+@dataclass(frozen=True)
+class Curve:
+    """One drawn curve: its LaTeX symbol (math mode), the recorded expression, that expression with the
+    plot's values put in, and its value at each point of the grid (NaN where it is not a finite real)."""
+
+    tex: str
+    recorded: sympy.Expr
+    concrete: sympy.Expr
+    values: tuple[float, ...]
+
+
+@dataclass(frozen=True)
+class Plot:
+    """One plot, ready to draw and to caption; ``problem`` says why it is not drawn ("" when it is)."""
+
+    number: int
+    quantities: tuple[str, ...]
+    along: sympy.Symbol
+    low: sympy.Expr
+    high: sympy.Expr
+    values: tuple[tuple[sympy.Symbol, sympy.Expr], ...]
+    default: bool = False
+    problem: str = ""
+    points: tuple[sympy.Expr, ...] = ()
+    x: tuple[float, ...] = ()
+    curves: tuple[Curve, ...] = ()
+    #: The energy condition shaded where it fails ("" for none), the inequality values it was read from
+    #: (values put in), and whether it fails at each point.
+    shade: str = ""
+    shade_values: tuple[sympy.Expr, ...] = ()
+    failing: tuple[bool, ...] = ()
+    #: The shaded condition's inequality values as recorded (before the values are put in).
+    shade_recorded: tuple[sympy.Expr, ...] = ()
+    #: A requested condition that could not be shaded, and why.
+    shade_problem: str = ""
+
+    @property
+    def file_name(self) -> str:
+        return f"plot-{self.number}-{'-'.join(self.quantities).replace('_', '-')}.pdf"
+
+    @property
+    def drawn(self) -> bool:
+        return not self.problem
+
+    @property
+    def logarithmic(self) -> bool:
+        """Whether the vertical scale is logarithmic: every value positive, spanning more than LOG_RATIO."""
+        finite = [v for c in self.curves for v in c.values if math.isfinite(v)]
+        return bool(finite) and min(finite) > 0 and max(finite) > LOG_RATIO * min(finite)
+
+
+def plots(derivation: Derivation) -> list[Plot]:
+    """Every plot of a derivation, requested or default, with its data (the last derivation's are kept, so
+    that the report, the PDF, the figure files and the notebook of one run compute them once)."""
+    if _last and _last[0] is derivation:
+        return list(_last[1])
+    made = [_with_data(derivation, number, request, default)
+            for number, (request, default) in enumerate(_requests(derivation), start=1)]
+    _last[:] = [derivation, tuple(made)]
+    return made
+
+
+_last: list = []
+
+
+def plot_files(derivation: Derivation) -> dict[str, bytes]:
+    """The PDF file of every plot that can be drawn, by file name."""
+    return {p.file_name: figure_pdf(p) for p in plots(derivation) if p.drawn}
+
+
+def _requests(derivation: Derivation) -> list[tuple[PlotRequest, bool]]:
+    metric = derivation.metric
+    if metric.plots:
+        return [(r, False) for r in metric.plots]
+    matter, results = metric.matter, derivation.results
+    if matter is None or not matter.region or metric.functions or "energy_density" not in results:
+        return []
+    if not results.get("frame_diagonal", True):
+        return []
+    if all(as_expression(v) == 0 for v in [results["energy_density"], *results.get("pressures", {}).values()]):
+        return []  # vacuum: nothing to see
+    ranges = {symbol: (low, high) for symbol, low, high in matter.region}
+    along = next((c for c in metric.coordinates if c != matter.time and c in ranges), None)
+    if along is None or not ranges[along][0] < ranges[along][1]:
+        return []
+    values = tuple((symbol, (low + high) / 2) for symbol, (low, high) in ranges.items() if symbol != along)
+    request = PlotRequest(quantities=("energy_density", "pressure"), along=along, low=ranges[along][0],
+                          high=ranges[along][1], values=values, shade="")
+    return [(request, True)]
+
+
+def _writer(derivation: Derivation) -> ExpressionWriter:
+    return ExpressionWriter((), derivation.metric.coordinates)
+
+
+def _with_data(derivation: Derivation, number: int, request: PlotRequest, default: bool) -> Plot:
+    plot = Plot(number=number, quantities=tuple(request.quantities), along=request.along, low=request.low,
+                high=request.high, values=tuple(request.values), default=default)
+    results = derivation.results
+    writer = _writer(derivation)
+    recorded: list[tuple[str, sympy.Expr]] = []
+    for quantity in request.quantities:
+        entry = QUANTITIES.get(quantity)
+        if entry is None or (entry.rank != 0 and quantity != "pressure"):
+            return _refused(plot, f"stepper cannot plot {quantity}")
+        if entry.requires == "matter" and not results.get("frame_diagonal", True):
+            return _refused(plot, "the stress-energy tensor is not diagonal in the frame, so the energy density and "
+                                  "principal pressures are not read off")
+        if entry.key not in results:
+            return _refused(plot, f"the derivation holds no {entry.words}" +
+                            (" (the invariants were skipped)" if entry.requires == "invariants" else ""))
+        if quantity == "pressure":
+            recorded += [(component_symbol("pressure", [k], writer), v) for k, v in results[entry.key].items()]
+        else:
+            recorded.append((component_symbol(quantity, [], writer), results[entry.key]))
+    substitutions = dict(request.values)
+    points = grid(request.low, request.high)
+    curves = []
+    for tex, expression in recorded:
+        concrete = as_expression(expression).subs(substitutions)
+        loose = sorted(s.name for s in concrete.free_symbols if s != request.along)
+        if loose or concrete.atoms(sympy.core.function.AppliedUndef):
+            what = ", ".join(loose) or "a free function"
+            return _refused(plot, f"its value still depends on {what}, which the plot gives no value")
+        curves.append(Curve(tex, expression, concrete, tuple(evaluate(concrete, request.along, p) for p in points)))
+    plot = _replace(plot, points=tuple(points), x=tuple(float(sympy.N(p, DIGITS)) for p in points),
+                    curves=tuple(curves))
+    return _shaded(derivation, plot, request.shade if not default else "auto")
+
+
+def _refused(plot: Plot, reason: str) -> Plot:
+    return _replace(plot, problem=reason)
+
+
+def _replace(plot: Plot, **changes) -> Plot:
+    import dataclasses
+    return dataclasses.replace(plot, **changes)
+
+
+def _shaded(derivation: Derivation, plot: Plot, shade: str) -> Plot:
+    """The plot with the stretch where an energy condition fails: the requested one, or for "auto" the first
+    of PLOT_SHADES that fails somewhere on the grid (none when none does)."""
+    if not shade:
+        return plot
+    table = derivation.results.get("energy_conditions", {})
+    candidates = PLOT_SHADES if shade == "auto" else (shade,)
+    for name in candidates:
+        rows = table.get(name, {}).get("inequalities", {})
+        if not rows:
+            if shade != "auto":
+                return _replace(plot, shade_problem=f"the {name} energy condition was not read off as inequalities "
+                                                    "(see its step)")
+            continue
+        substitutions = dict(plot.values)
+        concrete = [as_expression(row["value"]).subs(substitutions) for row in rows.values()]
+        if any(s != plot.along for e in concrete for s in e.free_symbols):
+            if shade != "auto":
+                return _replace(plot, shade_problem=f"the inequalities of the {name} energy condition depend on "
+                                                    "symbols the plot gives no value")
+            continue
+        failing = failing_points(concrete, plot.along, plot.points)
+        if shade == "auto" and not any(failing):
+            continue
+        return _replace(plot, shade=name, shade_values=tuple(concrete), failing=tuple(failing),
+                        shade_recorded=tuple(as_expression(row["value"]) for row in rows.values()))
+    return plot
+
+
+def failing_points(values: list[sympy.Expr], along: sympy.Symbol, points) -> list[bool]:
+    """At each point, whether one of ``values`` (an energy condition's inequalities, value >= 0) is negative
+    beyond SHADE_TOLERANCE times its largest size on the grid."""
+    failing = [False] * len(points)
+    for value in values:
+        numbers = [evaluate(value, along, p) for p in points]
+        scale = max((abs(v) for v in numbers if math.isfinite(v)), default=0.0)
+        for k, v in enumerate(numbers):
+            if math.isfinite(v) and v < -SHADE_TOLERANCE * scale:
+                failing[k] = True
+    return failing
+
+
+def grid(low: sympy.Expr, high: sympy.Expr) -> list[sympy.Expr]:
+    """INTERVALS + 1 exact, evenly spaced points from ``low`` to ``high``."""
+    return [low + (high - low) * sympy.Rational(k, INTERVALS) for k in range(INTERVALS + 1)]
+
+
+# --------------------------------------------------------------------------
+# Evaluation: the exact expression at an exact point, to DIGITS digits
+# --------------------------------------------------------------------------
+
+_FUNCTIONS = {
+    sympy.sin: mpmath.sin, sympy.cos: mpmath.cos, sympy.tan: mpmath.tan, sympy.cot: mpmath.cot,
+    sympy.sec: mpmath.sec, sympy.csc: mpmath.csc, sympy.sinh: mpmath.sinh, sympy.cosh: mpmath.cosh,
+    sympy.tanh: mpmath.tanh, sympy.coth: mpmath.coth, sympy.exp: mpmath.exp, sympy.log: mpmath.log,
+    sympy.Abs: abs,
+}
+
+
+def evaluate(expression: sympy.Expr, along: sympy.Symbol, point: sympy.Expr) -> float:
+    """``expression`` (a function of ``along`` alone) at ``point``, evaluated with mpmath to DIGITS digits and
+    rounded to a double; NaN where it is not a finite real number (a pole, a root of a negative number)."""
+    with mpmath.workdps(DIGITS + 10):
+        try:
+            value = _mp(expression, along, _mp(as_expression(point), along, None))
+        except (ZeroDivisionError, ValueError, OverflowError):
+            return math.nan
+        if isinstance(value, mpmath.mpc):
+            if abs(value.imag) > abs(value) * mpmath.mpf(10) ** -DIGITS:
+                return math.nan
+            value = value.real
+        if not mpmath.isfinite(value):
+            return math.nan
+        return float(value)
+
+
+def _mp(expr: sympy.Expr, along: sympy.Symbol, x):
+    if expr == along:
+        return x
+    if expr.is_Integer:
+        return mpmath.mpf(int(expr))
+    if expr.is_Rational:
+        return mpmath.mpf(int(expr.p)) / int(expr.q)
+    if expr is sympy.pi:
+        return +mpmath.pi
+    if expr is sympy.E:
+        return +mpmath.e
+    if expr is sympy.I:
+        return mpmath.mpc(0, 1)
+    if isinstance(expr, sympy.Add):
+        return mpmath.fsum(_mp(a, along, x) for a in expr.args)
+    if isinstance(expr, sympy.Mul):
+        out = mpmath.mpf(1)
+        for a in expr.args:
+            out *= _mp(a, along, x)
+        return out
+    if isinstance(expr, sympy.Pow):
+        base, exponent = _mp(expr.base, along, x), expr.exp
+        if exponent.is_Integer:
+            if base == 0 and exponent < 0:
+                raise ZeroDivisionError
+            return base ** int(exponent)
+        exponent = _mp(exponent, along, x)
+        if base == 0 and mpmath.re(exponent) < 0:
+            raise ZeroDivisionError
+        return mpmath.power(base if base >= 0 else mpmath.mpc(base), exponent) if not isinstance(base, mpmath.mpc) \
+            else mpmath.power(base, exponent)
+    if expr.func in _FUNCTIONS and len(expr.args) == 1:
+        return _FUNCTIONS[expr.func](_mp(expr.args[0], along, x))
+    if expr.is_number or (x is not None and expr.free_symbols <= {along}):  # anything else: sympy's own evaluation
+        exact_x = sympy.Float(mpmath.nstr(x, DIGITS + 10), DIGITS + 10) if x is not None else None
+        number = sympy.N(expr.subs(along, exact_x) if exact_x is not None else expr, DIGITS + 10)
+        if number.has(sympy.zoo, sympy.nan, sympy.oo, -sympy.oo):
+            raise ValueError("not finite")
+        real, imaginary = number.as_real_imag()
+        return mpmath.mpc(mpmath.mpf(str(real)), mpmath.mpf(str(imaginary))) if imaginary != 0 else mpmath.mpf(str(real))
+    raise ValueError(f"cannot evaluate {expr}")
+
+
+# --------------------------------------------------------------------------
+# Captions (LaTeX) and the drawing
+# --------------------------------------------------------------------------
+
+def _quantity_words(plot: Plot, writer: ExpressionWriter) -> str:
+    parts = []
+    for quantity in plot.quantities:
+        if quantity == "pressure":
+            symbols = [c.tex for c in plot.curves if c.tex.startswith("p")] if plot.curves else []
+            parts.append("the principal pressures" + (" " + ", ".join(rf"\({s}\)" for s in symbols) if symbols else ""))
+        else:
+            parts.append(f"the {QUANTITIES[quantity].words} \\({component_symbol(quantity, [], writer)}\\)")
+    return parts[0] if len(parts) == 1 else ", ".join(parts[:-1]) + " and " + parts[-1]
+
+
+def caption(derivation: Derivation, plot: Plot) -> str:
+    """The plot's caption in LaTeX: what is drawn, along what, the values put in, and what the shading
+    means; for a plot that cannot be drawn, why."""
+    writer = _writer(derivation)
+    what = _quantity_words(plot, writer)
+    what = what[0].upper() + what[1:]
+    along = writer.symbol(plot.along.name)
+    text = rf"{what} along \({along}\) from \({writer.inline(plot.low)}\) to \({writer.inline(plot.high)}\)"
+    if plot.values:
+        given = ", ".join(rf"\({writer.symbol(s.name)} = {writer.inline(v)}\)" for s, v in plot.values)
+        text += f", with {given}"
+        if plot.default:
+            text += " (the midpoints of the ranges the metric file's matter region gives)"
+    if not plot.drawn:
+        return text + f": not drawn, because {_escaped(plot.problem)}."
+    text += (f". Values at {len(plot.points)} evenly spaced points, each evaluated to {DIGITS} digits from the "
+             "recorded exact result" + (", on a logarithmic vertical scale" if plot.logarithmic else ""))
+    matter = derivation.metric.matter
+    if matter is not None and any(QUANTITIES[q].requires == "matter" for q in plot.quantities):
+        text += (r" (geometric units, \(G = c = 1\))" if matter.units == "geometric" else
+                 r" (physical units, with the values given for \(G\) and \(c\))")
+    text += "."
+    if plot.shade:
+        extent = sum(plot.failing)
+        where = ("nowhere on this range" if extent == 0 else "over the whole range" if extent == len(plot.failing)
+                 else "over the shaded part of the range")
+        text += (rf" Shaded: where the {plot.shade} energy condition (\({CONDITION_TEX[plot.shade]}\)) fails, that "
+                 rf"is where one of its recorded inequalities is negative at the plotted points: {where}.")
+    elif plot.default:
+        text += " None of the null, weak, strong and dominant energy conditions fails at the plotted points."
+    if plot.shade_problem:
+        text += f" Not shaded: {_escaped(plot.shade_problem)}."
+    return text
+
+
+def _escaped(text: str) -> str:
+    from .latex import escape_text
+    return escape_text(text)
+
+
+def report_plots(derivation: Derivation) -> list[dict[str, Any]]:
+    """What the report's plot section shows: per plot its number, file name, whether it is drawn and its
+    caption (LaTeX)."""
+    return [{"number": p.number, "file": p.file_name, "drawn": p.drawn, "caption": caption(derivation, p)}
+            for p in plots(derivation)]
+
+
+def figure_pdf(plot: Plot) -> bytes:
+    """The plot as a vector PDF (matplotlib's object interface), with no date in its metadata."""
+    import matplotlib
+    import matplotlib.style
+    from matplotlib.backends.backend_pdf import FigureCanvasPdf
+    from matplotlib.figure import Figure
+    from matplotlib.patches import Patch
+
+    with matplotlib.style.context("default"), matplotlib.rc_context(STYLE):
+        figure = Figure(figsize=FIGURE_SIZE)
+        FigureCanvasPdf(figure)
+        axes = figure.subplots()
+        for k, curve in enumerate(plot.curves):
+            axes.plot(plot.x, curve.values, LINE_STYLES[k % len(LINE_STYLES)], label=f"${curve.tex}$",
+                      linewidth=LINE_WIDTHS[min(k, len(LINE_WIDTHS) - 1)] if len(plot.curves) > 1 else 1.6,
+                      zorder=2 + k)
+        for start, end in runs(plot.failing, plot.x):
+            axes.axvspan(start, end, color=SHADE_COLOUR, linewidth=0, zorder=0)
+        if plot.logarithmic:
+            axes.set_yscale("log")
+        else:
+            axes.axhline(0.0, color="0.5", linewidth=0.6, zorder=1)
+        axes.set_xlim(plot.x[0], plot.x[-1])
+        axes.set_xlabel(f"${_along_tex(plot)}$")
+        if len(plot.curves) == 1:
+            axes.set_ylabel(f"{QUANTITIES[plot.quantities[0]].words} ${plot.curves[0].tex}$")
+        handles, labels = axes.get_legend_handles_labels()
+        if plot.shade and any(plot.failing):
+            handles.append(Patch(color=SHADE_COLOUR, linewidth=0))
+            labels.append(f"{plot.shade} energy condition fails")
+        if len(handles) > 1:
+            axes.legend(handles, labels, loc="best", frameon=True, facecolor="white", edgecolor="0.8",
+                        framealpha=1.0)
+        figure.tight_layout()
+        out = io.BytesIO()
+        figure.savefig(out, format="pdf", metadata={"Creator": None, "Producer": None, "CreationDate": None,
+                                                    "ModDate": None})
+    return out.getvalue()
+
+
+def _along_tex(plot: Plot) -> str:
+    return ExpressionWriter().symbol(plot.along.name)
+
+
+def runs(failing, x) -> list[tuple[float, float]]:
+    """The stretches of the x axis where ``failing`` holds: each run of failing points widened by half a grid
+    step on either side (within the range), so that a single failing point is visible."""
+    out = []
+    k, n = 0, len(failing)
+    while k < n:
+        if not failing[k]:
+            k += 1
+            continue
+        start = k
+        while k < n and failing[k]:
+            k += 1
+        left = x[start] - (x[start] - x[start - 1]) / 2 if start > 0 else x[0]
+        right = x[k - 1] + (x[k] - x[k - 1]) / 2 if k < n else x[-1]
+        out.append((left, right))
+    return out
+
+
+def notebook_samples(plot: Plot) -> dict[str, dict[int, float]]:
+    """The values the notebook compares its own with: every NOTEBOOK_CHECK_EVERY-th point of each curve."""
+    return {c.tex: {k: c.values[k] for k in range(0, len(c.values), NOTEBOOK_CHECK_EVERY)} for c in plot.curves}
+
