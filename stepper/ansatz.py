@@ -24,7 +24,7 @@ import sympy
 from sympy.core.function import AppliedUndef
 
 from .algebra import choose_arithmetic, printer_stable
-from .record import AnsatzRequest
+from .record import as_expression, AnsatzRequest
 from .record import Verdict
 
 FORMULAS = {
@@ -380,6 +380,28 @@ class _Ansatz:
                             "duplicates and those that follow by the Bianchi identity.",
                  formula=FORMULAS["check"], uses=("ansatz/solution", "ansatz/equations"), result=verdict,
                  params=params)
+        if holds is True and not failure:
+            self.record_properties(solved)
+
+    def record_properties(self, solved: dict) -> None:
+        """What the solved metric is: its scalar curvature and Kretschmann scalar (the chain's results with the
+        solution put in), and, since it satisfies G_ij + Lambda g_ij = 0, R_ij = 2 Lambda / (n - 2) g_ij: an
+        Einstein space, Ricci-flat when Lambda = 0."""
+        c, n = self.c, self.n
+        result = {}
+        for key in ("scalar", "kretschmann"):
+            if key in c.results:
+                value = as_expression(c.results[key]).subs(solved).doit()
+                result[key] = printer_stable(sympy.factor(sympy.cancel(sympy.together(value))))
+        result["einstein_constant"] = printer_stable(2 * self.lam / (n - 2))
+        c.results["ansatz"]["properties"] = result
+        kinds = "Ricci-flat (a vacuum solution)" if self.lam == 0 else "an Einstein space"
+        c.record(id="ansatz/properties", kind="ansatz", quantity="ansatz_solution", component="properties",
+                 annotation=f"The solved metric satisfies G_ij + Lambda g_ij = 0, so R_ij = 2 Lambda/(n - 2) g_ij: it is "
+                            f"{kinds}; its invariants are the chain's with the solution put in.",
+                 formula=r"R_{ij} = \frac{2\Lambda}{n-2}\, g_{ij}", uses=("ansatz/check", "scalar")
+                 + (("kretschmann",) if "kretschmann" in result else ()), result=result,
+                 params={"ricci_flat": self.lam == 0})
 
     def absorbable(self, matrix) -> dict:
         """Constants that only scale g_xx of a coordinate x the metric does not depend on, as

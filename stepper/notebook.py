@@ -84,7 +84,7 @@ _NOTEBOOK_NAMES = _runtime_names() | frozenset("""
     ansatz_constant ansatz_einstein ansatz_unknowns other_branches recorded_follows recorded_independent
     recorded_relations recorded_solution recorded_position integrate_orbit orbit_normalisation orbit_rates
     orbit_solution orbit_span orbit_start orbit_time orbit_time_rate orbit_tolerance orbit_values
-    check_plot plot_data
+    check_plot plot_data recorded_einstein_constant solved_ricci solved_scalar solved_kretschmann
 """.split())
 
 
@@ -397,6 +397,7 @@ class _Cells:
             ("ode solution", "", "*"): self.ansatz_solve,
             ("ansatz", "ansatz_solution", ""): self.ansatz_solution,
             ("check", "ansatz_solution", ""): self.ansatz_check,
+            ("ansatz", "ansatz_solution", "properties"): self.ansatz_properties,
             ("geodesic", "", ""): self.geodesic_equations,
             ("claim", "*", "*"): self.claim,
             # components an audit raised or lowered into the index position a claim names
@@ -1236,6 +1237,23 @@ residues = {{f"E_{{i}},{{j}}": ansatz_einstein[index_names.index(i), index_names
             + ansatz_constant * component(ansatz_metric, i, j) for i, j in index_pairs()}}
 verdict({self._id(step)}, recorded_holds, residues)"""
         return "ansatz_check", code
+
+    def ansatz_properties(self, step):
+        r = step.result
+        recorded = ", ".join(f'"{key}": {self.s.expr(r[key])}' for key in ("scalar", "kretschmann") if key in r)
+        code = f"""# From scratch: the solved metric's Ricci tensor, scalar curvature and Kretschmann scalar (its own
+# Christoffel symbols and Riemann tensor, nothing recorded for the ansatz metric).
+recorded = {{{recorded}}}
+recorded_einstein_constant = {self.s.expr(r["einstein_constant"])}
+solved_ricci, solved_scalar, solved_kretschmann = invariants_from_scratch(
+    sp.Matrix(dimension, dimension, lambda row, column: component(ansatz_metric, index_names[row], index_names[column])))
+if "scalar" in recorded:
+    check({self._id(step)}, recorded["scalar"], solved_scalar, "scalar curvature")
+if "kretschmann" in recorded:
+    check({self._id(step)}, recorded["kretschmann"], solved_kretschmann, "Kretschmann scalar")
+check_solved_ricci({self._id(step)}, recorded_einstein_constant, solved_ricci)
+{self._done(step)}"""
+        return "ansatz_properties", code
 
     # geodesics ---------------------------------------------------------------
     def geodesic_equations(self, step):

@@ -140,6 +140,10 @@ CHECK_RESIDUES = {
     ("check", "ansatz_solution", ""): r"the components \(E_{ij}\) with the solution put in",
 }
 
+#: The quantities the numeric cross-check compares, in words.
+NUMERIC_NAMES = {"christoffel": "Christoffel symbols", "riemann": "Riemann tensor", "ricci": "Ricci tensor",
+                 "scalar": "scalar curvature"}
+
 #: Width (in characters of LaTeX) of an expression shown in a table cell before it is broken.
 CELL_WIDTH = 48
 
@@ -335,6 +339,7 @@ class _Model:
             ("matter", "", ""): self.density_lines,
             ("ansatz", "field_equation", "equations"): self.ansatz_equation_lines,
             ("ansatz", "ansatz_solution", ""): self.ansatz_solution_lines,
+            ("ansatz", "ansatz_solution", "properties"): self.solved_metric_lines,
             ("geodesic", "", ""): self.geodesic_lines,
         }
         if fields(step) in special:
@@ -350,6 +355,18 @@ class _Model:
             return [self.eq(lhs, result)]
         lhs = QUANTITIES[step.quantity].symbol if step.quantity in QUANTITIES else escape_text(step.id)
         return [self.eq(lhs, result)]
+
+    def solved_metric_lines(self, result: dict) -> list[dict]:
+        """The solved metric's R_ij = lambda g_ij, scalar curvature and Kretschmann scalar."""
+        lines = []
+        if "einstein_constant" in result:
+            constant = result["einstein_constant"]
+            lines.append(self.line(r"R_{ij} = 0" if constant == 0 else
+                                   rf"R_{{ij}} = {self.writer.inline(constant)}\, g_{{ij}}"))
+        for lhs, key in (("R", "scalar"), ("K", "kretschmann")):
+            if key in result:
+                lines.append(self.eq(lhs, result[key]))
+        return lines
 
     def field_equations_lines(self, result: dict) -> list[dict]:
         return [self.eq(r"\kappa", result["kappa"]), self.eq(r"\Lambda", result["cosmological_constant"])]
@@ -643,6 +660,12 @@ class _Model:
                     rf"\({self.function_tex(r['unknown'])}\) with sympy's \texttt{{dsolve}}.")
         if fields(step) == ("ansatz", "ansatz_solution", "") and isinstance(r, dict):
             return "The metric with the solution put in."
+        if fields(step) == ("ansatz", "ansatz_solution", "properties"):
+            kind = ("Ricci-flat, a vacuum solution" if step.params.get("ricci_flat")
+                    else "an Einstein space")
+            return (r"What the solved metric is: it satisfies \(G_{ij} + \Lambda g_{ij} = 0\), so that "
+                    rf"\(R_{{ij}} = \frac{{2\Lambda}}{{n-2}}\, g_{{ij}}\): it is {kind}. Its invariants are the chain's "
+                    "with the solution put in.")
         if self.is_moved(step):
             return self.moved_annotation(step)
         if step.kind == "raising" and step.quantity in QUANTITIES and fields(step) not in ANNOTATIONS:
@@ -1006,9 +1029,7 @@ class _Model:
         points = len(p.get("points", []))
         if not points:
             return "no random point of the domain could be evaluated, so nothing was compared"
-        names = {"christoffel": r"Christoffel symbols", "riemann": "Riemann tensor", "ricci": "Ricci tensor",
-                 "scalar": "scalar curvature"}
-        deviations = ", ".join(rf"{names.get(q, escape_text(q))} \({self.scientific_tex(float(v))}\)"
+        deviations = ", ".join(rf"{NUMERIC_NAMES.get(q, escape_text(q))} \({self.scientific_tex(float(v))}\)"
                                for q, v in p.get("deviations", {}).items())
         return (f"largest relative deviations at {points} random points, computed to {p['digits']} digits: "
                 + deviations + rf" (tolerance \({self.scientific_tex(float(p['tolerance']))}\))")
@@ -1181,6 +1202,28 @@ class _Model:
                 "Lorentzian" if 1 in (negative, len(signs) - negative) else "of indefinite signature")
         return f"Signature: \\(({','.join(signs)})\\), {kind}, as fixed by the declared signs."
 
+    def solved_metric_evidence(self, properties: dict) -> str:
+        """One line on the solved metric: why it is Ricci-flat or Einstein, and its invariants."""
+        constant = properties["einstein_constant"]
+        text = (r"it satisfies every field equation \(G_{ij} + \Lambda g_{ij} = 0\), so "
+                + (r"\(R_{ij} = 0\)" if constant == 0 else rf"\(R_{{ij}} = {self.writer.inline(constant)}\, g_{{ij}}\)"))
+        invariants = [rf"\({lhs} = {self.value_tex(properties[key])}\)"
+                      for lhs, key in (("R", "scalar"), ("K", "kretschmann")) if key in properties]
+        return text + ("; " + ", ".join(invariants) if invariants else "")
+
+    def compact_conventions(self) -> str:
+        """The conventions a reader needs before the results, in one paragraph: signature, Riemann sign,
+        Ricci contraction, Einstein tensor, and the field equations with their units when there is matter."""
+        parts = [self.signature_text().rstrip(".")] if self.signature_text() else []
+        parts += [r"\(R^a{}_{bcd} = \partial_c \Gamma^a_{db} - \partial_d \Gamma^a_{cb} + \Gamma^a_{ce}\Gamma^e_{db} "
+                  r"- \Gamma^a_{de}\Gamma^e_{cb}\) (a round sphere has \(R > 0\))",
+                  r"\(R_{bd} = R^a{}_{bad}\)", r"\(R = g^{bd} R_{bd}\)",
+                  r"\(G_{ij} = R_{ij} - \tfrac12 R\, g_{ij}\)"]
+        field = self.d.conventions_latex.get("Field equations")
+        if field:
+            parts.append("field equations " + field.rstrip("."))
+        return "; ".join(parts) + "."
+
     def summary(self) -> dict:
         r = self.d.results
         w = self.writer
@@ -1214,6 +1257,12 @@ class _Model:
                 verdicts.append({"label": f"{key.capitalize()} energy condition",
                                  "word": _condition_word(step.result.holds), "holds": step.result.holds,
                                  "evidence": self.condition_summary(step), "link": self.link(step_id)})
+        properties = r.get("ansatz", {}).get("properties")
+        if properties and self.has("ansatz/properties"):
+            verdicts.append({"label": "The solved metric",
+                             "word": "Ricci-flat" if properties["einstein_constant"] == 0 else "an Einstein space",
+                             "holds": True, "evidence": self.solved_metric_evidence(properties),
+                             "link": self.link("ansatz/properties")})
         if self.has("ansatz/check") and isinstance(self.d.step("ansatz/check").result, Verdict):
             check = self.d.step("ansatz/check").result
             verdicts.append({"label": "The ansatz solution satisfies every field equation",
@@ -1238,7 +1287,7 @@ class _Model:
         if numeric:
             numeric_line = {
                 "word": {True: "passed", False: "FAILED", None: "not done"}[numeric["passed"]],
-                "deviations": ", ".join(rf"{escape_text(q)} \({self.scientific_tex(float(v))}\)"
+                "deviations": ", ".join(rf"{NUMERIC_NAMES.get(q, escape_text(q))} \({self.scientific_tex(float(v))}\)"
                                         for q, v in numeric["deviations"].items()),
                 "points": len(numeric["points"]), "digits": numeric["digits"],
                 "tolerance": rf"\({self.scientific_tex(float(numeric['tolerance']))}\)",
@@ -1251,7 +1300,8 @@ class _Model:
         if "stress_energy" in r and not r["stress_energy"]:
             matter = [self.line("T_{ij} = 0")]
             matter_intro = "The metric requires no matter: every component of the stress-energy tensor vanishes (vacuum)."
-        return {"equations": rows, "matter": matter if fluid is None else self.pack(matter),
+        return {"conventions": self.compact_conventions(),
+                "equations": rows, "matter": matter if fluid is None else self.pack(matter),
                 "matter_intro": matter_intro,
                 "solution": self.pack(solution), "verdicts": verdicts, "counts": counts,
                 "numeric": numeric_line}

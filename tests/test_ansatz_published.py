@@ -143,6 +143,39 @@ def test_schwarzschild_from_ansatz_check_holds():
     assert is_zero(r * sp.diff(A, r) - A * B + A)
 
 
+def test_schwarzschild_from_ansatz_solved_metric_is_ricci_flat_with_its_kretschmann():
+    # The solved metric is Schwarzschild's: Ricci-flat, R = 0 and K = 48 M^2/r^6 (Carroll sec. 5.2 for the
+    # Kretschmann scalar, from memory; also MTW sec. 31.2), with the mass read off the
+    # solution as mass_term = -2M, as in check_static_spherical.
+    d = schwarzschild_ansatz()
+    properties = d.results["ansatz"]["properties"]
+    assert sp.sympify(properties["einstein_constant"]) == 0 and sp.sympify(properties["scalar"]) == 0
+    r = names(d)["r"]
+    B = solution(d, "B")
+    M = sp.Symbol("M", positive=True)
+    mass_term = sp.cancel(r * (1 / B - 1))
+    in_B = [c for c in constants(d) if B.has(c)]
+    choice = sp.solve(sp.Eq(mass_term, -2 * M), in_B[0], dict=True)[0]
+    assert is_zero(sp.sympify(properties["kretschmann"]).subs(choice) - 48 * M**2 / r**6)
+
+
+@pytest.mark.slow
+def test_kottler_solved_metric_is_an_einstein_space():
+    # G_ij + Lambda g_ij = 0 gives R_ij = Lambda g_ij in four dimensions (trace: R = 4 Lambda), and the
+    # Schwarzschild-de Sitter Kretschmann scalar is 48 M^2/r^6 + 8 Lambda^2/3 (from memory).
+    d = kottler_ansatz()
+    lam, r = names(d)["Lambda"], names(d)["r"]
+    properties = d.results["ansatz"]["properties"]
+    assert is_zero(sp.sympify(properties["einstein_constant"]) - lam)
+    assert is_zero(sp.sympify(properties["scalar"]) - 4 * lam)
+    B = solution(d, "B")
+    M = sp.Symbol("M", positive=True)
+    mass_term = sp.cancel(r * (1 / B - 1 + lam * r**2 / 3))
+    in_B = [c for c in constants(d) if B.has(c)]
+    choice = sp.solve(sp.Eq(mass_term, -2 * M), in_B[0], dict=True)[0]
+    assert is_zero(sp.sympify(properties["kretschmann"]).subs(choice) - 48 * M**2 / r**6 - 8 * lam**2 / 3)
+
+
 @pytest.mark.slow
 def test_kottler_from_ansatz_with_lambda():
     # Kottler 1918 / Schwarzschild-de Sitter (from memory): B = 1/(1 - 2M/r - Lambda r^2/3).

@@ -292,7 +292,7 @@ def test_audit_section_typesets_the_new_quantities():
     for symbol in (r"\(\rho\)", r"\(p_{(\theta)}\)", r"\(T_{{t}{t}}\)", r"\(\frac{du^{\phi}}{d\tau}\)",
                    r"\(T^{{r}}{}_{{r}}\)", r"\(R_{{(r)}{(r)}}\)"):
         assert symbol in section, symbol
-    assert "missing 1/(8 pi)" in section
+    assert r"a missing \(1/(8\pi)\)" in section  # the slip typeset from its data (tests/test_audit_typeset.py)
     exporter = PdfExporter()
     assert exporter.export(d).startswith(b"%PDF-")
     assert [w for w in re.findall(r"Overfull \\hbox \(([0-9.]+)pt too wide\)", exporter.log) if float(w) > 1] == []

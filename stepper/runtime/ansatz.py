@@ -195,6 +195,43 @@ def einstein_from_scratch(matrix):
     return (ricci_matrix - scalar * matrix / 2).applyfunc(sp.cancel)
 
 
+def invariants_from_scratch(matrix):
+    """(R_ij, R, K) of a metric matrix computed from nothing recorded: Christoffel symbols, the Riemann tensor
+    R^a_bcd = d_c Gamma^a_db - d_d Gamma^a_cb + Gamma^a_ce Gamma^e_db - Gamma^a_de Gamma^e_cb, R_bd = R^a_bad,
+    R = g^bd R_bd and K = R_abcd R^abcd."""
+    n = dimension
+    inverse = matrix.inv().applyfunc(sp.cancel)
+    x = coordinates
+    dg = [matrix.diff(x[k]) for k in range(n)]
+    gamma = [[[sp.cancel(sum((inverse[a, d] * (dg[b][d, c] + dg[c][d, b] - dg[d][b, c]) for d in range(n)), sp.S.Zero) / 2)
+               for c in range(n)] for b in range(n)] for a in range(n)]
+    up = {}
+    for a in range(n):
+        for b in range(n):
+            for c in range(n):
+                for d in range(n):
+                    value = sp.diff(gamma[a][d][b], x[c]) - sp.diff(gamma[a][c][b], x[d])
+                    value += sum((gamma[a][c][e] * gamma[e][d][b] - gamma[a][d][e] * gamma[e][c][b] for e in range(n)),
+                                 sp.S.Zero)
+                    up[a, b, c, d] = sp.cancel(value)
+    ricci_matrix = sp.Matrix(n, n, lambda b, d: sp.cancel(sum((up[a, b, a, d] for a in range(n)), sp.S.Zero)))
+    scalar = sp.cancel(sum((inverse[b, d] * ricci_matrix[b, d] for b in range(n) for d in range(n)), sp.S.Zero))
+    down = {key: sum((matrix[key[0], e] * up[(e,) + key[1:]] for e in range(n)), sp.S.Zero) for key in up}
+    raised = {key: sum((inverse[key[1], f] * inverse[key[2], g] * inverse[key[3], h] * up[(key[0], f, g, h)]
+                        for f in range(n) for g in range(n) for h in range(n)
+                        if inverse[key[1], f] != 0 and inverse[key[2], g] != 0 and inverse[key[3], h] != 0), sp.S.Zero)
+              for key in up}
+    kretschmann = sp.cancel(sum((down[key] * raised[key] for key in up), sp.S.Zero))
+    return ricci_matrix, scalar, kretschmann
+
+
+def check_solved_ricci(step, constant, ricci_matrix):
+    """check() R_ij = constant * g_ij for the solved metric, component by component."""
+    for i, j in index_pairs():
+        check(step, constant * component(ansatz_metric, i, j), ricci_matrix[index_names.index(i), index_names.index(j)],
+              f"R_{i},{j} = lambda g_{i},{j}")
+
+
 # The recorded ansatz quantities, filled in by the step cells below.
 ansatz_equations, ansatz_duplicates, ansatz_solution, ansatz_metric = {}, {}, {}, {}
 # ---- to here ----
