@@ -575,8 +575,9 @@ class ExpressionWriter:
 #: Commands that take no room of their own (sizes of brackets, spacing).
 _INVISIBLE_COMMANDS = re.compile(r"\\(?:left|right|bigl|bigr|displaystyle|,|;|!)|[{}\s^_]")
 _COMMAND = re.compile(r"\\[A-Za-z]+")
-#: A top-level term of a geodesic equation up to this many visible characters is kept on one line.
-WHOLE_TERM = 50
+#: A top-level term of a geodesic equation up to this many visible characters is kept on one line (short
+#: enough for a column of a two-column paper).
+WHOLE_TERM = 30
 
 
 def visible_length(tex: str) -> int:

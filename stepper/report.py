@@ -1278,10 +1278,12 @@ class _Model:
         for quantity, label in (("christoffel", r"Christoffel symbols \(\Gamma^a_{bc}\)"),
                                 ("riemann", r"Riemann components \(R^a{}_{bcd}\)"),
                                 ("ricci", r"Ricci components \(R_{ij}\)"), ("einstein", r"Einstein components \(G_{ij}\)"),
-                                ("weyl", r"independent Weyl components \(C_{abcd}\)"),
+                                ("weyl", r"Weyl components \(C_{abcd}\) (independent ones only)"),
                                 ("stress_energy", r"stress-energy components \(T_{ij}\)")):
             if quantity in r:
-                counts.append({"label": label, "count": len(r[quantity])})
+                step_id = QUANTITIES[quantity].step_id
+                counts.append({"label": label, "count": len(r[quantity]),
+                               "link": self.link(step_id) if self.has(step_id) else None})
         numeric = r.get("numeric_verification")
         numeric_line = None
         if numeric:

@@ -206,7 +206,7 @@ PARAM_CORRUPTIONS = [
      lambda p: {**p, "relations": {**p["relations"], "t": ["r,r", "t,t"]}}),
     ("exterior_from_ansatz", "ansatz/solve/1", lambda p: {**p, "other_branches": [R]}),
     ("exterior_from_ansatz", "ansatz/solution",
-     lambda p: {**p, "rescalings": {"C1": "r: r -> r / sqrt(|C1|)"}}),
+     lambda p: {**p, "rescalings": {"C1": {"coordinate": "r", "factor": sp.Symbol("C1")}}}),
 ]
 
 
