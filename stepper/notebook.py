@@ -542,9 +542,27 @@ verdict({self._id(step)}, recorded_holds, residues)"""
     def riemann_component(self, step):
         key = self._indices(step)
         a, b, c, d = (self.s.name(p) for p in key.split(","))
+        groups = ""
+        if step.params.get("groups"):
+            lines = ["# The terms grouped by the Christoffel symbols they come from, each group as recorded:"]
+            total = []
+            for group in step.params["groups"]:
+                sign = "-" if group["sign"] < 0 else "+"
+                if group["kind"] == "derivative":
+                    indices = ", ".join(self.s.name(p) for p in [group["by"]] + group["christoffel"].split(","))
+                    call = f"riemann_group(derivative=({indices}))"
+                else:
+                    pairs = ", ".join("((" + ", ".join(self.s.name(p) for p in first.split(",")) + "), ("
+                                      + ", ".join(self.s.name(p) for p in second.split(",")) + "))"
+                                      for first, second in group["pairs"])
+                    call = f"riemann_group(products=[{pairs}])"
+                lines.append(f"check({self._id(step)}, {self.s.expr(group['value'])}, {call}, \"a group of its terms\")")
+                total.append(f"{sign} {self.s.expr(group['value'])}")
+            lines.append(f"check({self._id(step)}, recorded, {' '.join(total)}, \"the sum of its groups\")")
+            groups = "\n".join(lines) + "\n"
         code = f"""recorded = {self.s.expr(step.result)}
 check({self._id(step)}, recorded, riemann_from_christoffel({a}, {b}, {c}, {d}))
-riemann[{a}, {b}, {c}, {d}] = recorded
+{groups}riemann[{a}, {b}, {c}, {d}] = recorded
 riemann[{a}, {b}, {d}, {c}] = -recorded
 {self._done(step)}"""
         return "riemann_component", code

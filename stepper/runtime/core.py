@@ -318,6 +318,16 @@ def riemann_from_christoffel(a, b, c, d):
     return value
 
 
+def riemann_group(derivative=None, products=()):
+    """One group of the terms of R^a_bcd: d_x Gamma^a_bc for ``derivative`` = (x, a, b, c), or the sum of the
+    products Gamma^a_bc Gamma^d_ef over ``products`` = [((a, b, c), (d, e, f)), ...]."""
+    if derivative is not None:
+        x, a, b, c = derivative
+        return sp.diff(component(christoffel, a, b, c), coordinate[x])
+    return sum((component(christoffel, *first) * component(christoffel, *second) for first, second in products),
+               sp.S.Zero)
+
+
 def ricci_from_riemann(b, d):
     """R_bd = R^a_bad."""
     return sum((component(riemann, a, b, a, d) for a in index_names), sp.S.Zero)
