@@ -448,3 +448,241 @@ def notebook_samples(plot: Plot) -> dict[str, dict[int, float]]:
     """The values the notebook compares its own with: every NOTEBOOK_CHECK_EVERY-th point of each curve."""
     return {c.tex: {k: c.values[k] for k in range(0, len(c.values), NOTEBOOK_CHECK_EVERY)} for c in plot.curves}
 
+
+
+# --------------------------------------------------------------------------
+# The orbit of an [orbit] request: the recorded geodesic equations integrated with RK4 in mpmath
+# --------------------------------------------------------------------------
+
+#: Classical fourth-order Runge-Kutta: this many equal steps of tau over the span, in ORBIT_DIGITS-digit mpmath
+#: arithmetic (exactly rounded operations, so every machine computes the same numbers).
+ORBIT_STEPS = 2000
+ORBIT_DIGITS = 20
+#: Names of the radius and of the azimuth that make the orbit drawn in the plane as x = r cos(phi), y = r sin(phi).
+RADIUS_NAMES = ("r", "rho")
+AZIMUTH_NAMES = ("phi", "varphi")
+ORBIT_FIGURE_SIZE = (4.4, 4.4)
+
+
+@dataclass(frozen=True)
+class OrbitPlot:
+    """The orbit the metric file asks for, integrated and ready to draw and caption; ``problem`` says why it is
+    not drawn ("" when it is)."""
+
+    number: int
+    kind: str
+    time: str
+    values: tuple[tuple[sympy.Symbol, sympy.Expr], ...]
+    start: tuple[tuple[sympy.Symbol, sympy.Expr], ...]
+    velocity: tuple[tuple[sympy.Symbol, sympy.Expr], ...]
+    span: sympy.Expr
+    steps: int = ORBIT_STEPS
+    problem: str = ""
+    #: dt/dtau at the start (exact), from the normalisation.
+    time_rate: sympy.Expr | None = None
+    #: How the orbit is drawn: ("polar", radius, azimuth) or ("pair", first, second) (coordinate names).
+    plane: tuple[str, str, str] = ("pair", "", "")
+    #: The drawn points (doubles), one per step and the start.
+    x: tuple[float, ...] = ()
+    y: tuple[float, ...] = ()
+    #: tau where the integration ended (the span, unless the equations could not be evaluated on the way).
+    reached: float = 0.0
+    #: The coordinates x^a and the rates u^a at ``reached``, in the order of the coordinates (doubles).
+    end: tuple[float, ...] = ()
+    end_rates: tuple[float, ...] = ()
+    #: The largest |g_ab u^a u^b - (its value at the start)| over the integrated points.
+    drift: float = 0.0
+    #: The whole integrated path, for the tests: per point (tau, coordinates, rates) as doubles.
+    path: tuple[tuple[float, tuple[float, ...], tuple[float, ...]], ...] = ()
+
+    @property
+    def file_name(self) -> str:
+        return f"plot-{self.number}-orbit.pdf"
+
+    @property
+    def drawn(self) -> bool:
+        return not self.problem
+
+    @property
+    def normalisation(self) -> int:
+        return -1 if self.kind == "timelike" else 0
+
+
+def orbit_plot(derivation: Derivation) -> OrbitPlot | None:
+    """The orbit of the metric file's ``[orbit]`` (recorded on the geodesic step), integrated; None without
+    one (the last derivation's is kept, like :func:`plots`)."""
+    if _last_orbit and _last_orbit[0] is derivation:
+        return _last_orbit[1]
+    step = next((s for s in derivation.steps if s.kind == "geodesic" and s.params.get("orbit")), None)
+    made = None if step is None else _integrated(derivation, step, len(plots(derivation)) + 1)
+    _last_orbit[:] = [derivation, made]
+    return made
+
+
+_last_orbit: list = []
+
+
+def _integrated(derivation: Derivation, step, number: int) -> OrbitPlot:
+    metric = derivation.metric
+    orbit = step.params["orbit"]
+    by_name = {s.name: s for s in (*metric.coordinates, *metric.parameters, *metric.extra_symbols)}
+    names = list(metric.names)
+    pairs = lambda table: tuple((by_name[k], as_expression(v)) for k, v in table.items())  # noqa: E731
+    plot = OrbitPlot(number=number, kind=orbit["kind"], time=orbit["time"], values=pairs(orbit["values"]),
+                     start=pairs(orbit["start"]), velocity=pairs(orbit["velocity"]),
+                     span=as_expression(orbit["span"]))
+    if plot.kind not in ("timelike", "null"):
+        return _replace(plot, problem=f"the orbit kind {plot.kind} is not known")
+    values = dict(plot.values)
+    start = {s.name: v for s, v in plot.start}
+    rates = {s.name: v for s, v in plot.velocity}
+    g = metric.matrix.subs(values)
+    time_rate = _time_rate(g, names, plot.time, start, rates, plot.normalisation)
+    if time_rate is None:
+        return _replace(plot, problem=f"no positive rate of {plot.time} satisfies the normalisation at the start")
+    rates[plot.time] = time_rate
+    plot = _replace(plot, time_rate=time_rate, plane=_plane(names, plot.time, start, rates))
+    if len([n for n in names if n != plot.time]) < 2:
+        return _replace(plot, problem="the orbit has fewer than two space coordinates to draw")
+    velocity_of = step.result["position"]
+    accelerations = step.result["velocity"]
+    slots = {c: k for k, c in enumerate(metric.coordinates)}
+    slots.update({as_expression(velocity_of[n]): len(names) + k for k, n in enumerate(names)})
+    with mpmath.workdps(ORBIT_DIGITS):
+        try:
+            right = [_compiled(as_expression(accelerations.get(n, 0)).subs(values), slots) for n in names]
+            metric_at = [[_compiled(g[i, j], slots) if g[i, j] != 0 else None for j in range(len(names))]
+                         for i in range(len(names))]
+        except ValueError as error:
+            return _replace(plot, problem=f"the recorded equations hold something stepper cannot evaluate ({error})")
+        state = [_mp(start[n], None, None) for n in names] + [_mp(as_expression(rates[n]), None, None) for n in names]
+        path, drift, reached = _runge_kutta(state, right, metric_at, len(names), _mp(plot.span, None, None))
+    if len(path) < 2:
+        return _replace(plot, problem="the recorded equations cannot be evaluated at the start")
+    xs, ys = _drawn_points(plot.plane, names, path)
+    tau, end, end_rates = path[-1]
+    return _replace(plot, x=xs, y=ys, reached=tau, end=end, end_rates=end_rates, drift=drift, path=tuple(path))
+
+
+def _time_rate(g, names, time, start, rates, normalisation) -> sympy.Expr | None:
+    """u^time at the start from g_ab u^a u^b = normalisation (exact): the positive root, the larger if both are."""
+    g = g.subs({c: start[c.name] for c in g.free_symbols if c.name in start})
+    t = names.index(time)
+    others = [k for k in range(len(names)) if k != t]
+    a = g[t, t]
+    b = 2 * sum((g[t, k] * rates[names[k]] for k in others), sympy.Integer(0))
+    c = sum((g[i, j] * rates[names[i]] * rates[names[j]] for i in others for j in others), sympy.Integer(0)) \
+        - normalisation
+    a, b, c = (sympy.expand(v) for v in (a, b, c))
+    if a == 0:
+        roots = [] if b == 0 else [-c / b]
+    else:
+        root = sympy.sqrt(b**2 - 4 * a * c)
+        roots = [(-b + root) / (2 * a), (-b - root) / (2 * a)]
+    good = []
+    for r in roots:
+        r = sympy.radsimp(r)
+        value = sympy.N(r, 30)
+        if value.is_real and value > 0:
+            good.append((value, r))
+    return max(good, key=lambda pair: pair[0])[1] if good else None
+
+
+def _plane(names, time, start, rates) -> tuple[str, str, str]:
+    radius = next((n for n in RADIUS_NAMES if n in names), None)
+    azimuth = next((n for n in AZIMUTH_NAMES if n in names), None)
+    if radius and azimuth and radius != time and azimuth != time:
+        if "theta" not in names or (sympy.simplify(start["theta"] - sympy.pi / 2) == 0 and rates["theta"] == 0):
+            return ("polar", radius, azimuth)
+    first, second = [n for n in names if n != time][:2] + [""] * max(0, 2 - len(names) + 1)
+    return ("pair", first, second)
+
+
+def _compiled(expr: sympy.Expr, slots: dict):
+    """A function of the state list (mpmath numbers) computing ``expr``, built once from its tree: symbols read
+    their slot, numbers are made once at the working precision; no text is evaluated."""
+    if expr in slots:
+        k = slots[expr]
+        return lambda s: s[k]
+    if not expr.free_symbols:
+        constant = _mp(expr, None, None)
+        return lambda s: constant
+    if isinstance(expr, sympy.Add):
+        parts = [_compiled(a, slots) for a in expr.args]
+
+        def add(s):
+            total = parts[0](s)
+            for part in parts[1:]:
+                total += part(s)
+            return total
+        return add
+    if isinstance(expr, sympy.Mul):
+        parts = [_compiled(a, slots) for a in expr.args]
+
+        def multiply(s):
+            total = parts[0](s)
+            for part in parts[1:]:
+                total *= part(s)
+            return total
+        return multiply
+    if isinstance(expr, sympy.Pow):
+        base = _compiled(expr.base, slots)
+        if expr.exp.is_Integer:
+            n = int(expr.exp)
+            return lambda s: base(s) ** n
+        exponent = _compiled(expr.exp, slots)
+        return lambda s: mpmath.power(base(s), exponent(s))
+    if expr.func in _FUNCTIONS and len(expr.args) == 1:
+        function, argument = _FUNCTIONS[expr.func], _compiled(expr.args[0], slots)
+        return lambda s: function(argument(s))
+    raise ValueError(f"no evaluation for {type(expr).__name__}")
+
+
+def _runge_kutta(state, right, metric_at, n, span):
+    """ORBIT_STEPS classical Runge-Kutta steps of dx/dtau = u, du/dtau = acceleration from tau = 0 to ``span``;
+    stops early where the equations cannot be evaluated or leave the real numbers.  Returns the path (tau,
+    coordinates, rates as doubles, start included), the largest drift of g_ab u^a u^b and tau reached."""
+    h = span / ORBIT_STEPS
+
+    def derivative(s):
+        values = [f(s) for f in right]
+        if any(isinstance(v, mpmath.mpc) or not mpmath.isfinite(v) for v in values):
+            raise ValueError("not a finite real number")
+        return s[n:] + values
+
+    def norm(s):
+        return mpmath.fsum(g(s) * s[n + i] * s[n + j] for i, row in enumerate(metric_at)
+                           for j, g in enumerate(row) if g is not None)
+
+    def point(k, s):
+        return (float(k * h), tuple(float(v) for v in s[:n]), tuple(float(v) for v in s[n:]))
+
+    try:
+        first = norm(state)
+    except (ZeroDivisionError, ValueError):
+        return [], 0.0, 0.0
+    path, drift = [point(0, state)], mpmath.mpf(0)
+    for k in range(1, ORBIT_STEPS + 1):
+        try:
+            k1 = derivative(state)
+            k2 = derivative([a + h / 2 * b for a, b in zip(state, k1)])
+            k3 = derivative([a + h / 2 * b for a, b in zip(state, k2)])
+            k4 = derivative([a + h * b for a, b in zip(state, k3)])
+            following = [a + h / 6 * (p + 2 * q + 2 * r + w) for a, p, q, r, w in zip(state, k1, k2, k3, k4)]
+            drift = max(drift, abs(norm(following) - first))
+        except (ZeroDivisionError, ValueError, OverflowError):
+            break
+        state = following
+        path.append(point(k, state))
+    return path, float(drift), path[-1][0]
+
+
+def _drawn_points(plane, names, path) -> tuple[tuple[float, ...], tuple[float, ...]]:
+    kind, first, second = plane
+    i, j = names.index(first), names.index(second)
+    if kind == "polar":
+        with mpmath.workdps(ORBIT_DIGITS):
+            xs = tuple(float(mpmath.mpf(p[1][i]) * mpmath.cos(p[1][j])) for p in path)
+            ys = tuple(float(mpmath.mpf(p[1][i]) * mpmath.sin(p[1][j])) for p in path)
+        return xs, ys
+    return tuple(p[1][i] for p in path), tuple(p[1][j] for p in path)

@@ -5,6 +5,7 @@ typeset from the record's data."""
 
 from __future__ import annotations
 
+import functools
 import re
 import shutil
 import subprocess
@@ -67,10 +68,15 @@ def test_evidence_strings_of_the_model_are_typeset(derived):
             assert "_" not in re.sub(r"\\\(.*?\\\)", "", evidence), evidence  # underscores only inside math
 
 
-def pdf_text(stem: str, tmp_path) -> str:
+@functools.lru_cache(maxsize=None)
+def example_pdf(stem: str) -> bytes:
+    return PdfExporter().export(example_derivation(stem))
+
+
+def pdf_text(stem: str, tmp_path, *pages: str) -> str:
     pdf = tmp_path / f"{stem}.pdf"
-    pdf.write_bytes(PdfExporter().export(example_derivation(stem)))
-    return subprocess.run(["pdftotext", "-layout", str(pdf), "-"], capture_output=True, text=True,
+    pdf.write_bytes(example_pdf(stem))
+    return subprocess.run(["pdftotext", *pages, "-layout", str(pdf), "-"], capture_output=True, text=True,
                           check=True).stdout
 
 
@@ -81,3 +87,16 @@ def pdf_text(stem: str, tmp_path) -> str:
 def test_no_program_syntax_in_any_example_pdf(stem, tmp_path):
     found = program_syntax(pdf_text(stem, tmp_path))
     assert not found, "\n".join(found[:20])
+
+
+@pytest.mark.slow
+@pytest.mark.skipif(shutil.which("pdflatex") is None or shutil.which("pdftotext") is None,
+                    reason="needs pdflatex and pdftotext")
+@pytest.mark.parametrize("stem", EXAMPLE_STEMS + CLAIM_STEMS)
+def test_page_one_shows_signature_conventions_results_and_verdicts(stem, tmp_path):
+    page = pdf_text(stem, tmp_path, "-f", "1", "-l", "1")
+    assert "Signature" in page
+    assert "Conventions" in page and "round sphere has R > 0" in page.replace("\n", " ")
+    assert "Summary of the results" in page
+    assert re.search(r"\bR = ", page), "the scalar curvature is on page one"
+    assert re.search(r"(holds|does not hold|undecided) \(step \d+\)", page), "a verdict with its step is on page one"
