@@ -50,7 +50,7 @@ from .record import Derivation
 from .quantities import QUANTITIES, in_position
 from .runtime import MODULES as RUNTIME_MODULES, inlined_source
 from .record import ASSUMPTION_WORDS, HOLDS_WORDS, Decision, Method, Step, Verdict
-from .plots import plots as derivation_plots
+from .plots import ORBIT_DIGITS, ORBIT_END_TOLERANCE, orbit_plot, plots as derivation_plots
 
 #: The project's own templates; user directories given to :func:`notebook_text` come first.
 from .exporters import template_environment  # noqa: E402  (one environment for every template set)
@@ -85,6 +85,7 @@ _NOTEBOOK_NAMES = _runtime_names() | frozenset("""
     recorded_relations recorded_solution recorded_position integrate_orbit orbit_normalisation orbit_rates
     orbit_solution orbit_span orbit_start orbit_time orbit_time_rate orbit_tolerance orbit_values
     check_plot plot_data recorded_einstein_constant solved_ricci solved_scalar solved_kretschmann
+    check_orbit_plot orbit_end
 """.split())
 
 
@@ -1471,6 +1472,61 @@ def integrate_orbit():
 
 orbit_solution = integrate_orbit()"""
 
+    def orbit_plot(self, orbit) -> str:
+        """The cell after the orbit's integration (stepper.plots.orbit_plot): the end point of scipy's solution
+        against the end point of stepper's Runge-Kutta integration, then the orbit drawn from scipy's solution."""
+        from .plots import ORBIT_DIGITS, ORBIT_END_TOLERANCE
+        end = ", ".join(f"{self.s.name(c.name)}: {x!r}" for c, x in zip(self.d.metric.coordinates, orbit.end))
+        kind, first, second = orbit.plane
+        return f"""def check_orbit_plot():
+    \"\"\"The orbit of {orbit.file_name} beside the report: stepper integrated the recorded equations with classical
+    Runge-Kutta ({orbit.steps} steps, {ORBIT_DIGITS} digits) and ended at stepper_end; scipy's solution above must end at the same
+    point within {ORBIT_END_TOLERANCE:g} (relative for values above 1).  Then the orbit is drawn from scipy's solution.\"\"\"
+    import math
+    stepper_end = {{{end}}}  # x^a at tau = stepper_reached
+    stepper_reached = {orbit.reached!r}
+    tolerance = {ORBIT_END_TOLERANCE!r}
+    if orbit_solution is None:
+        raise AssertionError("orbit: stepper integrated the orbit, but the cell above did not")
+    if float(orbit_solution.t[-1]) < stepper_reached:
+        raise AssertionError(f"orbit: scipy stopped at tau = {{orbit_solution.t[-1]}}, before stepper's end {{stepper_reached}}")
+    mine = dict(zip(index_names, (float(v) for v in orbit_solution.sol(stepper_reached)[:dimension])))
+    for name in index_names:
+        difference = abs(mine[name] - stepper_end[name])
+        print(f"{{name}} at tau = {{stepper_reached:g}}: scipy {{mine[name]:.12g}}, stepper {{stepper_end[name]:.12g}}, difference {{difference:.1e}}")
+        if difference > tolerance * max(1.0, abs(stepper_end[name])):
+            raise AssertionError(f"orbit: {{name}} at the end differs from stepper's by {{difference:.3g}}")
+    print(f"the end point agrees with stepper's within {{tolerance:g}}")
+    try:
+        from matplotlib.figure import Figure
+    except ImportError:
+        print("matplotlib is not installed here: the end point is checked, the orbit is not drawn")
+        return mine
+    import io
+    from IPython.display import SVG, display
+    taus = np.linspace(0.0, stepper_reached, {len(orbit.x)})
+    points = orbit_solution.sol(taus)
+    first, second = points[index_names.index({self.s.name(first)})], points[index_names.index({self.s.name(second)})]
+    polar = {kind == "polar"!r}
+    xs, ys = (first * np.cos(second), first * np.sin(second)) if polar else (first, second)
+    figure = Figure(figsize=(4.4, 4.4))
+    axes = figure.subplots()
+    axes.plot(xs, ys, "-", linewidth=0.8)
+    axes.plot([xs[0]], [ys[0]], "o", color="C3", label="start")
+    if polar:
+        axes.plot([0.0], [0.0], "+", color="0.2", markersize=9, label="centre")
+        axes.set_aspect("equal", adjustable="datalim")
+    axes.set_xlabel({(f"{first} cos {second}" if kind == "polar" else first)!r})
+    axes.set_ylabel({(f"{first} sin {second}" if kind == "polar" else second)!r})
+    axes.legend(loc="upper right")
+    picture = io.StringIO()
+    figure.savefig(picture, format="svg")
+    display(SVG(picture.getvalue()))
+    return mine
+
+
+orbit_end = check_orbit_plot()"""
+
     def not_recomputed(self, step):
         _step_literal(step.id)  # validates the id
         return ("# The notebook has no recomputation for this kind of step; it is shown, not checked.\n"
@@ -1592,6 +1648,11 @@ def notebook_text(derivation: Derivation, templates: list[Path] | None = None) -
             text = env.get_template("notebook/orbit.md.j2").render(step=step, number=number, orbit=step.params["orbit"],
                                                                    dimension=metric.dimension)
             step_cells.append((step.id, text.strip("\n"), writer.orbit(step), "orbit"))
+            drawn = orbit_plot(derivation)
+            if drawn is not None and drawn.drawn:  # the report's orbit plot: same end point, drawn from scipy's solution
+                text = env.get_template("notebook/orbit_plot.md.j2").render(
+                    orbit=drawn, number=number, digits=ORBIT_DIGITS, tolerance=f"{ORBIT_END_TOLERANCE:g}")
+                step_cells.append((step.id, text.strip("\n"), writer.orbit_plot(drawn), "orbit_plot"))
     for plot in (p for p in derivation_plots(derivation) if p.drawn):  # after every step: the plots
         text = env.get_template("notebook/plot.md.j2").render(plot=plot, values=[(s.name, v) for s, v in plot.values])
         step_cells.append((None, text.strip("\n"), writer.plot(plot), "plot"))

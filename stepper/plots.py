@@ -128,8 +128,12 @@ _last: list = []
 
 
 def plot_files(derivation: Derivation) -> dict[str, bytes]:
-    """The PDF file of every plot that can be drawn, by file name."""
-    return {p.file_name: figure_pdf(p) for p in plots(derivation) if p.drawn}
+    """The PDF file of every plot that can be drawn (the orbit's last), by file name."""
+    files = {p.file_name: figure_pdf(p) for p in plots(derivation) if p.drawn}
+    orbit = orbit_plot(derivation)
+    if orbit is not None and orbit.drawn:
+        files[orbit.file_name] = orbit_pdf(orbit)
+    return files
 
 
 def _requests(derivation: Derivation) -> list[tuple[PlotRequest, bool]]:
@@ -376,10 +380,15 @@ def _escaped(text: str) -> str:
 
 
 def report_plots(derivation: Derivation) -> list[dict[str, Any]]:
-    """What the report's plot section shows: per plot its number, file name, whether it is drawn and its
-    caption (LaTeX)."""
-    return [{"number": p.number, "file": p.file_name, "drawn": p.drawn, "caption": caption(derivation, p)}
-            for p in plots(derivation)]
+    """What the report's plot section shows: per plot its number, file name, whether it is drawn, its caption
+    (LaTeX) and the width it is shown at (a fraction of the line); the orbit's last."""
+    entries = [{"number": p.number, "file": p.file_name, "drawn": p.drawn, "caption": caption(derivation, p),
+                "width": "1"} for p in plots(derivation)]
+    orbit = orbit_plot(derivation)
+    if orbit is not None:
+        entries.append({"number": orbit.number, "file": orbit.file_name, "drawn": orbit.drawn,
+                        "caption": orbit_caption(derivation, orbit), "width": "0.62"})
+    return entries
 
 
 def figure_pdf(plot: Plot) -> bytes:
@@ -458,6 +467,9 @@ def notebook_samples(plot: Plot) -> dict[str, dict[int, float]]:
 #: arithmetic (exactly rounded operations, so every machine computes the same numbers).
 ORBIT_STEPS = 2000
 ORBIT_DIGITS = 20
+#: The notebook's scipy solution (DOP853, rtol 1e-10) must end within this of the RK4 end point (relative for values
+#: above 1); both integrators' errors on the example are far below it (RK4's global error goes as the step to the 4th).
+ORBIT_END_TOLERANCE = 1e-6
 #: Names of the radius and of the azimuth that make the orbit drawn in the plane as x = r cos(phi), y = r sin(phi).
 RADIUS_NAMES = ("r", "rho")
 AZIMUTH_NAMES = ("phi", "varphi")
@@ -550,13 +562,15 @@ def _integrated(derivation: Derivation, step, number: int) -> OrbitPlot:
     slots.update({as_expression(velocity_of[n]): len(names) + k for k, n in enumerate(names)})
     with mpmath.workdps(ORBIT_DIGITS):
         try:
-            right = [_compiled(as_expression(accelerations.get(n, 0)).subs(values), slots) for n in names]
-            metric_at = [[_compiled(g[i, j], slots) if g[i, j] != 0 else None for j in range(len(names))]
-                         for i in range(len(names))]
+            right = _program([as_expression(accelerations.get(n, 0)).subs(values) for n in names], slots)
+            speeds = [as_expression(velocity_of[n]) for n in names]
+            square = sum((g[i, j] * speeds[i] * speeds[j] for i in range(len(names)) for j in range(len(names))),
+                         sympy.Integer(0))
+            norm = _program([square], slots)
         except ValueError as error:
             return _replace(plot, problem=f"the recorded equations hold something stepper cannot evaluate ({error})")
         state = [_mp(start[n], None, None) for n in names] + [_mp(as_expression(rates[n]), None, None) for n in names]
-        path, drift, reached = _runge_kutta(state, right, metric_at, len(names), _mp(plot.span, None, None))
+        path, drift, reached = _runge_kutta(state, right, norm, len(names), _mp(plot.span, None, None))
     if len(path) < 2:
         return _replace(plot, problem="the recorded equations cannot be evaluated at the start")
     xs, ys = _drawn_points(plot.plane, names, path)
@@ -638,21 +652,41 @@ def _compiled(expr: sympy.Expr, slots: dict):
     raise ValueError(f"no evaluation for {type(expr).__name__}")
 
 
-def _runge_kutta(state, right, metric_at, n, span):
+def _program(expressions: list, slots: dict):
+    """One function of the state list computing every expression of ``expressions``: their common
+    subexpressions (sympy's cse) each computed once, in order, into slots after the state's, each by a function
+    compiled once from its tree (:func:`_compiled`)."""
+    shared, reduced = sympy.cse(expressions, symbols=sympy.numbered_symbols("_shared"), order="none")
+    slots = dict(slots)
+    steps = []
+    for symbol, expression in shared:
+        steps.append(_compiled(expression, slots))
+        slots[symbol] = len(slots)
+    outputs = [_compiled(e, slots) for e in reduced]
+
+    def run(state):
+        s = list(state)
+        for step in steps:
+            s.append(step(s))
+        return [f(s) for f in outputs]
+    return run
+
+
+def _runge_kutta(state, right, norm_of, n, span):
     """ORBIT_STEPS classical Runge-Kutta steps of dx/dtau = u, du/dtau = acceleration from tau = 0 to ``span``;
     stops early where the equations cannot be evaluated or leave the real numbers.  Returns the path (tau,
     coordinates, rates as doubles, start included), the largest drift of g_ab u^a u^b and tau reached."""
     h = span / ORBIT_STEPS
+    half, sixth = h / 2, h / 6
 
     def derivative(s):
-        values = [f(s) for f in right]
+        values = right(s)
         if any(isinstance(v, mpmath.mpc) or not mpmath.isfinite(v) for v in values):
             raise ValueError("not a finite real number")
         return s[n:] + values
 
     def norm(s):
-        return mpmath.fsum(g(s) * s[n + i] * s[n + j] for i, row in enumerate(metric_at)
-                           for j, g in enumerate(row) if g is not None)
+        return norm_of(s)[0]
 
     def point(k, s):
         return (float(k * h), tuple(float(v) for v in s[:n]), tuple(float(v) for v in s[n:]))
@@ -665,10 +699,10 @@ def _runge_kutta(state, right, metric_at, n, span):
     for k in range(1, ORBIT_STEPS + 1):
         try:
             k1 = derivative(state)
-            k2 = derivative([a + h / 2 * b for a, b in zip(state, k1)])
-            k3 = derivative([a + h / 2 * b for a, b in zip(state, k2)])
+            k2 = derivative([a + half * b for a, b in zip(state, k1)])
+            k3 = derivative([a + half * b for a, b in zip(state, k2)])
             k4 = derivative([a + h * b for a, b in zip(state, k3)])
-            following = [a + h / 6 * (p + 2 * q + 2 * r + w) for a, p, q, r, w in zip(state, k1, k2, k3, k4)]
+            following = [a + sixth * (p + 2 * (q + r) + w) for a, p, q, r, w in zip(state, k1, k2, k3, k4)]
             drift = max(drift, abs(norm(following) - first))
         except (ZeroDivisionError, ValueError, OverflowError):
             break
@@ -686,3 +720,81 @@ def _drawn_points(plane, names, path) -> tuple[tuple[float, ...], tuple[float, .
             ys = tuple(float(mpmath.mpf(p[1][i]) * mpmath.sin(p[1][j])) for p in path)
         return xs, ys
     return tuple(p[1][i] for p in path), tuple(p[1][j] for p in path)
+
+
+def _scientific(value: float) -> str:
+    """A small positive number in LaTeX with two significant digits (such as 2.4 times ten to the -9); 0 as 0."""
+    if value == 0:
+        return "0"
+    exponent = math.floor(math.log10(value))
+    mantissa = round(value / 10 ** exponent, 1)
+    if mantissa >= 10:
+        mantissa, exponent = mantissa / 10, exponent + 1
+    return f"{mantissa:.1f}" + (rf" \times 10^{{{exponent}}}" if exponent else "")
+
+
+def orbit_caption(derivation: Derivation, orbit: OrbitPlot) -> str:
+    """The orbit's caption in LaTeX: the values, the start, the span, how it was integrated (a numeric
+    integration: evidence, not exact) and the drift of g_ab u^a u^b; for an orbit that cannot be drawn, why."""
+    writer = _writer(derivation)
+    sym = lambda name: writer.symbol(name)  # noqa: E731
+    tau = r"\tau"
+    kind = (r"timelike geodesic (\(\tau\) is proper time)" if orbit.kind == "timelike"
+            else r"null geodesic (\(\tau\) is an affine parameter)")
+    text = f"The orbit the metric file asks for: a {kind} of the recorded geodesic equations"
+    if orbit.values:
+        text += ", with " + ", ".join(rf"\({sym(s.name)} = {writer.inline(v)}\)" for s, v in orbit.values)
+    text += (", from " + ", ".join(rf"\({sym(s.name)} = {writer.inline(v)}\)" for s, v in orbit.start)
+             + " with " + ", ".join(rf"\(d{sym(s.name)}/d{tau} = {writer.inline(v)}\)" for s, v in orbit.velocity))
+    if orbit.time_rate is not None:
+        text += (rf" and \(d{sym(orbit.time)}/d{tau} = {writer.inline(orbit.time_rate)}\), the positive root of "
+                 rf"\(g_{{ab}} u^a u^b = {orbit.normalisation}\) at the start")
+    text += rf", over \({tau}\) from \(0\) to \({writer.inline(orbit.span)}\)"
+    if not orbit.drawn:
+        return text + f": not drawn, because {_escaped(orbit.problem)}."
+    kind_of_plane, first, second = orbit.plane
+    if kind_of_plane == "polar":
+        text += (rf". Drawn in the plane \(x = {sym(first)} \cos {sym(second)}\), \(y = {sym(first)} \sin "
+                 rf"{sym(second)}\) (equal scales); the dot marks the start, the cross the centre \({sym(first)} = 0\)")
+    else:
+        text += rf". Drawn as \({sym(second)}\) against \({sym(first)}\); the dot marks the start"
+    text += (rf". A numeric integration, evidence and not an exact result: the classical fourth-order Runge--Kutta "
+             rf"scheme with {orbit.steps} equal steps of \({tau}\), in {ORBIT_DIGITS}-digit arithmetic")
+    reached = sympy.Rational(orbit.reached).limit_denominator(10**6)
+    if orbit.reached < float(orbit.span):
+        text += (rf"; it stopped at \({tau} = {writer.inline(reached)}\), where the equations could no longer be "
+                 "evaluated")
+    text += (rf". Accuracy check: the exact equations keep \(g_{{ab}} u^a u^b\) at its starting value; along the "
+             rf"computed orbit it drifts by at most \({_scientific(orbit.drift)}\).")
+    return text
+
+
+def orbit_pdf(orbit: OrbitPlot) -> bytes:
+    """The orbit as a vector PDF (matplotlib's object interface), with no date in its metadata."""
+    import matplotlib
+    import matplotlib.style
+    from matplotlib.backends.backend_pdf import FigureCanvasPdf
+    from matplotlib.figure import Figure
+
+    kind, first, second = orbit.plane
+    writer = ExpressionWriter()
+    with matplotlib.style.context("default"), matplotlib.rc_context(STYLE):
+        figure = Figure(figsize=ORBIT_FIGURE_SIZE)
+        FigureCanvasPdf(figure)
+        axes = figure.subplots()
+        axes.plot(orbit.x, orbit.y, "-", linewidth=0.8, color="C0", zorder=2)
+        axes.plot([orbit.x[0]], [orbit.y[0]], "o", color="C3", markersize=5, zorder=3, label="start")
+        if kind == "polar":
+            axes.plot([0.0], [0.0], "+", color="0.2", markersize=9, markeredgewidth=1.2, zorder=3, label="centre")
+            axes.set_xlabel(f"$x = {writer.symbol(first)} \\cos {writer.symbol(second)}$")
+            axes.set_ylabel(f"$y = {writer.symbol(first)} \\sin {writer.symbol(second)}$")
+            axes.set_aspect("equal", adjustable="datalim")
+        else:
+            axes.set_xlabel(f"${writer.symbol(first)}$")
+            axes.set_ylabel(f"${writer.symbol(second)}$")
+        axes.legend(loc="upper right", frameon=True, facecolor="white", edgecolor="0.8", framealpha=1.0)
+        figure.tight_layout()
+        out = io.BytesIO()
+        figure.savefig(out, format="pdf", metadata={"Creator": None, "Producer": None, "CreationDate": None,
+                                                    "ModDate": None})
+    return out.getvalue()

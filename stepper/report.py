@@ -1136,8 +1136,8 @@ class _Model:
                 text.append(breakable_text(reason[:1].upper() + reason[1:]) + ".")
             return text
         if key == "energy":
-            text = [(r"Each condition is a set of inequalities in \(\rho\) and the \(p_{(k)}\), multiplied by "
-                     r"\(\kappa > 0\), which changes no sign. Each is \textbf{proven} from the declared signs of the "
+            text = [(r"Each condition is a set of inequalities in \(\rho\) and the \(p_{(k)}\); the tables list the "
+                     r"values of their left-hand sides themselves. Each is \textbf{proven} from the declared signs of the "
                      r"symbols and free functions (or because it vanishes identically), \textbf{violated} (everywhere, or at an exact point "
                      r"of the sampling region, which is a counterexample), or \textbf{undecided}, with the reason; "
                      r"non-negative values at every sampled point are evidence, not proof.")]
