@@ -93,7 +93,7 @@ def test_summary_shows_no_step_and_links_to_none(derived, quick_levels):
     verdict_steps = [i for i, s in enumerate(d.steps, 1) if s.stage != "audit" and isinstance(s.result, Verdict)]
     assert verdict_steps
     for number in verdict_steps:
-        assert f"Step~{number} " in tex, number
+        assert f"Step~{number}:" in tex, number
 
 
 def test_condensed_keeps_every_step_and_result_of_the_full_level(quick_levels):

@@ -276,3 +276,132 @@ def test_the_notebook_recomputes_and_draws_the_plot(stem):
     printed = "".join(o.get("text", "") for o in cell.outputs)
     assert "plot 1: 201 points of" in printed and "agree with the values stepper drew" in printed
     assert any("image/svg+xml" in o.get("data", {}) for o in cell.outputs)
+
+
+# --------------------------------------------------------------------------
+# The orbit of [orbit]: the recorded geodesic equations integrated with RK4 in mpmath
+# --------------------------------------------------------------------------
+
+def _orbit():
+    from stepper.plots import orbit_plot
+    orbit = orbit_plot(example_derivation("compact_star_exterior"))
+    assert orbit is not None and orbit.drawn, orbit and orbit.problem
+    return orbit
+
+
+def _schwarzschild(r, theta, ut, ur, utheta, uphi, M=1.0):
+    """g_ab u^a u^b, E = -g_tb u^b = (1 - 2M/r) u^t and L = g_phi b u^b = r^2 sin^2(theta) u^phi for
+    Schwarzschild, written out here (Carroll, Spacetime and Geometry, sec. 5.4, from memory)."""
+    f = 1 - 2 * M / r
+    s2 = math.sin(theta) ** 2
+    norm = -f * ut**2 + ur**2 / f + r**2 * utheta**2 + r**2 * s2 * uphi**2
+    return norm, f * ut, r**2 * s2 * uphi
+
+
+def test_the_orbit_plot_exists_for_the_example():
+    from stepper.plots import plot_files
+    derivation = example_derivation("compact_star_exterior")
+    orbit = _orbit()
+    assert orbit.file_name == "plot-1-orbit.pdf" and is_output_name(orbit.file_name)
+    assert orbit.plane == ("polar", "r", "phi")
+    assert orbit.steps == 2000 and len(orbit.x) == len(orbit.path) == 2001 and orbit.reached == 1000.0
+    assert orbit.time_rate == sp.sqrt(365) / 16  # u^t = sqrt((1 + r^2 u_phi^2) / (1 - 2M/r)) at r = 10, by hand
+    assert list(plot_files(derivation)) == ["plot-1-orbit.pdf"]
+    (entry,) = report_plots(derivation)
+    assert entry["drawn"] and entry["file"] == "plot-1-orbit.pdf"
+    # The drawn points are r cos(phi), r sin(phi) of the integrated path.
+    for (tau, x, u), px, py in list(zip(orbit.path, orbit.x, orbit.y))[::100]:
+        assert px == pytest.approx(x[1] * math.cos(x[3]), abs=1e-12)
+        assert py == pytest.approx(x[1] * math.sin(x[3]), abs=1e-12)
+
+
+def test_the_orbit_figure_is_vector_and_the_same_bytes_every_time():
+    import stepper.plots as module
+    orbit = _orbit()
+    first = module.orbit_pdf(orbit)
+    assert first.startswith(b"%PDF") and b"/Subtype /Image" not in first
+    assert b"CreationDate" not in first and b"ModDate" not in first
+    # A second integration from the trace as loaded back gives the same numbers and the same bytes.
+    again = module.orbit_plot(load_trace(trace_json(example_derivation("compact_star_exterior"))))
+    assert again is not orbit and again.path == orbit.path
+    assert module.orbit_pdf(again) == first
+
+
+def test_the_integrated_orbit_conserves_the_norm_energy_and_angular_momentum():
+    """The exact equations keep g_ab u^a u^b = -1, E and L fixed (Carroll sec. 5.4, from memory); RK4 with 2000
+    steps in 20 digits keeps them to far better than the tolerance stated here, 1e-9 (relative for E and L)."""
+    orbit = _orbit()
+    _, x0, u0 = orbit.path[0]
+    norm0, energy0, momentum0 = _schwarzschild(x0[1], x0[2], *u0)
+    assert norm0 == pytest.approx(-1, abs=1e-15)
+    assert energy0 == pytest.approx(0.8 * math.sqrt(365) / 16, rel=1e-15) and momentum0 == pytest.approx(3.75)
+    for tau, x, u in orbit.path:
+        norm, energy, momentum = _schwarzschild(x[1], x[2], *u)
+        assert norm == pytest.approx(-1, abs=1e-9)
+        assert energy == pytest.approx(energy0, rel=1e-9) and momentum == pytest.approx(momentum0, rel=1e-9)
+        assert x[2] == pytest.approx(math.pi / 2, abs=1e-12)  # equatorial stays equatorial
+    assert 0 <= orbit.drift < 1e-9
+
+
+def test_the_orbit_stays_between_the_turning_points_of_the_effective_potential():
+    """Carroll sec. 5.4 (from memory): (dr/dtau)^2/2 + V(r) = E^2/2, V = 1/2 - M/r + L^2/(2r^2) - M L^2/r^3.
+    Turning points are the roots of E^2/2 - V(r) = 0, i.e. of (E^2 - 1)/2 r^3 + M r^2 - L^2/2 r + M L^2 = 0;
+    the start r = 10 with dr/dtau = 0 is one; the orbit must stay between it and the next root below, and (over
+    tau = 1000, several radial periods) come close to that root."""
+    import numpy as np
+    M, r0, uphi = 1.0, 10.0, 3 / 80
+    L = r0**2 * uphi
+    E = (1 - 2 * M / r0) * math.sqrt((1 + r0**2 * uphi**2) / (1 - 2 * M / r0))
+    roots = sorted(z.real for z in np.roots([(E**2 - 1) / 2, M, -L**2 / 2, M * L**2]) if abs(z.imag) < 1e-9)
+    assert roots[-1] == pytest.approx(r0, rel=1e-9)
+    inner = roots[-2]
+    assert 9 < inner < r0  # a slightly eccentric bound orbit (L is a little below the circular 10/sqrt(7))
+    radii = [x[1] for _, x, _ in _orbit().path]
+    assert min(radii) >= inner - 1e-7 and max(radii) <= r0 + 1e-7
+    assert min(radii) == pytest.approx(inner, abs=1e-3)
+
+
+def test_the_orbit_caption_is_typeset_with_what_was_done():
+    from stepper.plots import orbit_caption
+    derivation = example_derivation("compact_star_exterior")
+    text = orbit_caption(derivation, _orbit())
+    for part in (r"\(M = 1\)", r"\(r = 10\)", r"\(\theta = \frac{\pi}{2}\)", r"\(d\phi/d\tau = \frac{3}{80}\)",
+                 r"\(dt/d\tau = \frac{\sqrt{365}}{16}\)", r"\(g_{ab} u^a u^b = -1\)", r"from \(0\) to \(1000\)",
+                 "Runge--Kutta", "2000 equal steps", "20-digit", "numeric integration", "not an exact result"):
+        assert part in text, part
+    assert r"drifts by at most \(" in text and r"\times 10^{-" in text
+    assert "**" not in text and "sqrt(" not in text and "pi/2" not in text and "u_phi" not in text
+
+
+def test_an_orbit_out_of_the_equatorial_plane_is_drawn_as_two_coordinates():
+    from stepper.plots import _plane
+    names = ["t", "r", "theta", "phi"]
+    assert _plane(names, "t", {"theta": sp.pi / 2}, {"theta": 0}) == ("polar", "r", "phi")
+    assert _plane(names, "t", {"theta": sp.pi / 3}, {"theta": 0}) == ("pair", "r", "theta")
+    assert _plane(names, "t", {"theta": sp.pi / 2}, {"theta": sp.Rational(1, 10)}) == ("pair", "r", "theta")
+    assert _plane(["t", "x", "y", "z"], "t", {}, {}) == ("pair", "x", "y")
+
+
+@pytest.mark.slow
+def test_the_report_shows_the_orbit(tmp_path):
+    import shutil
+    if shutil.which("pdflatex") is None:
+        pytest.skip("no pdflatex")
+    _derive("compact_star_exterior", tmp_path)
+    assert (tmp_path / "plot-1-orbit.pdf").is_file()
+    assert "\\includegraphics[width=0.62\\linewidth]{plot-1-orbit.pdf}" in (tmp_path / "report.tex").read_text()
+    text = subprocess.run(["pdftotext", str(tmp_path / "report.pdf"), "-"], capture_output=True, text=True).stdout
+    assert "Plot 1." in text and "Runge" in text
+
+
+@pytest.mark.slow
+def test_the_notebook_draws_the_orbit_and_agrees_with_the_end_point():
+    import nbformat
+    from nbclient import NotebookClient
+    from stepper.notebook import notebook_text
+    nb = nbformat.reads(notebook_text(example_derivation("compact_star_exterior")), as_version=4)
+    NotebookClient(nb, timeout=900, kernel_name="python3").execute()
+    (cell,) = [c for c in nb.cells if c.cell_type == "code" and "def check_orbit_plot" in c.source]
+    printed = "".join(o.get("text", "") for o in cell.outputs)
+    assert "the end point agrees with stepper's within 1e-06" in printed
+    assert any("image/svg+xml" in o.get("data", {}) for o in cell.outputs)
