@@ -192,3 +192,32 @@ def test_metric_from_line_element_halves_cross_terms():
     assert g == sp.Matrix([[-1, -w], [-w, 1 - w**2]])
     with pytest.raises(AssertionError, match="not quadratic"):
         core.metric_from_line_element(dt**2 + dt, [dt, dx])
+
+
+def test_invariants_from_scratch_of_schwarzschild_and_de_sitter_static_patch():
+    # Schwarzschild: R_ij = 0 and K = 48 M^2/r^6; the static patch of de Sitter, f = 1 - r^2/L^2:
+    # R_ij = (3/L^2) g_ij, R = 12/L^2, K = 24/L^4 (Carroll sec. 5.2 and 8.2, from memory).
+    names = ["t", "r", "theta", "phi"]
+    symbols = [t, r, theta, phi]
+    set_coordinates(ansatz_runtime, names, symbols)
+    L = sp.Symbol("L", positive=True)
+    for f, ricci_factor, scalar, kretschmann in ((1 - 2 * M / r, 0, 0, 48 * M**2 / r**6),
+                                                 (1 - r**2 / L**2, 3 / L**2, 12 / L**2, 24 / L**4)):
+        g = sp.diag(-f, 1 / f, r**2, r**2 * sp.sin(theta)**2)
+        ricci, R, K = ansatz_runtime.invariants_from_scratch(g)
+        assert sp.simplify(ricci - ricci_factor * g) == sp.zeros(4, 4)
+        assert sp.simplify(R - scalar) == 0 and sp.simplify(K - kretschmann) == 0
+
+
+def test_riemann_group_is_a_derivative_or_a_sum_of_christoffel_products(sphere):
+    # On the sphere of radius rho: Gamma^theta_phiphi = -sin cos, Gamma^phi_thetaphi = cot (common practice);
+    # R^theta_phithetaphi = d_theta Gamma^theta_phiphi - Gamma^theta_phiphi Gamma^phi_thetaphi = sin^2
+    for a, b, c in core.every_index(3):
+        value = core.christoffel_from_metric(a, b, c)
+        if value != 0:
+            core.christoffel[a, b, c] = value
+    derivative = core.riemann_group(derivative=("theta", "theta", "phi", "phi"))
+    products = core.riemann_group(products=[(("theta", "phi", "phi"), ("phi", "theta", "phi"))])
+    assert core.vanishes(derivative - (sp.sin(theta)**2 - sp.cos(theta)**2))
+    assert core.vanishes(products + sp.cos(theta)**2)
+    assert core.vanishes(derivative - products - sp.sin(theta)**2)

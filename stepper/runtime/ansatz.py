@@ -172,17 +172,25 @@ def check_rescaling(step, constant, name):
         raise AssertionError(f"step {step}: g_{name},{name} is not a function of {constant} alone times a factor free of it")
 
 
+def christoffel_from_scratch(matrix):
+    """(g^ij, Gamma^a_bc) of a metric matrix from nothing recorded:
+    Gamma^a_bc = 1/2 g^ad (d_b g_dc + d_c g_db - d_d g_bc), as nested lists gamma[a][b][c]."""
+    n = dimension
+    inverse = matrix.inv().applyfunc(sp.cancel)
+    dg = [matrix.diff(coordinates[k]) for k in range(n)]
+    gamma = [[[sp.cancel(sum((inverse[a, d] * (dg[b][d, c] + dg[c][d, b] - dg[d][b, c]) for d in range(n)), sp.S.Zero) / 2)
+               for c in range(n)] for b in range(n)] for a in range(n)]
+    return inverse, gamma
+
+
 def einstein_from_scratch(matrix):
     """G_ij of a metric matrix computed from nothing recorded: its inverse, Christoffel symbols
     Gamma^a_bc = 1/2 g^ad (d_b g_dc + d_c g_db - d_d g_bc), the Ricci tensor
     R_bd = d_a Gamma^a_db - d_d Gamma^a_ab + Gamma^a_ae Gamma^e_db - Gamma^a_de Gamma^e_ab, and
     G_bd = R_bd - R g_bd / 2."""
     n = dimension
-    inverse = matrix.inv().applyfunc(sp.cancel)
+    inverse, gamma = christoffel_from_scratch(matrix)
     x = coordinates
-    dg = [matrix.diff(x[k]) for k in range(n)]
-    gamma = [[[sp.cancel(sum((inverse[a, d] * (dg[b][d, c] + dg[c][d, b] - dg[d][b, c]) for d in range(n)), sp.S.Zero) / 2)
-               for c in range(n)] for b in range(n)] for a in range(n)]
     ricci_matrix = sp.zeros(n, n)
     for b in range(n):
         for d in range(b, n):
@@ -200,11 +208,8 @@ def invariants_from_scratch(matrix):
     R^a_bcd = d_c Gamma^a_db - d_d Gamma^a_cb + Gamma^a_ce Gamma^e_db - Gamma^a_de Gamma^e_cb, R_bd = R^a_bad,
     R = g^bd R_bd and K = R_abcd R^abcd."""
     n = dimension
-    inverse = matrix.inv().applyfunc(sp.cancel)
+    inverse, gamma = christoffel_from_scratch(matrix)
     x = coordinates
-    dg = [matrix.diff(x[k]) for k in range(n)]
-    gamma = [[[sp.cancel(sum((inverse[a, d] * (dg[b][d, c] + dg[c][d, b] - dg[d][b, c]) for d in range(n)), sp.S.Zero) / 2)
-               for c in range(n)] for b in range(n)] for a in range(n)]
     up = {}
     for a in range(n):
         for b in range(n):
