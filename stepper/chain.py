@@ -60,8 +60,9 @@ CONVENTIONS_LATEX = {
                        r"$R_{abcd} = g_{ae} R^e{}_{bcd}$."),
     "Ricci tensor": r"$R_{bd} = R^a{}_{bad}$ (first index contracted with the third).",
     "Scalar curvature and Einstein tensor": r"$R = g^{bd} R_{bd}$, $G_{ij} = R_{ij} - \tfrac12 R\, g_{ij}$.",
-    "Weyl tensor": (r"$C_{abcd} = R_{abcd} - \frac{g_{ac}R_{bd} - g_{ad}R_{bc} - g_{bc}R_{ad} + g_{bd}R_{ac}}{n-2} "
-                    r"+ \frac{R\,(g_{ac}g_{bd} - g_{ad}g_{bc})}{(n-1)(n-2)}$, for $n \ge 4$."),
+    "Weyl tensor": (r"for $n \ge 4$, \begin{gather*} C_{abcd} = R_{abcd} - \frac{g_{ac}R_{bd} - g_{ad}R_{bc}}{n-2} "
+                    r"\\ + \frac{g_{bc}R_{ad} - g_{bd}R_{ac}}{n-2} \\ "
+                    r"+ \frac{R\,(g_{ac}g_{bd} - g_{ad}g_{bc})}{(n-1)(n-2)}. \end{gather*}"),
 }
 
 #: Below this many polynomial terms in the Christoffel symbols, starting worker

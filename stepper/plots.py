@@ -839,8 +839,8 @@ def orbit_pdf(orbit: OrbitPlot) -> bytes:
         axes.plot([orbit.x[0]], [orbit.y[0]], "o", color="C3", markersize=5, zorder=3, label="start")
         if kind == "polar":
             axes.plot([0.0], [0.0], "+", color="0.2", markersize=9, markeredgewidth=1.2, zorder=3, label="centre")
-            axes.set_xlabel(f"$x = {writer.symbol(first)} \\cos {writer.symbol(second)}$")
-            axes.set_ylabel(f"$y = {writer.symbol(first)} \\sin {writer.symbol(second)}$")
+            axes.set_xlabel(f"$x = {writer.symbol(first)}\\,\\cos {writer.symbol(second)}$")
+            axes.set_ylabel(f"$y = {writer.symbol(first)}\\,\\sin {writer.symbol(second)}$")
             axes.set_aspect("equal", adjustable="datalim")
         else:
             axes.set_xlabel(f"${writer.symbol(first)}$")
