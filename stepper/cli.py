@@ -200,6 +200,13 @@ def _matter_lines(results: dict) -> list[str]:
             word = HOLDS_WORDS[ansatz["check"]["holds"]]
             lines.append(f"  solution substituted into every field equation: {word} "
                          f"({_short(ansatz['check']['evidence'])})")
+        properties = ansatz.get("properties")
+        if properties:
+            kind = "Ricci-flat" if properties["einstein_constant"] == 0 else \
+                f"an Einstein space, R_ij = {properties['einstein_constant']} g_ij"
+            invariants = ", ".join(f"{name} = {properties[key]}" for name, key in (("R", "scalar"), ("K", "kretschmann"))
+                                   if key in properties)
+            lines.append(f"  the solved metric: {kind}" + (f"; {invariants}" if invariants else ""))
     return lines
 
 
