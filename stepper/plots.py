@@ -12,6 +12,14 @@ so the same trace gives the same numbers), and drawn with matplotlib's object in
 ``matplotlib.figure.Figure`` on a PDF canvas; no pyplot, no global backend) as a vector PDF whose metadata
 holds no date, so the same trace gives the same bytes.  Nothing here imports the engine; every caption is
 LaTeX made from the data.
+
+The orbit (:func:`orbit_plot`, last of the plots): when the metric file has ``[orbit]``, the recorded geodesic
+equations (the geodesic step's result, the orbit's values put in) are integrated with the classical Runge-Kutta
+scheme in ``ORBIT_DIGITS``-digit mpmath arithmetic, ``ORBIT_STEPS`` equal steps over the span, from the start with
+u^time the positive root of g_ab u^a u^b = -1 (timelike) or 0 (null); each expression is compiled once into a
+tree of mpmath's exactly rounded operations, so the numbers, and the figure's bytes, are the same on every
+machine.  Drawn in the plane (x = r cos phi, y = r sin phi) when the coordinates have a radius and an azimuth and
+the orbit stays in the equator, otherwise as the second space coordinate against the first.
 """
 
 from __future__ import annotations
