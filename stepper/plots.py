@@ -665,26 +665,16 @@ def _compiled(expr: sympy.Expr, slots: dict):
     if not expr.free_symbols:
         constant = _raw(expr)
         return lambda s: constant
-    if isinstance(expr, sympy.Add):
+    if isinstance(expr, (sympy.Add, sympy.Mul)):
         parts = [_compiled(a, slots) for a in expr.args]
-        add = libmp.mpf_add
+        operation = libmp.mpf_add if isinstance(expr, sympy.Add) else libmp.mpf_mul
 
-        def total(s):
+        def folded(s):
             value = parts[0](s)
             for part in parts[1:]:
-                value = add(value, part(s), prec, rnd)
+                value = operation(value, part(s), prec, rnd)
             return value
-        return total
-    if isinstance(expr, sympy.Mul):
-        parts = [_compiled(a, slots) for a in expr.args]
-        multiply = libmp.mpf_mul
-
-        def product(s):
-            value = parts[0](s)
-            for part in parts[1:]:
-                value = multiply(value, part(s), prec, rnd)
-            return value
-        return product
+        return folded
     if isinstance(expr, sympy.Pow):
         base = _compiled(expr.base, slots)
         if expr.exp.is_Integer:

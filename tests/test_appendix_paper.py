@@ -17,24 +17,14 @@ import pytest
 
 from stepper import cli
 
+from test_detail_levels import PAPER as LEVELS_PAPER
+
 ROOT = Path(__file__).resolve().parent.parent
 EXAMPLES = ROOT / "examples"
 PAIR = ("spinning_black_hole", "wormhole_passage")
 
-PAPER = r"""\documentclass[%(columns)s]{article}
-\usepackage[T1]{fontenc}
-\usepackage{lmodern}
-\usepackage{amsmath,amssymb}
-\usepackage{hyperref}
-\begin{document}
-\section{Introduction}
-The derivations are in the appendix.
-\appendix
-\section{Derivations}
-\input{first}
-\input{second}
-\end{document}
-"""
+#: The detail-level tests' article (graphicx included, for the plots), with the two appendices input.
+PAPER = LEVELS_PAPER.replace("%(inputs)s", "\\input{first}\n\\input{second}")
 
 needs_tex = pytest.mark.skipif(shutil.which("pdflatex") is None, reason="pdflatex is not installed")
 
