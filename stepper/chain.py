@@ -772,7 +772,7 @@ class _Chain:
 
     # verdicts -----------------------------------------------------------
     def _verdict(self, name: str, statement: str, residues: list, uses: tuple, extra: str = "",
-                 params: dict | None = None) -> Verdict:
+                 params: dict | None = None, verdict_formula: str = "") -> Verdict:
         """All residues vanish -> holds; the first that does not is named as evidence.
 
         ``residues`` lists (label, kind, component, element): the label words the plain-text evidence, the
@@ -803,8 +803,8 @@ class _Chain:
                                   f"each of the {len(residues)} components checked vanishes ({how})" + extra)
                 params["test"] = "canonical form" if self.A.name == "field" else "simplify"
         self.results.setdefault("verdicts", {})[name] = {"holds": verdict.holds, "evidence": verdict.evidence}
-        self.record(id=f"verdict/{name}", kind="verdict", quantity=name, annotation=statement, formula=formula(name),
-                    uses=uses, result=verdict, params=params)
+        self.record(id=f"verdict/{name}", kind="verdict", quantity=name, annotation=statement,
+                    formula=verdict_formula or formula(name), uses=uses, result=verdict, params=params)
         return verdict
 
     def verdict_ricci_flat(self) -> None:
@@ -941,12 +941,12 @@ class _Chain:
 
     def weyl(self) -> None:
         n, A, g, ric = self.n, self.A, self.g, self.ric
+        if n == 3:
+            self.cotton()
+            return
         if n < 4:
-            reason = ("in two dimensions every metric is locally conformally flat (isothermal coordinates exist)"
-                      if n == 2 else
-                      "in three dimensions the Weyl tensor vanishes identically and conformal flatness is decided by "
-                      "the Cotton tensor, which stepper does not compute")
-            verdict = Verdict("Conformally flat.", True if n == 2 else None, reason)
+            reason = "in two dimensions every metric is locally conformally flat (isothermal coordinates exist)"
+            verdict = Verdict("Conformally flat.", True, reason)
             self.results.setdefault("verdicts", {})["conformally_flat"] = {"holds": verdict.holds, "evidence": reason}
             self.record(id="verdict/conformally_flat", kind="verdict", quantity="conformally_flat", annotation=verdict.statement,
                         formula=formula("conformally_flat"), uses=("metric",), result=verdict)
@@ -970,6 +970,45 @@ class _Chain:
                                "components not listed vanish.",
                     formula=formula("weyl"), uses=("riemann_lowered", "ricci", "scalar", "metric"), result=comps)
         self._verdict("conformally_flat", "Conformally flat: the Weyl tensor vanishes.", residues, ("weyl",))
+
+    def cotton(self) -> None:
+        """Three dimensions: the Weyl tensor vanishes identically, and the metric is locally conformally flat
+        exactly when the Cotton tensor C_abc = nabla_c P_ab - nabla_b P_ac vanishes, P_ab = R_ab - R g_ab / 4
+        the Schouten tensor (Eisenhart, Riemannian Geometry, sec. 28).  With nabla g = 0,
+        C_abc = nabla_c R_ab - nabla_b R_ac + (g_ac d_b R - g_ab d_c R) / 4, antisymmetric in b, c."""
+        n, A, g, ric, Gam, Rs = self.n, self.A, self.g, self.ric, self.gamma, self.R_scalar
+
+        def nabla_ricci(c: int, a: int, b: int):  # nabla_c R_ab = d_c R_ab - Gamma^e_ca R_eb - Gamma^e_cb R_ae
+            value = A.diff(ric[a][b], c)
+            for e in range(n):
+                if not self.is_zero(Gam[e][c][a]) and not self.is_zero(ric[e][b]):
+                    value = value - Gam[e][c][a] * ric[e][b]
+                if not self.is_zero(Gam[e][c][b]) and not self.is_zero(ric[a][e]):
+                    value = value - Gam[e][c][b] * ric[a][e]
+            return value
+
+        dR = [A.diff(Rs, i) for i in range(n)]
+        quarter = sympy.Rational(1, 4)
+        step_components, stored, residues = {}, {}, []
+        for a in range(n):
+            for b in range(n):
+                for c in range(b + 1, n):
+                    self.progress(f"cotton {self.key(a, b, c)}", 0, 1)
+                    value = (nabla_ricci(c, a, b) - nabla_ricci(b, a, c)
+                             + (g[a][c] * dR[b] - g[a][b] * dR[c]) * quarter)
+                    residues.append((f"Cotton_{self.key(a, b, c)}", "cotton", self.key(a, b, c), value))
+                    if not self.is_zero(value):
+                        step_components[self.key(a, b, c)] = self.expr(value)
+                        stored[self.key(a, b, c)] = self.expr(value)
+                        stored[self.key(a, c, b)] = -self.expr(value)
+        self.results["cotton"] = dict(sorted(stored.items(), key=lambda kv: self._order(kv[0])))
+        self.record(id="cotton", kind="tensor", quantity="cotton",
+                    annotation="Cotton tensor with all indices down, for b < c (C_acb = -C_abc); "
+                               "components not listed vanish.",
+                    formula=formula("cotton"), uses=("ricci", "christoffel", "scalar", "metric"),
+                    result=step_components)
+        self._verdict("conformally_flat", "Conformally flat: the Cotton tensor vanishes.", residues, ("cotton",),
+                      verdict_formula=r"\mathcal{C}_{abc} = 0 \quad (n = 3)")
 
     def numeric_verification(self) -> None:
         m = self.metric

@@ -374,6 +374,7 @@ class _Cells:
             ("numeric check", "", ""): self.numeric_verification,
             ("invariant", "kretschmann", ""): self.kretschmann,
             ("tensor", "weyl", ""): self.weyl,
+            ("tensor", "cotton", ""): self.cotton,
             ("verdict", "ricci_flat", ""): self.ricci_flat,
             ("verdict", "einstein_space", ""): self.einstein_space,
             ("verdict", "constant_curvature", ""): self.constant_curvature,
@@ -846,6 +847,14 @@ weyl.update(recorded)
 {self._done(step)}"""
         return "weyl", code
 
+    def cotton(self, step):
+        code = f"""# C_abc for b < c (those not listed are zero; C_acb = -C_abc).
+recorded = {self.s.table(step.result)}
+check_table("cotton", recorded, cotton_from_ricci, cotton_index_sets())
+fill_cotton(cotton, recorded)
+{self._done(step)}"""
+        return "cotton", code
+
     # verdicts -------------------------------------------------------------
     def ricci_flat(self, step):
         code = f"""{self._holds(step)}
@@ -883,9 +892,9 @@ print("verdict/conformally_flat: holds in two dimensions, as recorded")"""
             return "verdict_conformally_flat_two_dimensions", code
         if self.n == 3:
             code = f"""{self._holds(step)}
-# In three dimensions the Weyl tensor vanishes identically; conformal flatness needs the Cotton tensor,
-# which was not computed.
-verdict({self._id(step)}, recorded_holds, {{}})"""
+# In three dimensions the Weyl tensor vanishes identically; the Cotton tensor decides conformal flatness.
+residues = {{f"Cotton_{{a}},{{b}},{{c}}": component(cotton, a, b, c) for a, b, c in cotton_index_sets()}}
+verdict({self._id(step)}, recorded_holds, residues)"""
             return "verdict_conformally_flat_three_dimensions", code
         code = f"""{self._holds(step)}
 residues = {{f"C_{{a}},{{b}},{{c}},{{d}}": component(weyl, a, b, c, d) for a, b, c, d in riemann_index_sets()}}

@@ -475,6 +475,8 @@ def notebook_samples(plot: Plot) -> dict[str, dict[int, float]]:
 #: Classical fourth-order Runge-Kutta: this many equal steps of tau over the span, in ORBIT_DIGITS-digit mpmath
 #: arithmetic (exactly rounded operations, so every machine computes the same numbers).
 ORBIT_STEPS = 2000
+#: The orbit stops where a coordinate or rate grows beyond this size (a diverging orbit, or a corrupted record).
+ORBIT_BOUND = libmp.from_int(10**9)
 ORBIT_DIGITS = 20
 #: The notebook's scipy solution (DOP853, rtol 1e-10) must end within this of the RK4 end point (relative for values
 #: above 1); both integrators' errors on the example are far below it (RK4's global error goes as the step to the 4th).
@@ -724,6 +726,8 @@ def _runge_kutta(state, right, norm_of, n, span):
     two = libmp.from_int(2)
 
     def derivative(s):
+        if any(libmp.mpf_gt(libmp.mpf_abs(v), ORBIT_BOUND) for v in s):
+            raise ValueError("the orbit left the range it is drawn in")  # also bounds the cost of sin and cos
         values = right(s)
         if any(v in _NOT_FINITE for v in values):
             raise ValueError("not a finite number")

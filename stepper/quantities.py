@@ -109,6 +109,13 @@ QUANTITIES: Mapping[str, Quantity] = {q.name: q for q in (
              (r"C_{abcd} = R_{abcd} - \frac{g_{ac}R_{bd} - g_{ad}R_{bc} - g_{bc}R_{ad} + g_{bd}R_{ac}}{n-2} "
               r"+ \frac{R\,(g_{ac}g_{bd} - g_{ad}g_{bc})}{(n-1)(n-2)}"), _RIEMANN_ORDER, claimable=True,
              requires="invariants", tensor="weyl"),
+    # three dimensions only (where the Weyl tensor vanishes identically): P_ab = R_ab - R g_ab / 4 is the
+    # Schouten tensor; the metric is locally conformally flat exactly when C_abc = 0 (Eisenhart, sec. 28)
+    Quantity("cotton", "Cotton tensor", "ddd", r"\mathcal{C}",
+             (r"\mathcal{C}_{abc} = \nabla_c P_{ab} - \nabla_b P_{ac} = \nabla_c R_{ab} - \nabla_b R_{ac} "
+              r"+ \tfrac14 \left(g_{ac}\,\partial_b R - g_{ab}\,\partial_c R\right)"),
+             "every ordering (antisymmetric in b, c: C_acb = -C_abc; the step lists b < c)", claimable=True,
+             requires="invariants"),
     Quantity("field_equation", "field equation of the ansatz", "dd", "E", r"E_{ij} = G_{ij} + \Lambda g_{ij}",
              requires="ansatz"),
     Quantity("stress_energy", "stress-energy tensor", "dd", "T",

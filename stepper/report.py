@@ -103,6 +103,10 @@ CHAIN_ANNOTATIONS = {
                                        r"\(c < d\)."),
     ("tensor", "weyl", ""): (r"Weyl tensor with all indices down, for \(a < b\), \(c < d\) and "
                              r"\((a, b) \le (c, d)\); components not listed vanish."),
+    ("tensor", "cotton", ""): (r"Cotton tensor with all indices down (three dimensions), built from the Schouten "
+                               r"tensor \(P_{ab} = R_{ab} - \tfrac14 R\,g_{ab}\), for \(b < c\); the others "
+                               r"follow from \(\mathcal{C}_{acb} = -\mathcal{C}_{abc}\), and components not listed "
+                               r"vanish."),
     ("verdict", "ricci_flat", ""): r"Ricci-flat: every component of the Ricci tensor vanishes, \(R_{ij} = 0\).",
     ("verdict", "constant_curvature", ""): (r"Constant curvature: \(R_{abcd} = k\,(g_{ac} g_{bd} - g_{ad} g_{bc})\) "
                                             r"with constant \(k = R/(n(n-1))\)."),
@@ -681,7 +685,8 @@ class _Model:
         """The curvature chain's annotations, typeset; '' for a step that is not one of them."""
         n = self.d.metric.dimension
         if fields(step) == ("verdict", "conformally_flat", "") and n < 4:
-            return ("Conformally flat." if n != 2 else
+            return (r"Conformally flat: the Cotton tensor vanishes, \(\mathcal{C}_{abc} = 0\) (in three dimensions "
+                    r"the Weyl tensor vanishes identically)." if n == 3 else
                     "Conformally flat: in two dimensions every metric is locally conformally flat.")
         if fields(step) in CHAIN_ANNOTATIONS:
             return CHAIN_ANNOTATIONS[fields(step)]
@@ -864,6 +869,8 @@ class _Model:
             return self.condition_statement(step.component)
         if fields(step) == ("verdict", "einstein_space", ""):
             return rf"Einstein manifold: \(R_{{ij}} = \lambda g_{{ij}}\) with \(\lambda = R/{self.d.metric.dimension}\)"
+        if fields(step) == ("verdict", "conformally_flat", "") and self.d.metric.dimension == 3:
+            return r"Conformally flat: the Cotton tensor vanishes, \(\mathcal{C}_{abc} = 0\)"
         if fields(step) == ("verdict", "conformally_flat", "") and self.d.metric.dimension < 4:
             return "Conformally flat"
         return (STATEMENTS.get(fields(step)) or CHAIN_STATEMENTS.get(fields(step))
@@ -956,6 +963,8 @@ class _Model:
             return rf"\partial_{{{w.symbol(component)}}} k"
         if kind == "weyl":
             return component_symbol("weyl", names, w)
+        if kind == "cotton":
+            return component_symbol("cotton", names, w)
         if kind == "divergence":
             return rf"\nabla^a G_{{a{w.symbol(component)}}}"
         return ""
@@ -1279,6 +1288,7 @@ class _Model:
                                 ("riemann", r"Riemann components \(R^a{}_{bcd}\)"),
                                 ("ricci", r"Ricci components \(R_{ij}\)"), ("einstein", r"Einstein components \(G_{ij}\)"),
                                 ("weyl", r"Weyl components \(C_{abcd}\) (independent ones only)"),
+                                ("cotton", r"Cotton components \(\mathcal{C}_{abc}\) (every ordering)"),
                                 ("stress_energy", r"stress-energy components \(T_{ij}\)")):
             if quantity in r:
                 step_id = QUANTITIES[quantity].step_id

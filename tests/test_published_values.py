@@ -251,8 +251,9 @@ def test_three_sphere_has_constant_curvature():
     assert exactly_equal(d.results["scalar"], 6 / a**2)
     assert d.results["verdicts"]["constant_curvature"]["holds"] is True
     assert d.results["verdicts"]["einstein_space"]["holds"] is True
-    # In three dimensions conformal flatness is not decided from the Weyl tensor; stepper says so.
-    assert d.results["verdicts"]["conformally_flat"]["holds"] is None
+    # In three dimensions conformal flatness is decided by the Cotton tensor; a space of constant curvature is
+    # conformally flat (Eisenhart, Riemannian Geometry, sec. 28, from memory).
+    assert d.results["verdicts"]["conformally_flat"]["holds"] is True
 
 
 @pytest.mark.slow  # every example, the large ones included

@@ -221,3 +221,49 @@ def test_riemann_group_is_a_derivative_or_a_sum_of_christoffel_products(sphere):
     assert core.vanishes(derivative - (sp.sin(theta)**2 - sp.cos(theta)**2))
     assert core.vanishes(products + sp.cos(theta)**2)
     assert core.vanishes(derivative - products - sp.sin(theta)**2)
+
+
+def _fill_curvature_from_scratch(names, symbols, g):
+    """metric, inverse_metric, christoffel and ricci tables and the scalar curvature, computed here with plain
+    sympy (Carroll, Spacetime and Geometry, sec. 3.2-3.6, from memory)."""
+    set_coordinates(core, names, symbols)
+    fill_from_matrix(core, names, symbols, g)
+    n = len(names)
+    for a, b, c in core.every_index(3):
+        value = core.christoffel_from_metric(a, b, c)
+        if not core.vanishes(value):
+            core.christoffel[a, b, c] = value
+    for key in core.every_index(4):
+        core.riemann[key] = core.riemann_from_christoffel(*key)
+    for key in core.every_index(2):
+        value = core.ricci_from_riemann(*key)
+        if not core.vanishes(value):
+            core.ricci[key] = value
+    core.scalar_curvature = core.scalar_from_ricci()
+    assert n == 3
+
+
+def test_cotton_from_ricci_vanishes_on_r_times_s2_and_not_on_nil():
+    # R x S^2 is conformally flat (dt^2 + dOmega^2 = (dr^2 + r^2 dOmega^2)/r^2 with r = e^t; common practice),
+    # so its Cotton tensor vanishes (Eisenhart, Riemannian Geometry, sec. 28, from memory).
+    names = ["t", "theta", "phi"]
+    _fill_curvature_from_scratch(names, [t, theta, phi], sp.diag(1, 1, sp.sin(theta)**2))
+    assert core.cotton_index_sets() == [(a, b, c) for a in names for b, c in
+                                        (("t", "theta"), ("t", "phi"), ("theta", "phi"))]
+    assert all(core.vanishes(core.cotton_from_ricci(*key)) for key in core.every_index(3))
+    # Nil, dx^2 + dy^2 + (dz - x dy)^2, is not conformally flat (from memory); C_abc is antisymmetric in b, c,
+    # trace-free g^ab C_abc = 0 and its cyclic sum C_abc + C_bca + C_cab vanishes (common practice).
+    x, y, z = sp.symbols("x y z", real=True)
+    names = ["x", "y", "z"]
+    _fill_curvature_from_scratch(names, [x, y, z], sp.Matrix([[1, 0, 0], [0, 1 + x**2, -x], [0, -x, 1]]))
+    C = {key: core.cotton_from_ricci(*key) for key in core.every_index(3)}
+    assert any(not core.vanishes(value) for value in C.values())
+    for a, b, c in core.every_index(3):
+        assert core.vanishes(C[a, b, c] + C[a, c, b])
+        assert core.vanishes(C[a, b, c] + C[b, c, a] + C[c, a, b])
+    for c in names:
+        assert core.vanishes(sum(core.component(core.inverse_metric, a, b) * C[a, b, c]
+                                 for a in names for b in names))
+    table = {}
+    core.fill_cotton(table, {("x", "y", "z"): C["x", "y", "z"]})
+    assert table == {("x", "y", "z"): C["x", "y", "z"], ("x", "z", "y"): -C["x", "y", "z"]}

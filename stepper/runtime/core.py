@@ -408,6 +408,36 @@ def weyl_from_lowered(a, b, c, d):
             + scalar_curvature * (g(a, c) * g(b, d) - g(a, d) * g(b, c)) / ((n - 1) * (n - 2)))
 
 
+def covariant_derivative_of_ricci(c, a, b):
+    """nabla_c R_ab = d_c R_ab - Gamma^e_ca R_eb - Gamma^e_cb R_ae."""
+    value = sp.diff(component(ricci, a, b), coordinate[c])
+    for e in index_names:
+        value -= component(christoffel, e, c, a) * component(ricci, e, b)
+        value -= component(christoffel, e, c, b) * component(ricci, a, e)
+    return value
+
+
+def cotton_from_ricci(a, b, c):
+    """Three dimensions: C_abc = nabla_c P_ab - nabla_b P_ac with P_ab = R_ab - R g_ab / 4, that is
+    C_abc = nabla_c R_ab - nabla_b R_ac + (g_ac d_b R - g_ab d_c R) / 4."""
+    g = lambda i, j: component(metric, i, j)
+    d_scalar = lambda x: sp.diff(scalar_curvature, coordinate[x])
+    return (covariant_derivative_of_ricci(c, a, b) - covariant_derivative_of_ricci(b, a, c)
+            + (g(a, c) * d_scalar(b) - g(a, b) * d_scalar(c)) / 4)
+
+
+def cotton_index_sets():
+    """(a, b, c) with b < c: the components of C_abc the Cotton step lists (C_acb = -C_abc)."""
+    return [(a,) + pair for a in index_names for pair in index_pairs(strict=True)]
+
+
+def fill_cotton(table, recorded):
+    """Store each recorded C_abc (b < c) under both orders of b, c: C_acb = -C_abc."""
+    for (a, b, c), value in recorded.items():
+        table[a, b, c] = value
+        table[a, c, b] = -value
+
+
 def divergence(tensor, b):
     """nabla^a E_ab = g^ac (d_c E_ab - Gamma^e_ca E_eb - Gamma^e_cb E_ae) for E given as a function of index names."""
     total = sp.S.Zero
@@ -434,5 +464,6 @@ metric, metric_derivatives, inverse_metric = {}, {}, {}
 christoffel, christoffel_trace, log_sqrt_det = {}, {}, {}
 riemann, ricci, ricci_second_route, einstein = {}, {}, {}, {}
 riemann_lowered, weyl, ricci_mixed, einstein_mixed = {}, {}, {}, {}
+cotton = {}  # C_abc under both orders of b, c
 moved_components = {}  # components an audit raised or lowered, keyed (tensor, positions, index names...)
 # ---- to here ----
