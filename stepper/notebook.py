@@ -1299,7 +1299,7 @@ velocity.update(recorded_position)
 # The recorded accelerations du^a/dtau (those not listed are zero).
 recorded = {self.s.table(accelerations)}
 check_table("geodesic_equations", recorded, geodesic_from_christoffel, [(a,) for a in index_names])
-geodesic_acceleration.update({{a: sp.sympify(component(recorded, a)) for a in index_names}})
+geodesic_acceleration.update({{a: component(recorded, a) for a in index_names}})
 {self._done(step)}"""
         return "geodesic_equations", code
 

@@ -267,3 +267,14 @@ def test_cotton_from_ricci_vanishes_on_r_times_s2_and_not_on_nil():
     table = {}
     core.fill_cotton(table, {("x", "y", "z"): C["x", "y", "z"]})
     assert table == {("x", "y", "z"): C["x", "y", "z"], ("x", "z", "y"): -C["x", "y", "z"]}
+
+
+def test_runtime_helpers_refuse_text_instead_of_parsing_it():
+    # values reach the helpers as sympy objects stepper printed as code; a string is never parsed
+    with pytest.raises(sp.SympifyError):
+        core.expression("__import__('os')")
+    with pytest.raises(sp.SympifyError):
+        core.component({("t",): "1 + 1"}, "t")
+    with pytest.raises(sp.SympifyError):
+        core.vanishes("x - x")
+    assert core.expression(2) == sp.Integer(2)

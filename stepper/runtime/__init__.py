@@ -4,7 +4,7 @@ Each module holds, between two marker lines, the helper functions stepper inline
 derivation.ipynb; :func:`inlined_source` returns that part.  The notebook stays self-contained plain sympy
 (it never imports stepper), and the helpers are importable and unit-tested here like any other code.
 
-The helpers call ``sp.sympify`` only to turn the values the notebook's cells bound (sympy expressions and
+The helpers call ``sp.sympify`` (strictly, through ``core.expression``, which refuses text) only to turn the values the notebook's cells bound (sympy expressions and
 Python integers, printed by stepper as code) into sympy objects; no text ever reaches it.
 """
 

@@ -27,7 +27,7 @@ def field_equation(i, j):
 def involves_unknowns(expr):
     """Whether expr contains one of the unknown functions (or a derivative of one)."""
     heads = {unknown.func for unknown in ansatz_unknowns}
-    return any(f.func in heads for f in sp.sympify(expr).atoms(sp.core.function.AppliedUndef))
+    return any(f.func in heads for f in expression(expr).atoms(sp.core.function.AppliedUndef))
 
 
 def cannot_vanish(factor):
@@ -43,13 +43,13 @@ def cannot_vanish(factor):
     return factor in ansatz_unknowns and factor in divisors
 
 
-def check_nonzero_multiple(step, recorded, expression, part):
-    """recorded must be expression divided by a factor that cannot vanish: a product of factors free of the
+def check_nonzero_multiple(step, recorded, recomputed, part):
+    """recorded must be recomputed divided by a factor that cannot vanish: a product of factors free of the
     unknowns (not identically zero), of unknowns that divide the determinant, and of exponentials."""
     where = f"step {step}, {part}"
     if vanishes(recorded):
         raise AssertionError(f"{where}: the recorded equation is identically zero")
-    ratio = sp.factor(sp.cancel(sp.together(sp.sympify(expression) / recorded)))
+    ratio = sp.factor(sp.cancel(sp.together(expression(recomputed) / recorded)))
     numerator, denominator = sp.fraction(ratio)
     if vanishes(numerator):
         raise AssertionError(f"{where}: the recomputed expression is zero, the recorded equation is not")
@@ -67,7 +67,7 @@ def check_ansatz_equations(step, recorded, zero):
         check_nonzero_multiple(step, equation, sp.numer(sp.together(field_equation(*key))), part=f"E_{key}")
     for key, (representative, factor) in ansatz_duplicates.items():
         if vanishes(factor) or any(involves_unknowns(f) and not cannot_vanish(f)
-                                   for part in sp.fraction(sp.factor(sp.sympify(factor)))
+                                   for part in sp.fraction(sp.factor(expression(factor)))
                                    for f, _ in sp.factor_list(part)[1]):
             raise AssertionError(f"step {step}: the factor of E_{key} must be a product of factors that cannot "
                                  "vanish")
@@ -165,7 +165,7 @@ def check_rescaling(step, constant, name):
     """constant appears in g_(name name) alone, as a factor that is a function of it alone, and no component
     depends on the coordinate name: rescaling that coordinate removes it."""
     holders = [(i, j) for i, j in index_pairs() if component(ansatz_metric, i, j).has(constant)]
-    if holders != [(name, name)] or any(sp.sympify(value).has(coordinate[name]) for value in ansatz_metric.values()):
+    if holders != [(name, name)] or any(expression(value).has(coordinate[name]) for value in ansatz_metric.values()):
         raise AssertionError(f"step {step}: {constant} cannot be removed by rescaling {name}")
     _, rest = sp.factor(component(ansatz_metric, name, name)).as_independent(constant, as_Add=False)
     if rest.free_symbols != {constant}:

@@ -19,9 +19,15 @@ dimension = 0
 scalar_curvature = sp.S.Zero
 
 # ---- inlined into the notebook from here ----
+def expression(value):
+    """value as a sympy object: the notebook passes expressions stepper printed as code, never text, and
+    strict sympify refuses text rather than parse it."""
+    return sp.sympify(value, strict=True)
+
+
 def component(table, *indices):
     """A recorded tensor component, as a sympy object; components that were not recorded are zero."""
-    return sp.sympify(table.get(indices, sp.S.Zero))
+    return expression(table.get(indices, sp.S.Zero))
 
 
 def index_pairs(strict=False):
@@ -222,7 +228,7 @@ def vanishes(expr):
     leading terms c**2 share no variable, so that remainder is unique.
     Anything else is left to sp.simplify.
     """
-    expr = sp.sympify(expr)
+    expr = expression(expr)
     if expr == 0:
         return True
     parts = polynomial_quotient(expr)
@@ -239,7 +245,7 @@ def vanishes_with_roots(expr):
     """True when expr is zero with every root, |x| and other function treated as a new symbol, and each
     root g of a polynomial b reduced by g**q = b (see opaque_atoms): a proof that it vanishes.  False
     means only that this test did not show it."""
-    expr = sp.sympify(expr)
+    expr = expression(expr)
     if expr == 0:
         return True
     parts = polynomial_quotient(*opaque_atoms(expr))
@@ -251,7 +257,7 @@ def vanishes_with_roots(expr):
 
 def check(step, recorded, recomputed, part=None):
     """Raise AssertionError naming the step unless recorded == recomputed exactly."""
-    if not vanishes(sp.sympify(recomputed) - sp.sympify(recorded)):
+    if not vanishes(expression(recomputed) - expression(recorded)):
         where = f"step {step}" + (f", {part}" if part else "")
         shown = str(recorded)
         shown = shown if len(shown) <= 200 else shown[:200] + " ..."

@@ -21,12 +21,6 @@ energy_density = sp.S.Zero
 # Matter: the stress-energy tensor, the orthonormal frame, the energy conditions
 # ---------------------------------------------------------------------------
 
-def expression(value):
-    """value as a sympy object: the notebook passes expressions stepper printed as code, never text, and
-    strict sympify refuses text rather than parse it."""
-    return sp.sympify(value, strict=True)
-
-
 def stress_energy_from_einstein(i, j):
     """T_ij = (G_ij + Lambda g_ij) / kappa."""
     return (component(einstein, i, j) + cosmological_constant * component(metric, i, j)) / kappa
