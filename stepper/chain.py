@@ -906,31 +906,29 @@ class _Chain:
                       {"k": self.expr(k)})
 
     def kretschmann(self) -> None:
+        """K = R_abcd R^abcd = 4 tr(G R G R) over pairs A = (a < b): R_AB = R_abcd with A = (a,b), B = (c,d),
+        and G^AB = g^ac g^bd - g^ad g^bc the inverse metric on pairs, so R^AB = G^AE R_EF G^FB."""
         n, A, ginv = self.n, self.A, self.ginv
         indices = list(_independent_riemann_indices(n))
-        # Raise one index at a time: up[a,b,c,d] holds R with the first m indices raised.
-        current = {idx: self.full_lowered(*idx) for idx in itertools.product(range(n), repeat=4)}
-        for position in range(4):
-            raised = {}
-            for idx in itertools.product(range(n), repeat=4):
-                if idx[1:] == (0, 0, 0):
-                    self.progress(f"kretschmann raise {position + 1}/4, row {idx[0] + 1}/{n}", position, 4)
+        pairs = [(a, b) for a in range(n) for b in range(a + 1, n)]
+        bivector_inverse = [[ginv[a][c] * ginv[b][d] - ginv[a][d] * ginv[b][c] for c, d in pairs] for a, b in pairs]
+        lowered = [[self.full_lowered(a, b, c, d) for c, d in pairs] for a, b in pairs]
+        mixed = []  # (G R)^A_B
+        for row, G_row in enumerate(bivector_inverse):
+            self.progress(f"kretschmann pair row {row + 1}/{len(pairs)}", row, len(pairs))
+            entries = []
+            for column in range(len(pairs)):
                 total = A.zero
-                for e in range(n):
-                    if self.is_zero(ginv[idx[position]][e]):
-                        continue
-                    other = idx[:position] + (e,) + idx[position + 1:]
-                    if not self.is_zero(current[other]):
-                        total = total + ginv[idx[position]][e] * current[other]
-                raised[idx] = total
-            current = raised
-            self.progress(f"kretschmann raise {position + 1}/4", position + 1, 4)
+                for middle, G_entry in enumerate(G_row):
+                    if not self.is_zero(G_entry) and not self.is_zero(lowered[middle][column]):
+                        total = total + G_entry * lowered[middle][column]
+                entries.append(total)
+            mixed.append(entries)
         value = A.zero
-        for a, b, c, d in itertools.product(range(n), repeat=4):
-            if a < b and c < d:
-                low = self.full_lowered(a, b, c, d)
-                if not self.is_zero(low) and not self.is_zero(current[a, b, c, d]):
-                    value = value + low * current[a, b, c, d]
+        for row in range(len(pairs)):
+            for column in range(len(pairs)):
+                if not self.is_zero(mixed[row][column]) and not self.is_zero(mixed[column][row]):
+                    value = value + mixed[row][column] * mixed[column][row]
         value = value * 4
         self.results["kretschmann"] = self.expr(value)
         self.record(id="kretschmann", kind="invariant", quantity="kretschmann",

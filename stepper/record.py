@@ -360,6 +360,23 @@ class PlotRequest:
 
 
 @dataclass(frozen=True)
+class FrameRequest:
+    """A frame of the user's own (the metric file's ``[frame]``): an orthonormal frame or a null tetrad.
+
+    ``kind`` is "orthonormal" (vectors e0 ... e(n-1), e0 timelike in Lorentzian signature) or "null"
+    (vectors l, n, m of a null tetrad with l.n = -1, m.mbar = 1, all others 0; mbar is the complex
+    conjugate of m, whose components may hold sympy.I; in more than four dimensions the remaining
+    unit spacelike vectors follow as e4, e5, ...).  ``vectors`` are (name, components) in the metric's
+    coordinates, with upper indices when ``index`` is "up" and lower indices when it is "down", exactly
+    as the file wrote them; the engine raises covectors as a recorded step.
+    """
+
+    kind: str
+    vectors: tuple[tuple[str, tuple[sympy.Expr, ...]], ...]
+    index: str = "up"
+
+
+@dataclass(frozen=True)
 class MetricRecord:
     """An n-dimensional metric g_ij in coordinates x^i, with what it was built from and what was asked."""
 
@@ -382,6 +399,8 @@ class MetricRecord:
     function_signs: tuple[FunctionSign, ...] = ()
     #: The plots asked for with ``[[plot]]``, in the order of the metric file.
     plots: tuple[PlotRequest, ...] = ()
+    #: The frame or null tetrad given with ``[frame]``; None when stepper builds its own.
+    frame: FrameRequest | None = None
 
     @property
     def extra_symbols(self) -> tuple[sympy.Symbol, ...]:
