@@ -3,6 +3,7 @@
     python3 bench/run.py                  # everything (the baseline for Kerr takes many minutes)
     python3 bench/run.py --quick          # small metrics only
     python3 bench/run.py --baseline-limit 300 --repeats 3
+    python3 bench/run.py --only forms --compare-root /tmp/before   # the same geometry in the forms people use
 
 For each metric it times, in fresh processes:
   * the baseline (bench/baseline.py: Christoffel, Ricci by contracting Riemann, simplify() on each component;
@@ -43,6 +44,22 @@ NAMED = [
 ]
 SLOW_BASELINES = {"Kerr", "Kerr-Newman", "Kerr, with [matter]"}
 
+#: The same geometry in the forms people write it (--only forms): exponentials and square roots against
+#: free functions and rational forms.  Timed with --jobs 1, with and without the invariants; --compare-root
+#: adds the time of another checkout of stepper (an older version) on the same file.
+FORMS = [
+    ("static star, exp(2 Phi), exp(2 Lambda)", BENCH_METRICS / "static_star_exponential.toml"),
+    ("static star, A(r), B(r)", BENCH_METRICS / "static_star_plain.toml"),
+    ("Schwarzschild, Kerr-Schild x,y,z", BENCH_METRICS / "schwarzschild_kerr_schild.toml"),
+    ("Schwarzschild, t,r,theta,phi", BENCH_METRICS / "schwarzschild_standard.toml"),
+    ("Schwarzschild, isotropic", BENCH_METRICS / "schwarzschild_isotropic.toml"),
+    ("Schwarzschild, ingoing EF", BENCH_METRICS / "schwarzschild_ingoing.toml"),
+    ("Schwarzschild, Painleve-Gullstrand", BENCH_METRICS / "schwarzschild_painleve.toml"),
+    ("exponential metric exp(+-2M/r)", BENCH_METRICS / "exponential_mass_metric.toml"),
+    ("surface exp(2w)(dx^2 + dy^2)", BENCH_METRICS / "conformal_surface_exponential.toml"),
+    ("de Sitter, exp(2Ht) flat slicing", EXAMPLES / "inflating_universe.toml"),
+]
+
 #: Metric files asking for more than curvature, timed against bench/baseline_beyond.py.
 BEYOND = [
     ("wormhole, with [matter]", EXAMPLES / "wormhole_passage.toml"),
@@ -78,10 +95,10 @@ def scale_factor_file(n: int, folder: Path) -> Path:
     return path
 
 
-def run_measured(command: list[str], limit: float | None = None) -> float:
+def run_measured(command: list[str], limit: float | None = None, cwd: Path = ROOT) -> float:
     """Wall seconds of one child process; infinity when it passes ``limit``."""
     start = time.perf_counter()
-    child = subprocess.Popen(command, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, cwd=ROOT,
+    child = subprocess.Popen(command, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, cwd=cwd,
                              env=dict(os.environ, SOURCE_DATE_EPOCH="0"))
     try:
         _, err = child.communicate(timeout=limit)
@@ -129,6 +146,37 @@ def measure(label: str, path: Path, dimension: int, args, out: Path, script: str
     return row
 
 
+def measure_form(label: str, path: Path, args, out: Path) -> dict:
+    """One row of the forms family: baseline, the other checkout (--compare-root), stepper with and without
+    the invariants (trace only, --jobs 1), and stepper's peak memory with the invariants."""
+    row = {"metric": label}
+    row["baseline"] = None if args.no_baseline else run_measured(
+        [sys.executable, str(ROOT / "bench" / "baseline.py"), str(path)], limit=args.baseline_limit)
+    command = stepper_command(path, "trace", out) + ["--jobs", "1"]
+    try:
+        row["before"] = None if not args.compare_root else run_measured(command, limit=args.baseline_limit,
+                                                                         cwd=Path(args.compare_root))
+    except RuntimeError:  # the other checkout failed on this file
+        row["before"] = float("nan")
+    row["stepper"] = statistics.median(run_measured(command) for _ in range(args.repeats))
+    row["no_invariants"] = statistics.median(run_measured(command + ["--skip-invariants"])
+                                             for _ in range(args.repeats))
+    row["memory_mib"] = peak_memory_kib(command) / 1024
+    return row
+
+
+FORMS_HEADER = (f"{'metric':40} {'baseline s':>11} {'before s':>9} {'stepper s':>10} {'no inv s':>9} "
+                f"{'ratio':>7} {'peak MiB':>9}")
+
+
+def form_row(row: dict, limit: float) -> str:
+    base = row["baseline"]
+    ratio = "-" if base is None else f">{limit / row['stepper']:.0f}" if base == float("inf") else \
+        f"{base / row['stepper']:.1f}"
+    return (f"{row['metric']:40} {format_seconds(base, limit):>11} {format_seconds(row['before'], limit):>9} "
+            f"{row['stepper']:>10.2f} {row['no_invariants']:>9.2f} {ratio:>7} {row['memory_mib']:>9.0f}")
+
+
 def format_seconds(value, limit) -> str:
     if value is None:
         return "-"
@@ -159,9 +207,20 @@ def main() -> None:
     parser.add_argument("--baseline-limit", type=float, default=1800, help="seconds before a baseline is stopped")
     parser.add_argument("--repeats", type=int, default=3, help="runs per stepper measurement (median)")
     parser.add_argument("--largest", type=int, default=8, help="largest dimension of the growing families")
-    parser.add_argument("--only", choices=("named", "families", "beyond"),
-                        help="run only the named metrics, the families, or the files asking for more than curvature")
+    parser.add_argument("--only", choices=("named", "families", "beyond", "forms"),
+                        help="run only the named metrics, the families, the files asking for more than curvature, "
+                             "or the same geometry in the forms people use (ratio = baseline / stepper)")
+    parser.add_argument("--compare-root", help="forms: also time the stepper of this checkout (an older version)")
     args = parser.parse_args()
+    if args.only == "forms":
+        with tempfile.TemporaryDirectory(prefix="stepper-bench-") as folder:
+            print(f"python {sys.version.split()[0]}, {os.cpu_count()} cores; stepper --formats trace --jobs 1, "
+                  f"median of {args.repeats} runs; limit {args.baseline_limit:.0f} s", flush=True)
+            print(FORMS_HEADER)
+            print("-" * len(FORMS_HEADER), flush=True)
+            for label, path in FORMS:
+                print(form_row(measure_form(label, path, args, Path(folder) / "out"), args.baseline_limit), flush=True)
+        return
     rows = []
     with tempfile.TemporaryDirectory(prefix="stepper-bench-") as folder:
         folder = Path(folder)

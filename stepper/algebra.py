@@ -8,18 +8,69 @@ result vanishes.  Two arithmetics implement that contract:
 * :class:`FieldArithmetic` -- elements are quotients of integer polynomials in
   a fixed list of generators: the coordinates and parameters, ``sin x`` and
   ``cos x`` (or ``sinh x`` and ``cosh x``) for each argument ``x`` that occurs,
-  and every partial derivative of each free function up to a fixed order.
-  The relations ``cos^2 x = 1 - sin^2 x`` and ``cosh^2 x = 1 + sinh^2 x`` are
-  applied after every operation and denominators are kept free of ``cos x``,
-  which makes the representation canonical: an element is zero exactly when
-  its numerator is the zero polynomial.  Zero tests are therefore proofs.
+  every partial derivative of each free function up to a fixed order,
+  exponentials (``exp(q t)``, see below) and square roots (``s`` with
+  ``s^2 = p``, see below).
+  The relations ``cos^2 x = 1 - sin^2 x``, ``cosh^2 x = 1 + sinh^2 x`` and
+  ``s^2 = p`` are applied after every operation and denominators are kept free
+  of ``cos x`` and of every root (multiplied by the conjugate), which makes the
+  representation canonical: an element is zero exactly when its numerator is
+  the zero polynomial.  Zero tests are therefore proofs.
 * :class:`ExpressionArithmetic` -- plain sympy expressions, for metrics with
-  functions the field cannot hold (``sqrt``, ``log``, ``exp``, trigonometric
-  functions of compound arguments).  A zero test first tries sympy's
+  functions the field cannot hold (``log``, trigonometric functions of compound
+  arguments, roots of squares, ...).  A zero test first tries sympy's
   ``cancel`` and ``simplify``; when they cannot decide, it evaluates the
-  expression at random points and says so.
+  expression at random points and says so.  :func:`choose_arithmetic` picks the
+  field whenever every metric component fits, and otherwise records which
+  subexpression forced the fallback (``slow_path_because``).
 
-:func:`choose_arithmetic` picks the field whenever every metric component fits.
+Exponentials.  Every argument of ``exp`` must be an element of the field built
+from the other generators (coordinates, parameters, trigonometric pairs, free
+functions).  Each argument ``a/D`` (canonical form) is split into its terms
+``c m / D``; each term is brought to lowest terms and written as a rational
+number times a primitive "atom" ``t`` (monomial with coefficient 1 over a
+primitive denominator).  For each atom the field holds one generator
+``E_t = exp(q_t t)``, ``q_t`` the positive rational gcd of the coefficients the
+atom carries in all arguments, so ``exp(a + b) = exp(a) exp(b)`` and integer
+multiples fold: ``exp(-2 Phi)`` is ``E^-2``, a power of ``E`` in the
+denominator.  ``d E_t / dx = q_t (dt/dx) E_t``.  A rational constant term
+(``exp(2 Phi + 1)``, or ``E`` itself) gets the atom ``1``: the generator
+``exp(q)``, a transcendental number (Hermite-Lindemann) with derivative 0.
+
+Why this stays canonical.  Read every coordinate and parameter as a variable
+with its own derivation, and a free function as generic (its derivatives are
+algebraically independent).  A logarithmic derivative ``df/f`` of an element
+``f`` of the base field has only simple poles, and ``f`` without zeros or poles
+is a unit of the coordinate ring, a constant (over Q the polynomial ring and the
+circle's ring ``Q[c, s]/(c^2 + s^2 - 1)`` have no other units).  Hence
+``exp(g)`` lies in the base field only for constant ``g``.  By the
+Kolchin-Ostrowski theorem (exponentials ``y_i`` with ``dy_i / y_i`` in the
+field are algebraically dependent over it only if some product of integer
+powers lies in it; Risch's structure theorem and Ax's theorem say the same),
+the ``E_t`` are algebraically independent over the base field as soon as no
+non-trivial rational combination of the atoms is constant, which is checked
+(trivially true for polynomial arguments: distinct monomials).  Over
+``cosh``/``sinh`` the ring has the units ``cosh x +- sinh x = exp(+-x)``: when
+an atom is the argument of a hyperbolic pair, every hyperbolic function is
+rewritten through ``exp`` instead (so is any ``sinh``/``cosh`` of a compound
+argument).  With the ``E_t`` independent transcendentals, the quotient of
+polynomials in lowest terms is unique, so a zero test remains a proof.
+
+Square roots.  ``sqrt(R)`` with ``R = n/d`` (canonical, free of cosines)
+becomes the generator ``s = d sqrt(n/d)`` with ``s^2 = p = n d``, a polynomial
+in the other generators (``sqrt(R) = s/d``; no absolute value is taken: ``s``
+is defined as that product).  ``d s/dx = p' s / (2 p)``.  Numerators hold
+``s`` at most linearly and denominators not at all (the conjugate ``d0 - d1
+s`` is multiplied in, exactly as for ``cos``): the cosines themselves are the
+roots ``sqrt(1 - sin^2)``.  This is canonical when the field is a Kummer
+extension of degree ``2^k`` of the purely transcendental field the radicands
+live in, i.e. when all radicands, the trigonometric ones ``1 -+ sin^2``
+included, are independent modulo squares.  That is checked by factorisation:
+the vectors over GF(2) of the odd-multiplicity parts (sign, primes of the
+integer content, irreducible factors) must be linearly independent.  A
+radicand that is a square (``sqrt(f^2) = |f|``) or a product of others times a
+square is refused (the sign of the root it would equal is not known), nested
+roots and other fractional powers are refused.
 """
 
 from __future__ import annotations
@@ -40,6 +91,13 @@ from .sampling import signed_sample
 #: those in the metric.  The chain differentiates the metric at most three
 #: times (the contracted Bianchi identity differentiates the Einstein tensor).
 EXTRA_DERIVATIVE_ORDERS = 3
+
+#: Numerators with fewer terms are brought to lowest terms with a gcd; longer ones by trial division with the
+#: irreducible factors of the denominator (see :meth:`FieldArithmetic._cancel`).
+CANCEL_BY_FACTORS_MIN_TERMS = 1
+
+#: Denominators (after division by the factors already known) with more terms than this are not factored.
+FACTOR_DENOMINATOR_TERMS_LIMIT = 60
 
 #: Polynomials in more generators than this are shown unfactored: multivariate
 #: factoring costs far more than the rest of the derivation there.
@@ -75,7 +133,26 @@ class ZeroTest:
 
 
 class UnsupportedByField(Exception):
-    """An expression uses something the rational-function field cannot hold."""
+    """An expression uses something the rational-function field cannot hold.
+
+    ``reason`` says in plain words what the field lacks, ``subexpression`` (a sympy expression, or None)
+    is the part of the input that needs it; the message names both."""
+
+    def __init__(self, reason: str, subexpression: sympy.Expr | None = None):
+        self.reason = reason
+        self.subexpression = subexpression
+        super().__init__(reason if subexpression is None else f"{reason}: {subexpression}")
+
+    def as_data(self) -> dict:
+        """The reason as data for a step's params (text, and the subexpression when there is one)."""
+        data: dict = {"reason": self.reason}
+        if self.subexpression is not None:
+            data["expression"] = self.subexpression
+        return data
+
+
+class _HyperbolicCollision(Exception):
+    """An exponential's atom is the argument of a sinh/cosh pair (cosh x + sinh x = exp x)."""
 
 
 def printer_stable(expr: sympy.Expr) -> sympy.Expr:
@@ -138,14 +215,23 @@ RECIPROCAL_FUNCTIONS = {
 """tan, cot, sec, csc and their hyperbolic kin through sin, cos, sinh and cosh."""
 
 
-def _rewrite_for_field(expr: sympy.Expr) -> sympy.Expr:
+def _rewrite_for_field(expr: sympy.Expr, hyperbolic_as_exp: bool = False) -> sympy.Expr:
     """Rewrite tan, cot, sec, csc, tanh, coth, sech, csch through sin/cos, sinh/cosh and
-    expand multiple angles such as sin(2x) = 2 sin x cos x."""
+    expand multiple angles such as sin(2x) = 2 sin x cos x; sinh and cosh of a compound argument (of every
+    argument with ``hyperbolic_as_exp``) through exp; a fractional power of an exponential as one exponential
+    (every quantity here is real, so exp(a)^r = exp(r a))."""
     for head, rule in RECIPROCAL_FUNCTIONS.items():
         if expr.has(head):
             expr = expr.replace(head, rule)
     if expr.has(sympy.sin, sympy.cos, sympy.sinh, sympy.cosh):
         expr = sympy.expand_trig(expr)
+    if expr.has(sympy.sinh, sympy.cosh):
+        expr = expr.replace(
+            lambda e: isinstance(e, (sympy.sinh, sympy.cosh)) and (hyperbolic_as_exp or not e.args[0].is_Symbol),
+            lambda e: (sympy.exp(e.args[0]) + (1 if isinstance(e, sympy.cosh) else -1) * sympy.exp(-e.args[0])) / 2)
+    if expr.has(sympy.exp):
+        expr = expr.replace(lambda e: e.is_Pow and isinstance(e.base, sympy.exp) and not e.exp.is_Integer,
+                            lambda e: sympy.exp(e.exp * e.base.args[0]))
     return expr
 
 
@@ -165,15 +251,19 @@ def _derivative_orders(expr: sympy.Derivative) -> dict[sympy.Symbol, int]:
 
 
 class _Scan:
-    """Collect what a set of expressions needs from the field, or fail."""
+    """Collect what a set of expressions needs from the field, or fail naming the subexpression."""
 
     def __init__(self, coordinates: Sequence[sympy.Symbol]):
         self.coordinates = tuple(coordinates)
         self.symbols: set[sympy.Symbol] = set()
         self.pairs: set[_Pair] = set()
         self.functions: dict[sympy.Expr, int] = {}  # applied function -> highest order seen
+        self.exponentials: set[sympy.Expr] = set()  # arguments of exp
+        self.roots: set[sympy.Expr] = set()  # radicands of square roots
 
-    def visit(self, expr: sympy.Expr) -> None:
+    def visit(self, expr: sympy.Expr, inside: str = "", in_exponent: bool = False) -> None:
+        """``inside`` names what holds ``expr`` when no root may occur there (a root or an exponent),
+        ``in_exponent`` says no exponential may occur there either."""
         if expr.is_Rational:
             return
         if expr.is_Symbol:
@@ -181,24 +271,41 @@ class _Scan:
             return
         if isinstance(expr, (sympy.Add, sympy.Mul)):
             for arg in expr.args:
-                self.visit(arg)
+                self.visit(arg, inside, in_exponent)
+            return
+        if expr is sympy.E:
+            if in_exponent:
+                raise UnsupportedByField("an exponential inside the argument of an exponential", expr)
+            self.exponentials.add(sympy.Integer(1))
+            return
+        if isinstance(expr, sympy.exp):
+            if in_exponent:
+                raise UnsupportedByField("an exponential inside the argument of an exponential", expr)
+            self.exponentials.add(expr.args[0])
+            self.visit(expr.args[0], "the argument of an exponential", True)
             return
         if isinstance(expr, sympy.Pow):
-            if not (expr.exp.is_Integer):
-                raise UnsupportedByField(f"non-integer power {expr}")
-            self.visit(expr.base)
-            return
+            if expr.exp.is_Integer:
+                self.visit(expr.base, inside, in_exponent)
+                return
+            if expr.exp.is_Rational and expr.exp.q == 2:
+                if inside:
+                    raise UnsupportedByField(f"a square root inside {inside}", expr)
+                self.roots.add(expr.base)
+                self.visit(expr.base, "a square root", in_exponent)
+                return
+            raise UnsupportedByField("a power with an exponent other than an integer or a half-integer", expr)
         if isinstance(expr, (sympy.sin, sympy.cos, sympy.sinh, sympy.cosh)):
             arg = expr.args[0]
             if not arg.is_Symbol:
-                raise UnsupportedByField(f"{expr.func.__name__} of a compound argument")
+                raise UnsupportedByField(f"{_FUNCTION_WORDS[type(expr)]} of a compound argument", expr)
             hyperbolic = isinstance(expr, (sympy.sinh, sympy.cosh))
             self.pairs.add(_Pair(arg, hyperbolic))
             self.symbols.add(arg)
             return
         if isinstance(expr, AppliedUndef):
             if not all(a in self.coordinates for a in expr.args):
-                raise UnsupportedByField(f"function {expr} of non-coordinate arguments")
+                raise UnsupportedByField("a function of arguments other than coordinates", expr)
             self.functions.setdefault(expr, 0)
             return
         if isinstance(expr, sympy.Derivative) and isinstance(expr.expr, AppliedUndef):
@@ -206,7 +313,17 @@ class _Scan:
             base = expr.expr
             self.functions[base] = max(self.functions.get(base, 0), order)
             return
-        raise UnsupportedByField(f"{type(expr).__name__} is not held by the field")
+        raise UnsupportedByField(f"{_FUNCTION_WORDS.get(type(expr), 'the function ' + type(expr).__name__)}, "
+                                 "which the field does not hold", expr)
+
+
+_FUNCTION_WORDS = {sympy.sin: "the sine", sympy.cos: "the cosine", sympy.sinh: "the hyperbolic sine",
+                   sympy.cosh: "the hyperbolic cosine", sympy.log: "the logarithm", sympy.Abs: "the absolute value",
+                   sympy.asin: "the inverse sine", sympy.acos: "the inverse cosine", sympy.atan: "the inverse tangent",
+                   sympy.asinh: "the inverse hyperbolic sine", sympy.acosh: "the inverse hyperbolic cosine",
+                   sympy.atanh: "the inverse hyperbolic tangent", sympy.Integral: "an integral",
+                   sympy.Piecewise: "a piecewise expression", sympy.sign: "the sign function",
+                   type(sympy.pi): "the number pi"}
 
 
 # --------------------------------------------------------------------------
@@ -248,7 +365,7 @@ class RationalFunction:
             return self
         if self.den == other.den:
             return f.make(self.num + other.num, self.den)
-        g = self.den.gcd(other.den)
+        g = f._gcd_of_denominators(self.den, other.den)
         left, right = self.den.exquo(g), other.den.exquo(g)
         return f.make(self.num * right + other.num * left, left * other.den)
 
@@ -274,8 +391,8 @@ class RationalFunction:
         if not self.num or not other.num:
             return f.zero
         # Cross-cancel first: both operands are already in lowest terms.
-        a, d = self.num.cancel(other.den) if other.den != 1 else (self.num, other.den)
-        c, b = other.num.cancel(self.den) if self.den != 1 else (other.num, self.den)
+        a, d = f._cancel(self.num, other.den) if other.den != 1 else (self.num, other.den)
+        c, b = f._cancel(other.num, self.den) if self.den != 1 else (other.num, self.den)
         return f.make(a * c, b * d, reduced_fraction=True)
 
     __rmul__ = __mul__
@@ -324,9 +441,85 @@ class RationalFunction:
         return f"RationalFunction({self.field.to_expr(self)})"
 
 
+@dataclass(frozen=True)
+class _Relation:
+    """A generator g held at most linearly: g^2 = ``square`` (a polynomial free of every such generator).
+    ``partner`` is the sine's index for cos^2 = 1 + sign sin^2 (``sign`` -1 circular, 1 hyperbolic);
+    None (sign 0) for a square root."""
+
+    index: int
+    square: PolyElement
+    partner: int | None = None
+    sign: int = 0
+
+
+@dataclass(frozen=True)
+class _Exponential:
+    """The generator exp(q t) for an atom t (num/den in the base ring)."""
+
+    atom_num: PolyElement
+    atom_den: PolyElement
+    q: sympy.Rational
+    original: sympy.Expr
+
+
+class _Fails:
+    """A derivative rule that cannot be applied (raised when a polynomial holding the generator is differentiated)."""
+
+    def __init__(self, error: Exception):
+        self._error = error
+
+    def error(self) -> Exception:
+        return self._error
+
+
+def _lift(poly: PolyElement, target) -> PolyElement:
+    """A polynomial of a smaller ring (whose generators are the first ones of ``target``) in ``target``."""
+    if poly.ring is target:
+        return poly
+    pad = (0,) * (target.ngens - poly.ring.ngens)
+    return target.from_dict({monom + pad: coeff for monom, coeff in poly.items()}) if poly else target.zero
+
+
+def _poly_key(poly: PolyElement) -> tuple:
+    return tuple(sorted(poly.items()))
+
+
+#: Integer contents of radicands are factored only when what is left after trial division by the primes below
+#: SMALL_PRIMES_BOUND is below FACTOR_INTEGER_LIMIT (a number of up to 2048 bits could take hours).
+SMALL_PRIMES_BOUND = 10_000
+FACTOR_INTEGER_LIMIT = 10**18
+
+
+def _small_factorization(n: int, root: sympy.Expr) -> dict[int, int]:
+    """The prime factorisation of a radicand's integer content, or UnsupportedByField when it is too hard."""
+    found: dict[int, int] = {}
+    for prime in sympy.primerange(2, SMALL_PRIMES_BOUND):
+        if n == 1 or prime * prime > n:
+            break
+        while n % prime == 0:
+            n //= prime
+            found[prime] = found.get(prime, 0) + 1
+    if n > 1:
+        if n >= FACTOR_INTEGER_LIMIT:
+            raise UnsupportedByField("a square root of a number with large prime factors", root)
+        for prime, multiplicity in sympy.factorint(n).items():
+            found[prime] = found.get(prime, 0) + multiplicity
+    return found
+
+
+def _rational_gcd(values: Iterable[sympy.Rational]) -> sympy.Rational:
+    numerator, denominator = 0, 1
+    for v in values:
+        v = sympy.Rational(v)
+        numerator = sympy.igcd(numerator, abs(int(v.p)))
+        denominator = sympy.ilcm(denominator, int(v.q))
+    return sympy.Rational(numerator, denominator)
+
+
 class FieldArithmetic:
-    """Exact arithmetic in Q(parameters, coordinates, sin, cos, f, f', ...)
-    modulo cos^2 + sin^2 = 1 and cosh^2 - sinh^2 = 1.
+    """Exact arithmetic in Q(parameters, coordinates, sin, cos, f, f', ..., exp(q t), s)
+    modulo cos^2 + sin^2 = 1, cosh^2 - sinh^2 = 1 and s^2 = p.
 
     Built once per metric from the expressions it must hold.
     """
@@ -342,20 +535,33 @@ class FieldArithmetic:
     def rewrite(self) -> str:
         """The rewrite applied to every result, named for the generators this metric needs."""
         rules = []
-        if any(sign < 0 for _, _, sign in self._relations):
+        if any(r.sign < 0 for r in self._relations):
             rules.append("cos² = 1 − sin²")
-        if any(sign > 0 for _, _, sign in self._relations):
+        if any(r.sign > 0 for r in self._relations):
             rules.append("cosh² = 1 + sinh²")
+        if self._exponentials:
+            rules.append("products of exponentials as one exponential of the sum")
+        if self._roots:
+            rules.append("s² = p for each square root s = √p")
         return "canonical rational form" + (", with " + " and ".join(rules) if rules else "")
 
     def __init__(self, coordinates: Sequence[sympy.Symbol], expressions: Iterable[sympy.Expr]):
-        scan = _Scan(coordinates)
+        self.coordinates = tuple(coordinates)
+        expressions = [as_expression(e) for e in expressions]
+        self._hyperbolic_as_exp = False
+        try:
+            self._build(expressions)
+        except _HyperbolicCollision:
+            self._hyperbolic_as_exp = True
+            self._build(expressions)
+
+    def _build(self, expressions: list[sympy.Expr]) -> None:
+        scan = _Scan(self.coordinates)
         prepared = []
         for expr in expressions:
-            expr = _rewrite_for_field(as_expression(expr))
+            expr = _rewrite_for_field(expr, self._hyperbolic_as_exp)
             scan.visit(expr)
             prepared.append(expr)
-        self.coordinates = tuple(coordinates)
         pairs = sorted(scan.pairs, key=lambda p: (p.hyperbolic, p.argument.name))
         plain = sorted(scan.symbols, key=lambda s: s.name)
         functions = sorted(scan.functions, key=sympy.default_sort_key)
@@ -368,6 +574,40 @@ class FieldArithmetic:
         originals += plain
         for applied in functions:
             originals += _function_derivatives(applied, scan.functions[applied] + EXTRA_DERIVATIVE_ORDERS)
+        self._prepared = prepared
+        if not scan.exponentials and not scan.roots:
+            self._setup(originals, pairs, (), ())
+            return
+        base = self._stage(originals, pairs, (), (), None)
+        exponentials = base._exponential_generators(scan.exponentials, pairs) if scan.exponentials else ()
+        with_exponentials = self._stage(originals, pairs, exponentials, (), base) if exponentials else base
+        roots = with_exponentials._root_generators(scan.roots) if scan.roots else ()
+        self._base, self._with_exponentials = base, with_exponentials
+        self._setup(originals, pairs, exponentials, roots)
+        parts = (["the exponentials of rational multiples of the terms of each exponent"] if exponentials else []) + \
+                (["square roots s = √p reduced with s² = p, the denominator free of them"] if roots else [])
+        self.description = type(self).description + "; with " + " and ".join(parts)
+
+    def _stage(self, originals, pairs, exponentials, roots, base) -> "FieldArithmetic":
+        """A field over the first generators only (for reading the exponents and radicands)."""
+        stage = object.__new__(FieldArithmetic)
+        stage.coordinates = self.coordinates
+        stage._hyperbolic_as_exp = self._hyperbolic_as_exp
+        stage._prepared = ()
+        stage._base = base
+        stage._with_exponentials = stage
+        stage._setup(originals, pairs, exponentials, roots)
+        return stage
+
+    def _setup(self, originals, pairs, exponentials, roots) -> None:
+        """The ring, the relations and the derivative rules for these generators.
+
+        ``exponentials``: the :class:`_Exponential` generators after ``originals``; ``roots``: (original,
+        radicand as a polynomial of the ring before the roots, key) for the square roots after those."""
+        self._exponentials = tuple(exponentials)
+        self._roots = tuple(roots)
+        self._base_count = len(originals)
+        originals = list(originals) + [e.original for e in exponentials] + [r[0] for r in roots]
         self._originals = originals
         names = [f"g{i}" for i in range(len(originals))] or ["g0"]
         self.ring, *gens = ring(",".join(names), sympy.ZZ)
@@ -375,17 +615,155 @@ class FieldArithmetic:
             gens = []
         self._gen_of = {orig: gen for orig, gen in zip(originals, gens)}
         self._gen_index = {orig: i for i, orig in enumerate(originals)}
-        # (cos index, sin index, sign) with cos^2 = 1 + sign * sin^2
-        self._relations = []
+        self._relations: list[_Relation] = []
         for k, pair in enumerate(pairs):
             sign = 1 if pair.hyperbolic else -1
-            self._relations.append((2 * k, 2 * k + 1, sign))
+            s = gens[2 * k + 1]
+            self._relations.append(_Relation(2 * k, self.ring.one + sign * s**2, 2 * k + 1, sign))
+        first_root = self._base_count + len(self._exponentials)
+        self._root_index = {}
+        for k, (_, radicand, key) in enumerate(self._roots):
+            self._relations.append(_Relation(first_root + k, _lift(radicand, self.ring)))
+            self._root_index[key] = first_root + k
         self._reduction_cache: dict[tuple[int, int], PolyElement] = {}
         self._factor_cache: dict = {}
-        self._derivative_rules = [self._rules_for(x) for x in self.coordinates]
+        self._factorizations: dict = {}
+        self._irreducibles: list[PolyElement] = []
         self.zero = RationalFunction(self, self.ring.zero, self.ring.one)
         self.one = RationalFunction(self, self.ring.one, self.ring.one)
-        self._prepared = prepared
+        self._derivative_rules = [self._rules_for(k, x) for k, x in enumerate(self.coordinates)]
+        self._check_roots_independent()
+
+    # the exponentials and roots a metric needs ------------------------------
+    def _atoms_of(self, argument: sympy.Expr):
+        """An exponent split into {atom key: (atom num, atom den, coefficient)} and its constant term."""
+        try:
+            element = self._convert(_rewrite_for_field(argument, self._hyperbolic_as_exp))
+        except (UnsupportedByField, ZeroDivisionError):
+            raise UnsupportedByField("an exponential whose argument the field cannot hold", sympy.exp(argument)) from None
+        atoms: dict = {}
+        constant = sympy.Integer(0)
+        for monom, coeff in element.num.items():
+            term = self.make(self.ring.from_dict({monom: coeff}), element.den)
+            if len(term.num) != 1:
+                raise UnsupportedByField("an exponential whose argument does not split into terms",
+                                         sympy.exp(argument))
+            (t_monom, t_coeff), = term.num.items()
+            den_content = sympy.igcd(*[int(c) for c in term.den.values()]) if len(term.den) > 1 else abs(int(term.den.LC))
+            coefficient = sympy.Rational(int(t_coeff), den_content)
+            atom_num = self.ring.from_dict({t_monom: 1})
+            atom_den = term.den.quo_ground(den_content)
+            if atom_num == 1 and atom_den == 1:
+                constant += coefficient
+                continue
+            key = (_poly_key(atom_num), _poly_key(atom_den))
+            previous = atoms.get(key, (atom_num, atom_den, 0))[2]
+            atoms[key] = (atom_num, atom_den, previous + coefficient)
+        return atoms, constant
+
+    def _exponential_generators(self, arguments, pairs) -> tuple[_Exponential, ...]:
+        """One generator exp(q t) per atom t of the exponents (called on the base field)."""
+        atoms: dict = {}
+        coefficients: dict = {}
+        for argument in sorted(arguments, key=sympy.default_sort_key):
+            found, constant = self._atoms_of(argument)
+            for key, (num, den, c) in found.items():
+                atoms[key] = (num, den)
+                coefficients.setdefault(key, []).append(c)
+            if constant:
+                atoms[None] = (self.ring.one, self.ring.one)
+                coefficients.setdefault(None, []).append(constant)
+        hyperbolic = {self._gen_of[p.argument] for p in pairs if p.hyperbolic}
+        for key, (num, den) in atoms.items():
+            if key is not None and den == 1 and num in hyperbolic:
+                raise _HyperbolicCollision()
+        self._check_atoms_independent(atoms)
+        out = []
+        for key, (num, den) in atoms.items():
+            q = _rational_gcd(coefficients[key])
+            atom = self._as_expr(num) / self._as_expr(den)
+            out.append(_Exponential(num, den, q, sympy.exp(q * atom)))
+        out.sort(key=lambda e: sympy.default_sort_key(e.original))
+        return tuple(out)
+
+    def _check_atoms_independent(self, atoms: dict) -> None:
+        """No rational combination of the non-constant atoms may be constant (then their exponentials would
+        be algebraically dependent); distinct monomials are independent, fractions are checked."""
+        fractions = [(num, den) for key, (num, den) in atoms.items() if key is not None]
+        if all(den == 1 for _, den in fractions):
+            return
+        common = self.ring.one
+        for _, den in fractions:
+            common = common.lcm(den)
+        polys = [num * common.exquo(den) for num, den in fractions] + [common]
+        monomials = sorted({m for p in polys for m in p.keys()})
+        matrix = sympy.Matrix([[p.get(m, 0) for m in monomials] for p in polys])
+        if matrix.rank() < len(polys):
+            raise UnsupportedByField("exponentials whose arguments combine to a constant",
+                                     sympy.Add(*[sympy.exp(self._as_expr(n) / self._as_expr(d)) for n, d in fractions]))
+
+    def _root_generators(self, radicands) -> tuple:
+        """One generator s = d sqrt(n/d), s^2 = n d, per distinct radicand n/d (called on the field with the
+        exponentials)."""
+        found: dict = {}
+        for radicand in sorted(radicands, key=sympy.default_sort_key):
+            root = sympy.sqrt(radicand)
+            try:
+                element = self._convert(_rewrite_for_field(radicand, self._hyperbolic_as_exp))
+            except (UnsupportedByField, ZeroDivisionError):
+                raise UnsupportedByField("a square root of something the field cannot hold", root) from None
+            if not element.num:
+                raise UnsupportedByField("a square root of zero", root)
+            if any(element.num.degree(r.index) > 0 for r in self._relations):
+                raise UnsupportedByField("a square root of an expression holding a cosine", root)
+            key = (_poly_key(element.num), _poly_key(element.den))
+            if key in found:
+                continue
+            den = element.den
+            original = root if den == 1 else self._as_expr(den) * root
+            found[key] = (original, element.num * den, key)
+        return tuple(found[k] for k in sorted(found, key=lambda k: sympy.default_sort_key(found[k][0])))
+
+    def _check_roots_independent(self) -> None:
+        """The radicands (1 -+ sin^2 of the trigonometric pairs included) must be independent modulo
+        squares: GF(2)-independent vectors of their odd-multiplicity factors, sign and primes included."""
+        if not self._roots:
+            return
+        columns: dict = {}
+        rows = []
+        for relation in self._relations:
+            content, factors = relation.square.factor_list()
+            content = int(content)
+            odd = set()
+            for f, multiplicity in factors:
+                if f.LC < 0:
+                    f, content = -f, content * (-1) ** multiplicity
+                if multiplicity % 2:
+                    odd.add(("factor", _poly_key(f)))
+            if content < 0:
+                odd.add(("sign",))
+            for prime, multiplicity in _small_factorization(abs(content), self._originals[relation.index]).items():
+                if multiplicity % 2:
+                    odd.add(("prime", prime))
+            bits = 0
+            for part in odd:
+                bits |= 1 << columns.setdefault(part, len(columns))
+            rows.append((bits, relation))
+        pivots: dict[int, int] = {}
+        for bits, relation in rows:
+            while bits:
+                top = bits.bit_length() - 1
+                if top not in pivots:
+                    pivots[top] = bits
+                    break
+                bits ^= pivots[top]
+            if not bits:
+                original = self._originals[relation.index]
+                if relation.sign:
+                    raise UnsupportedByField("square roots that, with the trigonometric relations, are not "
+                                             "independent modulo squares", original)
+                raise UnsupportedByField("a square root of a square (up to the other roots), whose sign is "
+                                         "not known", original)
 
     # construction ------------------------------------------------------
     def constant(self, value) -> RationalFunction:
@@ -394,7 +772,7 @@ class FieldArithmetic:
 
     def from_expr(self, expr: sympy.Expr) -> RationalFunction:
         """Convert a sympy expression built only from the field's generators."""
-        return self._convert(_rewrite_for_field(as_expression(expr)))
+        return self._convert(_rewrite_for_field(as_expression(expr), self._hyperbolic_as_exp))
 
     def _convert(self, expr: sympy.Expr) -> RationalFunction:
         if expr in self._gen_of:
@@ -413,7 +791,43 @@ class FieldArithmetic:
             return product
         if isinstance(expr, sympy.Pow) and expr.exp.is_Integer:
             return self._convert(expr.base) ** int(expr.exp)
-        raise UnsupportedByField(f"{expr} is not held by this field")
+        if self._exponentials and (isinstance(expr, sympy.exp) or expr is sympy.E):
+            return self._convert_exponential(expr)
+        if self._roots and isinstance(expr, sympy.Pow) and expr.exp.is_Rational and expr.exp.q == 2:
+            return self._convert_root(expr)
+        raise UnsupportedByField("an expression this field does not hold", expr)
+
+    def _convert_exponential(self, expr: sympy.Expr) -> RationalFunction:
+        argument = sympy.Integer(1) if expr is sympy.E else expr.args[0]
+        atoms, constant = self._base._atoms_of(argument)
+        wanted = {key: c for key, (_, _, c) in atoms.items()}
+        if constant:
+            wanted[None] = constant
+        num, den = self.ring.one, self.ring.one
+        for k, e in enumerate(self._exponentials):
+            key = None if (e.atom_num == 1 and e.atom_den == 1) else (_poly_key(e.atom_num), _poly_key(e.atom_den))
+            if key not in wanted:
+                continue
+            power = wanted.pop(key) / e.q
+            if not power.is_Integer:
+                break
+            gen = self.ring.gens[self._base_count + k]
+            if power > 0:
+                num *= gen ** int(power)
+            else:
+                den *= gen ** int(-power)
+        else:
+            if not wanted:
+                return self.make(num, den)
+        raise UnsupportedByField("an exponential this field does not hold", expr)
+
+    def _convert_root(self, expr: sympy.Expr) -> RationalFunction:
+        element = self._with_exponentials._convert(_rewrite_for_field(expr.base, self._hyperbolic_as_exp))
+        index = self._root_index.get((_poly_key(element.num), _poly_key(element.den)))
+        if index is None:
+            raise UnsupportedByField("a square root this field does not hold", expr)
+        root = self.make(self.ring.gens[index], _lift(element.den, self.ring))  # sqrt(n/d) = s/d
+        return root ** int(expr.exp.p)
 
     def make(self, num: PolyElement, den: PolyElement, reduced_fraction: bool = False) -> RationalFunction:
         """Bring num/den to canonical form."""
@@ -431,23 +845,101 @@ class FieldArithmetic:
             if not num:
                 return RationalFunction(self, self.ring.zero, self.ring.one)
         if not reduced_fraction:
-            num, den = num.cancel(den)
+            num, den = self._cancel(num, den)
         elif den.LC < 0:
             num, den = -num, -den
         return RationalFunction(self, num, den)
 
+    def _cancel(self, num: PolyElement, den: PolyElement) -> tuple[PolyElement, PolyElement]:
+        """num/den in lowest terms with a positive leading coefficient of den: what ``num.cancel(den)`` gives,
+        computed by trial division with the irreducible factors of den (known from earlier denominators) where
+        those are known; a gcd of a long numerator with a short denominator costs far more."""
+        if den.is_ground or len(num) < CANCEL_BY_FACTORS_MIN_TERMS:
+            return num.cancel(den)
+        factored = self._factorization(den)
+        if factored is None:
+            return num.cancel(den)
+        content, factors = factored
+        kept = []
+        for f, multiplicity in factors:
+            while multiplicity:
+                quotient, remainder = num.div(f)
+                if remainder:
+                    break
+                num = quotient
+                multiplicity -= 1
+            if multiplicity:
+                kept.append((f, multiplicity))
+        common = sympy.igcd(int(num.content()), content)
+        if common != 1:
+            num, content = num.quo_ground(common), content // common
+        den = self.ring(content)
+        for f, multiplicity in kept:
+            den *= f ** multiplicity
+        return num, den
+
+    def _gcd_of_denominators(self, a: PolyElement, b: PolyElement) -> PolyElement:
+        """gcd(a, b) of two denominators, from their factorisations where both are known."""
+        if a.is_ground or b.is_ground:
+            return a.gcd(b)
+        fa, fb = self._factorization(a), self._factorization(b)
+        if fa is None or fb is None:
+            return a.gcd(b)
+        multiplicities = dict(fb[1])
+        g = self.ring(sympy.igcd(fa[0], fb[0]))
+        for f, m in fa[1]:
+            k = min(m, multiplicities.get(f, 0))
+            if k:
+                g *= f ** k
+        return g
+
+    def _factorization(self, den: PolyElement):
+        """(content, [(irreducible with positive leading coefficient, multiplicity)]) of den, or None when it
+        would take a factorisation of a long polynomial; cached, and every factor found is tried first later."""
+        cached = self._factorizations.get(den)
+        if cached is not None or den in self._factorizations:
+            return cached
+        content, factors, rest = 1, [], den
+        for f in self._irreducibles:
+            multiplicity = 0
+            while True:
+                quotient, remainder = rest.div(f)
+                if remainder:
+                    break
+                rest, multiplicity = quotient, multiplicity + 1
+            if multiplicity:
+                factors.append((f, multiplicity))
+            if rest.is_ground:
+                break
+        if not rest.is_ground:
+            if len(rest) > FACTOR_DENOMINATOR_TERMS_LIMIT:
+                self._factorizations[den] = None
+                return None
+            found_content, found = rest.factor_list()
+            rest = self.ring(found_content)
+            for f, multiplicity in found:
+                if f.LC < 0:
+                    f, rest = -f, rest * (-1) ** multiplicity
+                factors.append((f, multiplicity))
+                self._irreducibles.append(f)
+        content = int(rest.LC) if rest else 1
+        result = (content, factors) if content > 0 else None
+        if len(self._factorizations) < 100000:
+            self._factorizations[den] = result
+        return result
+
     def _power_of_relation(self, relation: int, half: int) -> PolyElement:
-        """(1 + sign * s^2) ** half for the given relation."""
+        """square ** half for the given relation (g^(2 half) = square^half)."""
         key = (relation, half)
         if key not in self._reduction_cache:
-            _, s_index, sign = self._relations[relation]
-            s = self.ring.gens[s_index]
-            self._reduction_cache[key] = (1 + sign * s**2) ** half
+            self._reduction_cache[key] = self._relations[relation].square ** half
         return self._reduction_cache[key]
 
     def _reduce(self, poly: PolyElement) -> PolyElement:
-        """Replace cos^2 by 1 - sin^2 (cosh^2 by 1 + sinh^2) until every cosine has degree <= 1."""
-        for relation, (c_index, _, _) in enumerate(self._relations):
+        """Replace g^2 by its square (cos^2 by 1 - sin^2, cosh^2 by 1 + sinh^2, s^2 by p) until every such
+        generator has degree <= 1 (one pass: no square holds any of these generators)."""
+        for relation, rel in enumerate(self._relations):
+            c_index = rel.index
             if poly.degree(c_index) < 2:
                 continue
             high: dict[int, dict] = {}
@@ -466,9 +958,10 @@ class FieldArithmetic:
         return poly
 
     def _cosine_free_denominator(self, num, den):
-        """Multiply by the conjugate until no cosine is left in the denominator."""
+        """Multiply by the conjugate until no cosine (and no root) is left in the denominator."""
         changed = False
-        for relation, (c_index, _, _) in enumerate(self._relations):
+        for rel in self._relations:
+            c_index = rel.index
             if den.degree(c_index) < 1:
                 continue
             c = self.ring.gens[c_index]
@@ -489,11 +982,12 @@ class FieldArithmetic:
         return RationalFunction(self, self.ring.from_dict(num) if num else self.ring.zero, self.ring.from_dict(den))
 
     # calculus -------------------------------------------------------------
-    def _rules_for(self, x: sympy.Symbol) -> list[tuple[int, PolyElement]]:
-        """For each generator with non-zero derivative along x: (index, derivative)."""
+    def _rules_for(self, k: int, x: sympy.Symbol) -> list[tuple]:
+        """For each generator with non-zero derivative along x: (index, numerator, denominator), the
+        denominator None for a polynomial derivative (or the numerator a :class:`_TooDeep` / :class:`_Fails`)."""
         rules = []
         gens = self.ring.gens
-        for i, orig in enumerate(self._originals):
+        for i, orig in enumerate(self._originals[:self._base_count]):
             d = None
             if orig == x:
                 d = self.ring.one
@@ -512,32 +1006,74 @@ class FieldArithmetic:
                     else:
                         d = gens[self._gen_index[target]]
             if d is not None:
-                rules.append((i, d))
+                rules.append((i, d, None))
+        if self._exponentials:
+            # d exp(q t)/dx = q (dt/dx) exp(q t), dt/dx from the base field.
+            for j, e in enumerate(self._exponentials):
+                i = self._base_count + j
+                try:
+                    dt = self._base.diff(self._base.make(e.atom_num, e.atom_den), k)
+                except UnsupportedByField as error:
+                    rules.append((i, _Fails(error), None))
+                    continue
+                if not dt.num:
+                    continue
+                rules.append((i, _lift(dt.num, self.ring) * int(e.q.p) * gens[i],
+                              _lift(dt.den, self.ring) * int(e.q.q)))
+        if self._roots:
+            # d s/dx = p' s / (2 p) from s^2 = p.
+            plain_rules = list(rules)
+            for rel in self._relations:
+                if rel.sign:
+                    continue
+                try:
+                    dp, scale = self._apply_rules(plain_rules, rel.square)
+                except UnsupportedByField as error:
+                    rules.append((rel.index, _Fails(error), None))
+                    continue
+                if dp:
+                    rules.append((rel.index, dp * gens[rel.index], 2 * rel.square * scale))
         return rules
 
-    def _diff_poly(self, poly: PolyElement, coordinate_index: int) -> PolyElement:
+    def _apply_rules(self, rules, poly: PolyElement) -> tuple[PolyElement, PolyElement]:
+        """(numerator, denominator) of the derivative of a polynomial by these rules."""
         result = self.ring.zero
-        for i, d in self._derivative_rules[coordinate_index]:
+        common = self.ring.one
+        terms = []
+        for i, d, den in rules:
             if poly.degree(i) <= 0:
                 continue
-            if isinstance(d, _TooDeep):
+            if isinstance(d, (_TooDeep, _Fails)):
                 raise d.error()
-            result += poly.diff(self.ring.gens[i]) * d
-        return result
+            terms.append((poly.diff(self.ring.gens[i]) * d, den))
+            if den is not None and den != 1:
+                common = common.lcm(den)
+        if common == 1:
+            for term, _ in terms:
+                result += term
+            return result, common
+        for term, den in terms:
+            result += term * (common if den is None else common.exquo(den))
+        return result, common
+
+    def _diff_poly(self, poly: PolyElement, coordinate_index: int) -> tuple[PolyElement, PolyElement]:
+        return self._apply_rules(self._derivative_rules[coordinate_index], poly)
 
     def diff(self, element: RationalFunction, coordinate_index: int) -> RationalFunction:
         """Partial derivative along the coordinate with this index (quotient rule)."""
         num, den = element.num, element.den
-        dn = self._diff_poly(num, coordinate_index)
+        dn, ln = self._diff_poly(num, coordinate_index)
         if den == 1:
-            return self.make(dn, den)
-        dd = self._diff_poly(den, coordinate_index)
+            return self.make(dn, ln)
+        dd, ld = self._diff_poly(den, coordinate_index)
         if not dd:
-            return self.make(dn, den)
-        # d(n/D) = (n' D - n D') / D^2, with the gcd of D and D' taken out first.
+            return self.make(dn, den * ln if ln != 1 else den)
+        # d(n/D) = (n' D - n D') / D^2, with the gcd of D and D' taken out first; n' = dn/ln, D' = dd/ld.
         g = den.gcd(dd)
         den_g, dd_g = den.exquo(g), dd.exquo(g)
-        return self.make(dn * den_g - num * dd_g, den * den_g)
+        if ln == 1 and ld == 1:
+            return self.make(dn * den_g - num * dd_g, den * den_g)
+        return self.make(dn * ld * den_g - num * dd_g * ln, ln * ld * den * den_g)
 
     # queries --------------------------------------------------------------
     def zero_test(self, element: RationalFunction) -> ZeroTest:
@@ -606,7 +1142,10 @@ class FieldArithmetic:
 
     def _nicer_trig_form(self, poly: PolyElement) -> PolyElement:
         """Rewrite sin^2 as 1 - cos^2 where that shortens the polynomial."""
-        for relation, (c_index, s_index, sign) in enumerate(self._relations):
+        for rel in self._relations:
+            if not rel.sign:
+                continue
+            c_index, s_index, sign = rel.index, rel.partner, rel.sign
             if poly.degree(s_index) < 2:
                 continue
             # sin^2 = (cos^2 - 1) / sign
@@ -730,6 +1269,8 @@ class ExpressionArithmetic:
 
     name = "expression"
     rewrite = "sympy's cancel"
+    #: Why the exact field was not used (:meth:`UnsupportedByField.as_data`), set by :func:`choose_arithmetic`.
+    slow_path_because: dict | None = None
     description = "sympy's cancel after every operation; zero tests by sympy's simplify, then at random points"
 
     def __init__(self, coordinates: Sequence[sympy.Symbol], sample_symbols: Sequence[sympy.Symbol],
@@ -839,5 +1380,7 @@ def choose_arithmetic(coordinates: Sequence[sympy.Symbol], components: Iterable[
     components = list(components)
     try:
         return FieldArithmetic(coordinates, components)
-    except UnsupportedByField:
-        return ExpressionArithmetic(coordinates, list(coordinates) + list(parameters))
+    except UnsupportedByField as error:
+        arithmetic = ExpressionArithmetic(coordinates, list(coordinates) + list(parameters))
+        arithmetic.slow_path_because = error.as_data()
+        return arithmetic

@@ -36,6 +36,7 @@ from .verify import numeric_check
 from .matter import CONVENTIONS as MATTER_CONVENTIONS, CONVENTIONS_LATEX as MATTER_CONVENTIONS_LATEX, record_matter
 from .ansatz import record_ansatz
 from .geodesics import record_geodesics
+from .petrov import record_petrov
 
 CONVENTIONS = {
     "line_element": LINE_ELEMENT_CONVENTION,
@@ -247,19 +248,38 @@ class _Chain:
                   self.ricci_by_trace_identity, self.scalar, self.einstein, self.mixed_tensors, self.verdict_ricci_flat,
                   self.verdict_einstein_space, self.riemann_lowered, self.verdict_constant_curvature]
         if self.invariants:
-            stages += [self.kretschmann, self.weyl]
+            stages += [self.kretschmann, self.weyl, self.algebraic_type]
         stages += [self.bianchi, self.numeric_verification]
+        if self.metric.frame is not None:
+            stages.append(self.given_frame)
         if self.metric.matter is not None:
             stages.append(self.matter)
         if self.metric.ansatz is not None:
             stages.append(self.ansatz)
         stages.append(self.geodesics)
+        finished: list[str] = []
+        kept = (0, _snapshot(self.results))  # the steps and results of the finished stages
         for number, stage in enumerate(stages):
             label = f"{stage.__name__.replace('_', ' ')} (stage {number + 1} of {len(stages)})"
-            self.check_time(label)
-            self.progress(label, number, len(stages))
-            stage()
+            try:
+                self.check_time(label)
+                self.progress(label, number, len(stages))
+                stage()
+            except (TimeLimitReached, KeyboardInterrupt) as stop:
+                if not finished:
+                    raise
+                reason = "time limit" if isinstance(stop, TimeLimitReached) else "interrupted"
+                stop.partial = self.derivation(start, steps=self.tracer.steps[:kept[0]], results=kept[1],
+                                               stopped={"reason": reason, "during": stage.__name__,
+                                                        "finished": list(finished)})
+                raise
+            finished.append(stage.__name__)
+            kept = (len(self.tracer.steps), _snapshot(self.results))
         self.progress("done", len(stages), len(stages))
+        return self.derivation(start, self.tracer.steps, self.results)
+
+    def derivation(self, start: float, steps, results, stopped: dict | None = None) -> Derivation:
+        """The record of the stages run so far (all of them unless ``stopped`` says otherwise)."""
         conventions, conventions_latex = dict(CONVENTIONS), dict(CONVENTIONS_LATEX)
         convention_data = {**CONVENTION_DATA, "signature": self.signature,
                            "stored_orderings": {name: QUANTITIES[name].stored for name in QUANTITIES
@@ -267,10 +287,21 @@ class _Chain:
         if self.metric.matter is not None:
             conventions.update(MATTER_CONVENTIONS)
             conventions_latex.update(MATTER_CONVENTIONS_LATEX)
-        return Derivation(self.metric, tuple(self.tracer.steps), self.results, self.A.name,
+        return Derivation(self.metric, tuple(steps), results, self.A.name,
                           arithmetic_description=self.A.description, conventions=conventions,
                           convention_data=convention_data,
-                          conventions_latex=conventions_latex, seconds=time.perf_counter() - start)
+                          conventions_latex=conventions_latex, seconds=time.perf_counter() - start,
+                          stopped=stopped)
+
+    def given_frame(self) -> None:
+        """The metric file's [frame], checked (stepper/frames.py; recorded once, also for other stages)."""
+        from .frames import given_frame
+        self.stage = "curvature"
+        given_frame(self)
+
+    def algebraic_type(self) -> None:
+        """Weyl scalars and the algebraic (Petrov) type, four-dimensional Lorentzian metrics only."""
+        record_petrov(self)
 
     def matter(self) -> None:
         self.stage = "matter"
@@ -294,7 +325,10 @@ class _Chain:
         self.record(id="metric", kind="input", annotation="The metric components g_ij read from the input.",
                     formula=formula("metric"), uses=(), result=comps, quantity="metric",
                     params={"coordinates": list(self.metric.names), "arithmetic": self.A.name,
-                            "convention": LINE_ELEMENT_CONVENTION, "signature": self.signature})
+                            "convention": LINE_ELEMENT_CONVENTION, "signature": self.signature,
+                            # why the exact field could not hold the metric (algebra.UnsupportedByField.as_data)
+                            **({"slow_path_because": self.A.slow_path_because}
+                               if getattr(self.A, "slow_path_because", None) else {})})
 
     def metric_derivatives(self) -> None:
         n = self.n
@@ -952,6 +986,7 @@ class _Chain:
         Rs = self.R_scalar
         comps = {}
         residues = []
+        self.weyl_elements = {}
         c1 = sympy.Rational(1, n - 2)
         c2 = sympy.Rational(1, (n - 1) * (n - 2))
         for a, b, c, d in _independent_riemann_indices(n):
@@ -960,6 +995,7 @@ class _Chain:
                      - (g[a][c] * ric[b][d] - g[a][d] * ric[b][c] - g[b][c] * ric[a][d] + g[b][d] * ric[a][c]) * c1
                      + Rs * (g[a][c] * g[b][d] - g[a][d] * g[b][c]) * c2)
             residues.append((f"C_{self.key(a, b, c, d)}", "weyl", self.key(a, b, c, d), value))
+            self.weyl_elements[a, b, c, d] = value
             if not self.is_zero(value):
                 comps[self.key(a, b, c, d)] = self.expr(value)
         self.results["weyl"] = comps
@@ -1052,6 +1088,12 @@ class _Chain:
 
 
 _ACTIVE_CHAIN: "_Chain | None" = None
+
+
+def _snapshot(results: dict) -> dict:
+    """A copy of the results that later stages cannot change: they add keys, and add entries to the
+    dictionaries of earlier stages (the verdicts), but never change an expression."""
+    return {key: dict(value) if isinstance(value, dict) else value for key, value in results.items()}
 
 
 def _numeric_evidence(check) -> str:

@@ -70,6 +70,9 @@ def build_parser() -> argparse.ArgumentParser:
     render.add_argument("--templates", metavar="DIR",
                         help="folder of templates that override the project's templates/ (same file names)")
     _add_appendix_options(render)
+    from . import batch, compare
+    batch.add_parser(commands, _ArgumentParser)
+    compare.add_parser(commands)
     return parser
 
 
@@ -161,6 +164,11 @@ def summary(derivation: Derivation, out_dir: Path, written: Sequence[str]) -> st
             evidence += f"; density rho = {fluid['density']}, pressure p = {fluid['pressure']}"
         lines.append(f"  {VERDICTS[key].label}: {word} ({evidence})")
     lines += _matter_lines(derivation.results)
+    slow = next((s.params["slow_path_because"] for s in derivation.steps
+                 if s.quantity == "metric" and "slow_path_because" in s.params), None)
+    if slow:
+        lines.append(_short(f"  note: sympy's simplify was used (slower) because of {slow['reason']}"
+                            + (f": {slow['expression']}" if "expression" in slow else "")))
     lines.append(f"  {len(derivation.steps)} steps recorded" +
                  (f" in {derivation.seconds:.2f} s" if derivation.seconds else " (read from a saved trace)"))
     lines.append(f"  written to {out_dir}: {', '.join(written) if written else 'nothing'}")
@@ -236,13 +244,18 @@ def run_render(args: argparse.Namespace) -> int:
     formats, templates = _output_options(args, out_dir)
     args.folder = out_dir
     status = 1 if "audit" in record.results and not record.results["audit"]["all_agree"] else 0
-    # Rendering into the trace's own folder rewrites part of a set that came from the same trace: keep the rest.
-    same_folder = os.path.abspath(out_dir) == os.path.abspath(trace_path.parent)
-    keep = ("trace.json", "report.tex", "appendix.tex", "report.pdf", "derivation.ipynb") if same_folder else ()
-    if same_folder:  # and the plots' figure files beside report.tex
-        from .outputs import PLOT_NAME
-        keep += tuple(sorted(n for n in os.listdir(out_dir) if PLOT_NAME.fullmatch(n)))
-    return _export_and_write(args, record, out_dir, formats, templates, status, keep=keep)
+    return _export_and_write(args, record, out_dir, formats, templates, status,
+                             keep=kept_beside_trace(trace_path, out_dir))
+
+
+def kept_beside_trace(trace_path: Path, out_dir: Path) -> tuple[str, ...]:
+    """Rendering into the trace's own folder rewrites part of a set that came from the same trace: the
+    files of that set to keep (none when rendering elsewhere)."""
+    if os.path.abspath(out_dir) != os.path.abspath(trace_path.parent):
+        return ()
+    keep = ("trace.json", "report.tex", "appendix.tex", "report.pdf", "derivation.ipynb")
+    from .outputs import PLOT_NAME  # and the plots' figure files beside report.tex
+    return keep + tuple(sorted(n for n in os.listdir(out_dir) if PLOT_NAME.fullmatch(n)))
 
 
 def _default_folder(input_file: str) -> Path:
@@ -255,12 +268,18 @@ def _default_folder(input_file: str) -> Path:
 
 
 def _output_options(args: argparse.Namespace, out_dir: Path) -> tuple[list[str], list[Path]]:
-    formats = _formats(args.formats)
+    return output_options(args.formats, args.anchor_prefix, args.templates, out_dir)
+
+
+def output_options(formats_text: str | None, anchor_prefix: str | None, templates_folder: str | Path | None,
+                   out_dir: Path) -> tuple[list[str], list[Path]]:
+    """The checked output options (as for --formats, --anchor-prefix, --templates) and output folder."""
+    formats = _formats(formats_text)
     from .exporters import valid_anchor_prefix
-    if args.anchor_prefix is not None and not valid_anchor_prefix(args.anchor_prefix):
+    if anchor_prefix is not None and not valid_anchor_prefix(anchor_prefix):
         raise InputError("--anchor-prefix may hold only letters, digits, '-', '.' and ':' (at most 64)")
     check_output_folder(out_dir)
-    templates = [Path(args.templates)] if args.templates else []
+    templates = [Path(templates_folder)] if templates_folder else []
     if templates and not templates[0].is_dir():
         raise InputError(f"template folder {templates[0]} does not exist")
     return formats, templates
@@ -271,8 +290,14 @@ def _derive_and_export(args: argparse.Namespace, metric, out_dir: Path, formats:
     if args.jobs is not None and args.jobs < 1:
         raise InputError("--jobs must be at least 1")
     jobs = args.jobs if args.jobs is not None else default_jobs()
-    derivation = derive(metric, progress=args.progress, curvature_invariants=not args.skip_invariants,
-                        jobs=jobs)
+    try:
+        derivation = derive(metric, progress=args.progress, curvature_invariants=not args.skip_invariants,
+                            jobs=jobs)
+    except (TimeLimitReached, KeyboardInterrupt) as stop:
+        if getattr(stop, "partial", None) is None or claims is not None:
+            raise
+        write_partial(args, stop, out_dir, formats, templates)
+        raise
     status = 0
     if claims is not None:
         from .audit import audit, record_audit
@@ -284,36 +309,28 @@ def _derive_and_export(args: argparse.Namespace, metric, out_dir: Path, formats:
     return _export_and_write(args, derivation, out_dir, formats, templates, status)
 
 
+def write_partial(args: argparse.Namespace, stop: BaseException, out_dir: Path, formats: list[str],
+                  templates: list[Path]) -> None:
+    """Write the stages a stopped run finished as the output set, marked partial in every output; the
+    time limit or the interrupt has already happened, so writing them is not cut short by it.  Marks
+    ``stop.written`` for the one-line message."""
+    _cancel_time_limit()
+    previous = signal.signal(signal.SIGINT, signal.SIG_IGN)  # a second Ctrl-C does not cut the swap
+    try:
+        args.quiet = True
+        _export_and_write(args, stop.partial, out_dir, formats, templates, 0)
+        stop.written = out_dir
+    finally:
+        signal.signal(signal.SIGINT, previous)
+
+
 def _export_and_write(args: argparse.Namespace, derivation: Derivation, out_dir: Path, formats: list[str],
                       templates: list[Path], status: int, keep: tuple[str, ...] = ()) -> int:
     """Write the asked outputs of a derivation, all made from its trace as ``stepper render`` would."""
-    # Imported here so that a run writing only trace.json does not pay for templates and TeX.
-    import jinja2
-
-    from .exporters import EXPORTERS, AppendixExporter, TexFailed, TexMissing
-    from .trace import load_trace, trace_json
-    text = trace_json(derivation)
-    record = load_trace(text, validate=False)  # every exporter reads what the trace holds, nothing else
-    contents: dict[str, str | bytes] = {}
-    problems: list[str] = []
-    for name in formats:
-        exporter = (AppendixExporter(templates, args.appendix_heading, args.anchor_prefix, args.detail)
-                    if name == "appendix" else EXPORTERS[name](templates, args.detail) if name in ("tex", "pdf")
-                    else EXPORTERS[name](templates))
-        args.progress(f"writing {exporter.file_name}", 0, 1)
-        try:
-            contents[exporter.file_name] = text if name == "trace" else exporter.export(record)
-        except TexMissing as err:
-            problems.append(f"stepper: warning: no report.pdf: {err}")
-            status = 1 if args.formats else status
-        except TexFailed as err:
-            raise _tex_failure(err, out_dir, bool(templates)) from None
-        except jinja2.TemplateError as err:
-            raise InputError(f"template problem in {name} output: {err}") from None
-    if {"tex", "appendix", "pdf"} & set(formats):  # the plots' figures, which report.tex and appendix.tex include
-        from .plots import plot_files
-        args.progress("drawing the plots", 0, 1)
-        contents.update(plot_files(record))
+    contents, problems = output_files(derivation, out_dir, formats, templates, args.detail, args.appendix_heading,
+                                      args.anchor_prefix, args.progress)
+    if problems and args.formats:  # no report.pdf although it was asked for
+        status = 1
     _cancel_time_limit()
     replace_output_set(out_dir, contents, keep=tuple(name for name in keep if name not in contents),
                        state=args.swap)
@@ -332,6 +349,42 @@ def _export_and_write(args: argparse.Namespace, derivation: Derivation, out_dir:
     for line in problems:
         sys.stderr.write(terminal_text(line) + "\n")
     return status
+
+
+def output_files(derivation: Derivation, out_dir: Path, formats: Sequence[str], templates: Sequence[Path] = (),
+                 detail: str = "full", appendix_heading: str = "section", anchor_prefix: str | None = None,
+                 progress=None) -> tuple[dict[str, str | bytes], list[str]]:
+    """The files of a derivation's output set, all made from its trace as ``stepper render`` would (nothing is
+    written), and a warning line when no report.pdf could be made for lack of TeX."""
+    # Imported here so that a run writing only trace.json does not pay for templates and TeX.
+    import jinja2
+
+    from .exporters import EXPORTERS, AppendixExporter, TexFailed, TexMissing
+    from .trace import load_trace, trace_json
+    progress = progress or (lambda label, done, total: None)
+    templates = list(templates)
+    text = trace_json(derivation)
+    record = load_trace(text, validate=False)  # every exporter reads what the trace holds, nothing else
+    contents: dict[str, str | bytes] = {}
+    problems: list[str] = []
+    for name in formats:
+        exporter = (AppendixExporter(templates, appendix_heading, anchor_prefix, detail)
+                    if name == "appendix" else EXPORTERS[name](templates, detail) if name in ("tex", "pdf")
+                    else EXPORTERS[name](templates))
+        progress(f"writing {exporter.file_name}", 0, 1)
+        try:
+            contents[exporter.file_name] = text if name == "trace" else exporter.export(record)
+        except TexMissing as err:
+            problems.append(f"stepper: warning: no report.pdf: {err}")
+        except TexFailed as err:
+            raise _tex_failure(err, out_dir, bool(templates)) from None
+        except jinja2.TemplateError as err:
+            raise InputError(f"template problem in {name} output: {err}") from None
+    if {"tex", "appendix", "pdf"} & set(formats):  # the plots' figures, which report.tex and appendix.tex include
+        from .plots import plot_files
+        progress("drawing the plots", 0, 1)
+        contents.update(plot_files(record))
+    return contents, problems
 
 
 class _TexFailure(InputError):
@@ -402,17 +455,18 @@ def main(argv: Sequence[str] | None = None) -> int:
         if time_limit is not None and not (math.isfinite(time_limit) and time_limit > 0):
             raise InputError("--time-limit must be a positive number of seconds")
         with _stopping_signals(), _time_limit(time_limit, args.progress):
-            return {"audit": run_audit, "render": run_render}.get(args.command, run_derive)(args)
+            return {"audit": run_audit, "render": run_render, "batch": _run_batch,
+                    "compare": _run_compare}.get(args.command, run_derive)(args)
     except InputError as err:
         _say_error(f"stepper: error: {err.message}")
         return getattr(err, "exit_status", 2)
     except TimeLimitReached as stop:
         _say_error(f"stepper: stopped: the time limit of {time_limit:g} s was reached during {stop}; "
-                   f"{_what_was_kept(args)}")
+                   f"{_partial_or_kept(args, stop)}")
         return 3
     except (KeyboardInterrupt, Stopped) as stop:
         name = stop.signal_name if isinstance(stop, Stopped) else "Ctrl-C"
-        _say_error(f"stepper: stopped by {name}; {_what_was_kept(args)}")
+        _say_error(f"stepper: stopped by {name}; {_partial_or_kept(args, stop)}")
         return stop.exit_status if isinstance(stop, Stopped) else 130
     except BrokenPipeError:  # the reader of our output went away (stepper ... | head): stop quietly
         devnull = os.open(os.devnull, os.O_WRONLY)
@@ -427,6 +481,25 @@ def main(argv: Sequence[str] | None = None) -> int:
                    f"{' '.join(str(err).split())[:300]} (please report it with that file; "
                    f"{_what_was_kept(args)})")
         return INTERNAL_ERROR
+
+
+def _partial_or_kept(args: argparse.Namespace, stop: BaseException) -> str:
+    written = getattr(stop, "written", None)
+    if written is None:
+        return _what_was_kept(args)
+    finished = len(stop.partial.stopped["finished"])
+    return (f"the {finished} stages it finished were written to {terminal_text(str(written))} "
+            f"as a partial derivation, marked partial")
+
+
+def _run_batch(args: argparse.Namespace) -> int:
+    from .batch import command
+    return command(args)
+
+
+def _run_compare(args: argparse.Namespace) -> int:
+    from .compare import command
+    return command(args)
 
 
 def _what_was_kept(args: argparse.Namespace) -> str:

@@ -17,6 +17,16 @@ Conventions (stated in every trace that asks for them):
 * Energy conditions (Hawking & Ellis 1973, sec. 4.3; n dimensions):
   null rho + p_k >= 0; weak also rho >= 0; strong rho + p_k >= 0 and
   (n - 3) rho + sum p_k >= 0; dominant rho >= |p_k|.
+* A frame of the metric file's own (``[frame]``, kind "orthonormal", checked in stepper/frames.py)
+  replaces the observers' frame: e_(a) = w_(a) / sqrt(N_(a)) with w_(a) rational and N_(a) = 1/R_(a)^2
+  for the square-root factor R_(a) of its components.
+* Where no frame gives rho and p_k (null slices, or T not diagonal), the conditions are read along null
+  vectors (stepper/frames.py: the given l and n, d_v with g_vv = 0, du with g^uu = 0).  When
+  T_ab = f k_a k_b with k null (null dust, a recorded check), T_ab l^a l^b = f (k.l)^2 for every null l
+  and T_ab t^a t^b = f (k.t)^2 with k.t != 0 for every timelike t, T = 0, and -T^a_b t^b = -f (k.t) k^a:
+  all four conditions hold exactly when f >= 0, decided like any inequality.  Otherwise only the null
+  condition is tried, T_ab k^a k^b along each known null vector: a negative value disproves it, while
+  non-negative values along a few null vectors leave it undecided (it asks for every null vector).
 
 Every quantity is computed as kappa times itself inside the chain's exact
 arithmetic (kappa holds pi, which the field does not) and divided by kappa
@@ -33,7 +43,9 @@ import mpmath
 import sympy
 
 from .algebra import printer_stable
+from .frames import FORMULAS as FRAME_FORMULAS, contraction, given_frame, null_directions, null_dust
 from .identities import signed_stand_ins
+from .models import record_model
 from .quantities import formula
 from .record import MatterRequest
 from .record import Decision, Method, Verdict
@@ -89,6 +101,8 @@ class _Matter:
         self.kappa = request.kappa
         self.lam = request.cosmological_constant
         self.t = chain.x.index(request.time)
+        self.v, self.N, self.frame_names = [], [], []
+        self.frame_built = False
 
     def run(self) -> None:
         self.field_equations()
@@ -102,6 +116,7 @@ class _Matter:
         self.perfect_fluid()
         self.c.stage = "energy conditions"
         self.energy_conditions()
+        record_model(self.c, self.request)  # [matter.model]: stepper/models.py
 
     # helpers ------------------------------------------------------------
     def physical(self, element) -> sympy.Expr:
@@ -211,11 +226,16 @@ class _Matter:
     def frame(self) -> bool:
         """Build the frame (unnormalised vectors v and squared norms N); False when none can be built."""
         c, n, A, t = self.c, self.n, self.A, self.t
+        given = given_frame(c)
+        if given is not None and given.kind == "orthonormal":
+            return self.given_frame(given)
         time_name = self.name(t)
         v0 = [-c.ginv[t][i] for i in range(n)]
         N0 = -c.ginv[t][t]
         reason = ""
+        self.why = {}
         if c.is_zero(N0):
+            self.why = {"kind": "null slices", "time": time_name}
             reason = (f"no frame is built: g^{time_name}{time_name} vanishes identically, so the hypersurfaces "
                       f"{time_name} = const are null and have no normal observers")
         vectors, norms, labels = [v0], [N0], [t]
@@ -229,6 +249,7 @@ class _Matter:
                     w = [wi - coefficient * vm for wi, vm in zip(w, vectors[m])]
             norm = self.inner(w, w)
             if c.is_zero(norm):
+                self.why = {"kind": "null direction", "time": time_name, "direction": self.name(k)}
                 reason = (f"no frame is built: the direction {self.name(k)} has zero norm after Gram-Schmidt "
                           f"(it is null within {time_name} = const)")
                 break
@@ -241,11 +262,13 @@ class _Matter:
         c.results["frame"] = {"built": not reason}
         if reason:
             c.results["frame"]["reason"] = reason
+            c.results["frame"]["why"] = self.why
             c.record(id="frame", kind="frame", annotation=reason[0].upper() + reason[1:] + ".",
                      formula=FORMULAS["frame"], uses=("inverse_metric", "metric"), result=Verdict(
-                         "An orthonormal frame is built from the metric.", False, reason))
+                         "An orthonormal frame is built from the metric.", False, reason), params={"why": self.why})
             return False
         self.v, self.N, self.labels = vectors, norms, labels
+        self.frame_names = [self.name(k) for k in labels]
         frame_result = {}
         for a, (vec, norm) in enumerate(zip(vectors, norms)):
             inverse_root = _inverse_square_root(c.expr(norm))
@@ -286,6 +309,45 @@ class _Matter:
                  result=frame_verdict, params={"residues": "unnormalised frame", **frame_check})
         return True
 
+    def given_frame(self, given) -> bool:
+        """Use the metric file's orthonormal frame (checked in stepper.frames): e_(a) = w_(a) / sqrt(N_(a))
+        with N_(a) = 1/R_(a)^2 for the square-root factor R_(a) of its components."""
+        c = self.c
+        if given.holds is False:
+            reason = ("no frame is used: the orthonormal frame given in the metric file is not orthonormal "
+                      "(step frame/given/check)")
+            why = {"kind": "given frame not orthonormal"}
+            c.results["frame"] = {"built": False, "reason": reason, "given": True, "why": why}
+            c.record(id="frame", kind="frame", annotation=reason[0].upper() + reason[1:] + ".",
+                     formula=FRAME_FORMULAS["orthonormal"], uses=("frame/given/check",), result=Verdict(
+                         "The given frame is orthonormal.", False, reason), params={"why": why})
+            return False
+        names = given.labels
+        self.frame_names = list(names)
+        self.labels = [c.x.index(next(x for x in c.x if x.name == label)) for label in names]
+        self.v = [given.real[label].w for label in names]
+        self.N = [self.A.one / given.real[label].q for label in names]
+        self.norm_signs = {label: "positive" for label in names}
+        self.frame_built = True
+        vectors = {label: {x.name: value for x, value in zip(c.x, given.vectors[label]) if value != 0}
+                   for label in names}
+        norms = {label: c.expr(N) for label, N in zip(names, self.N)}
+        unnormalised = {label: {x.name: c.expr(w) for x, w in zip(c.x, self.v[a]) if not c.is_zero(w)}
+                        for a, label in enumerate(names)}
+        where = ("the frame of the metric file; e_(x) = w_(x) / sqrt(N_(x)) with w_(x) rational, and it is "
+                 "orthonormal where its components are real")
+        c.results["frame"] = {"built": True, "given": True, "vectors": vectors, "squared_norms": norms,
+                              "time": names[0], "where": where}
+        c.record(id="frame", kind="frame",
+                 annotation=(f"The orthonormal frame given in the metric file (checked in step frame/given/check), "
+                             f"with e_({names[0]}) timelike; each vector is w / sqrt(N) with w rational, w and N "
+                             "listed."),
+                 formula=FRAME_FORMULAS["orthonormal"], uses=("frame/given/check",),
+                 result={"vectors": vectors, "squared_norms": norms},
+                 params={"given": True, "time": names[0], "order": list(names), "unnormalised": unnormalised,
+                         "convention": "the metric file's orthonormal frame, its first vector timelike"})
+        return True
+
     def norm_signs_or_reason(self, norms: list, labels: list) -> tuple[str, dict]:
         """The sign of each squared norm from the declared signs; a reason when one is never positive."""
         signs = {}
@@ -298,6 +360,7 @@ class _Matter:
             if product.is_positive:
                 signs[self.name(k)] = "positive"
             elif product.is_nonpositive:
+                self.why = {"kind": "not positive", "time": time_name, "direction": self.name(k), "norm": expr}
                 what = (f"-g^{time_name}{time_name} = {expr}" if k == self.t
                         else f"the squared norm {expr} of the direction {self.name(k)}")
                 consequence = (f"{time_name} = const is not a spacelike hypersurface" if k == self.t
@@ -368,7 +431,7 @@ class _Matter:
                  formula=formula("frame_stress_energy"), uses=("frame", "stress_energy"), result=comps)
 
     def frame_key(self, *frame_indices: int) -> str:
-        return ",".join(self.name(self.labels[a]) for a in frame_indices)
+        return ",".join(self.frame_names[a] for a in frame_indices)
 
     def frame_curvature(self) -> None:
         c, n = self.c, self.n
@@ -398,7 +461,7 @@ class _Matter:
         self.p = [self.F[k, k] / self.N[k] for k in range(1, n)]
         self.type_one = not off
         result = {"energy_density": self.physical(self.rho),
-                  "pressures": {self.name(self.labels[k]): self.physical(self.p[k - 1]) for k in range(1, n)}}
+                  "pressures": {self.frame_names[k]: self.physical(self.p[k - 1]) for k in range(1, n)}}
         if off:
             a, b = off[0]
             result["diagonal"] = False
@@ -435,7 +498,7 @@ class _Matter:
             if test:
                 params["test"] = test
             if verdict.holds:
-                u = c.results["frame"]["vectors"][self.name(self.labels[0])]
+                u = c.results["frame"]["vectors"][self.frame_names[0]]
                 vacuum = all(c.is_zero(self.S[i][j]) for i in range(n) for j in range(n))
                 params["vacuum"] = vacuum
                 if vacuum:
@@ -473,6 +536,8 @@ class _Matter:
         names = {"null": "Null energy condition", "weak": "Weak energy condition",
                  "strong": "Strong energy condition", "dominant": "Dominant energy condition"}
         table = {}
+        if (not self.frame_built or not getattr(self, "type_one", False)) and self.null_conditions(names):
+            return
         if not self.frame_built or not self.type_one:
             why = ("no orthonormal frame was built" if not self.frame_built else
                    "the stress-energy tensor is not diagonal in the frame, so its energy density and principal "
@@ -534,6 +599,106 @@ class _Matter:
                      params={"inequalities": rows,
                              "region": {s.name: [lo, hi] for s, lo, hi in self.request.region}})
         c.results["energy_conditions"] = table
+
+    def null_conditions(self, names: dict) -> bool:
+        """The energy conditions from null directions, when the frame's rho and p_k do not decide them: null dust
+        T_ab = f k_a k_b (k null) decides all four by f >= 0; otherwise T_ab k^a k^b >= 0 along the null vectors
+        known can disprove the null condition, never prove it.  False when no null direction is known."""
+        c, n = self.c, self.n
+        directions = null_directions(c, c.stage)
+        if not directions:
+            return False
+        decider = _Decider(self, self.request.region)
+        region = {s.name: [lo, hi] for s, lo, hi in self.request.region}
+        found = null_dust(c, self.S, directions)
+        table = {}
+        source_step = {d.name: ("null_directions" if d.source != "given" else "frame/given/check") for d in directions}
+        if found is not None:
+            d, f, dust, check = found
+            density = self.physical(f)
+            statement = (f"Null dust (pure radiation): T_ab = f k_a k_b with k = {d.name} null"
+                         + (f", f = {density}." if dust.holds else "."))
+            c.record(id="null_dust", kind="check", component="null dust", annotation=statement,
+                     formula=FRAME_FORMULAS["null_dust"], uses=(source_step[d.name], "stress_energy"),
+                     result=Verdict(statement, dust.holds, dust.evidence),
+                     params={"direction": d.name, "density": density, **check})
+        if found is not None and found[2].holds:
+            d, f = found[0], found[1]
+            decision = decider.decide("f", f)
+            value = self.physical(f)
+            row = {"value": value, "holds": decision.holds, "evidence": decision.sentence(value),
+                   "decision": decision.as_data(), "symbol": {"kind": "null dust density", "direction": d.name}}
+            for key, title in names.items():
+                words = NULL_DUST_WORDS[key]
+                reduction = {"null": f"T_ab l^a l^b = f (k.l)^2 for every null l",
+                             "weak": "T_ab t^a t^b = f (k.t)^2 with k.t != 0 for every timelike t",
+                             "strong": "T = 0, so (T_ab - T g_ab/(n-2)) t^a t^b = f (k.t)^2",
+                             "dominant": "T_ab t^a t^b = f (k.t)^2 and -T^a_b t^b = -f (k.t) k^a, null and "
+                                         "future-pointing exactly when f >= 0"}[key]
+                if decision.holds is None:
+                    evidence = (f"the stress-energy is null dust along {d.name} (step null_dust): {reduction}, so the "
+                                f"condition reduces to f = {value} >= 0, which is undecided: {row['evidence']}")
+                else:
+                    evidence = (f"the stress-energy is null dust along {d.name} (step null_dust): {reduction}, so the "
+                                f"condition holds exactly when f = {value} >= 0: {row['evidence']}")
+                verdict = Verdict(f"{title}: {words}.", decision.holds, evidence)
+                table[key] = {"holds": decision.holds, "evidence": evidence, "inequalities": {"f": row}}
+                c.record(id=f"energy_conditions/{key}", kind="energy condition", component=key,
+                         annotation=verdict.statement, formula=FRAME_FORMULAS["null_dust"], uses=("null_dust",),
+                         result=verdict, params={"route": "null dust", "direction": d.name, "inequalities": {"f": row},
+                                                 "region": region})
+            c.results["energy_conditions"] = table
+            return True
+        rows = {}
+        for d in directions:
+            element = contraction(c, self.S, d)
+            decision = decider.decide(d.name, element)
+            value = self.physical(element)
+            rows[f"T({d.name},{d.name})"] = {"value": value, "holds": decision.holds, "evidence": decision.sentence(value),
+                                             "decision": decision.as_data(),
+                                             "symbol": {"kind": "contraction", "direction": d.name}}
+        failing = next((label for label, row in rows.items() if row["holds"] is False), None)
+        undecided = next((label for label, row in rows.items() if row["holds"] is None), None)
+        if failing:
+            outcome = False
+            evidence = (f"{failing} >= 0 fails: {rows[failing]['evidence']}; a null vector with T_ab k^a k^b < 0 "
+                        "violates the condition")
+        elif undecided:
+            outcome = None
+            evidence = f"{undecided} >= 0 is undecided: {rows[undecided]['evidence']}"
+        else:
+            outcome = None
+            evidence = (f"T_ab k^a k^b >= 0 is proven along the {len(rows)} null vector(s) listed, but the condition asks "
+                        "it of every null vector and the stress-energy is not null dust along any of them, so it is "
+                        "not decided")
+        why = c.results.get("frame", {}).get("reason") or ("the stress-energy tensor is not diagonal in the frame; "
+                                                           "stepper does not diagonalise it")
+        uses = tuple(dict.fromkeys(source_step[d.name] for d in directions)) + ("stress_energy",)
+        for key, title in names.items():
+            if key == "null":
+                verdict = Verdict(f"{title}: T_ab k^a k^b >= 0 for every null vector k.", outcome, evidence)
+                table[key] = {"holds": outcome, "evidence": evidence, "inequalities": rows}
+                c.record(id=f"energy_conditions/{key}", kind="energy condition", component=key,
+                         annotation=verdict.statement, formula=r"T_{ab}\, k^a k^b \ge 0", uses=uses, result=verdict,
+                         params={"route": "null vectors", "proves": "disproof only", "inequalities": rows,
+                                 "region": region})
+                continue
+            verdict = Verdict(f"{title}: {_inequality_words(key, n)}.", None, why)
+            table[key] = {"holds": None, "evidence": why, "inequalities": {}}
+            c.record(id=f"energy_conditions/{key}", kind="energy condition", component=key, annotation=verdict.statement,
+                     formula=FORMULAS[key], uses=("frame",), result=verdict, params={"inequalities": {}})
+        c.results["energy_conditions"] = table
+        return True
+
+
+NULL_DUST_WORDS = {
+    "null": "T_ab l^a l^b >= 0 for every null vector l",
+    "weak": "T_ab t^a t^b >= 0 for every timelike vector t",
+    "strong": "(T_ab - T g_ab/(n-2)) t^a t^b >= 0 for every timelike vector t",
+    "dominant": "T_ab t^a t^b >= 0 and -T^a_b t^b causal for every future timelike t",
+}
+
+
 
 
 def residue_label(key: tuple) -> str:

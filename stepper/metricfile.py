@@ -28,6 +28,10 @@ Optional requests beyond curvature::
     time = "t"                   # observers are normal to time = const (default: first coordinate)
     [matter.region]              # ranges for sampling undecided energy conditions
     r = ["3", "20"]
+    [matter.model]               # declared matter: its T_ij, field equations and div T = 0
+    kind = "perfect fluid"       # or "dust", "scalar field", "electromagnetic field"
+    density = "rho"              # declared functions or expressions; also pressure, velocity = { t = ... },
+    pressure = "p"               # field and potential (scalar field), vector_potential = { t = ... } (A_a)
     [ansatz]                     # solve G_ij + Lambda g_ij = 0 for free functions
     unknowns = ["A", "B"]
     cosmological_constant = "0"
@@ -44,6 +48,22 @@ Optional requests beyond curvature::
     range = ["2", "12"]
     values = { M = "1", theta = "pi/2" }   # a number for every parameter; coordinates as needed
     shade = "null"               # optional: shade where this energy condition fails (needs [matter])
+    [frame]                      # a frame of your own, checked and used instead of stepper's observers
+    kind = "orthonormal"         # or "null": a null tetrad l, n, m
+    index = "up"                 # components of vectors e^i; "down": of covectors e_i (raised by stepper)
+    [frame.vectors]              # orthonormal: one vector per coordinate, named after it; the first is timelike
+    t = { t = "1/sqrt(1 - 2*M/r)" }          # coordinates not listed have component 0
+    r = { r = "sqrt(1 - 2*M/r)" }
+    theta = { theta = "1/r" }
+    phi = { phi = "1/(r*sin(theta))" }
+
+With ``kind = "null"`` the vectors are ``l`` (required), ``n`` and ``m`` (optional): l and n real and null with
+l.n = -1; m complex with m.m = 0, m.mbar = 1 and orthogonal to l and n, each component of m written as
+``"text"`` (real) or ``["real part", "imaginary part"]``, e.g. ``m = { theta = "1/(sqrt(2)*r)", phi =
+["0", "1/(sqrt(2)*r*sin(theta))"] }``.  Each vector's components must be rational functions of the metric's
+symbols times one common square-root factor.  stepper records that the vectors are what they claim (exact
+products), uses an orthonormal frame for the frame components and energy conditions of ``[matter]``, and
+the null vectors for the null energy condition.
 """
 
 from __future__ import annotations
@@ -59,7 +79,7 @@ import sympy
 from .errors import InputError
 from .algebra import printer_stable
 from .metric import AnsatzRequest, MatterRequest, Metric, OrbitRequest, _validate
-from .record import FUNCTION_SIGN_WORDS, PLOT_SHADES, FunctionSign, PlotRequest
+from .record import FUNCTION_SIGN_WORDS, MODEL_KINDS, PLOT_SHADES, FrameRequest, FunctionSign, MatterModel, PlotRequest
 from .quantities import QUANTITIES
 from .parse import Vocabulary, check_identifier, parse_expression
 
@@ -73,8 +93,8 @@ ASSUMPTIONS = {
 }
 
 KNOWN_KEYS = ("title", "notes", "coordinates", "line_element", "components", "symbols", "functions",
-              "abbreviations", "matter", "ansatz", "orbit", "plot")
-MATTER_KEYS = ("units", "cosmological_constant", "time", "region")
+              "abbreviations", "matter", "ansatz", "orbit", "plot", "frame")
+MATTER_KEYS = ("units", "cosmological_constant", "time", "region", "model")
 ANSATZ_KEYS = ("unknowns", "cosmological_constant")
 ORBIT_KEYS = ("kind", "time", "values", "start", "velocity", "span")
 PLOT_KEYS = ("quantity", "along", "range", "values", "shade")
@@ -259,6 +279,8 @@ def metric_from_data(data: dict[str, Any], default_title: str = "Untitled metric
     if "plot" in data:
         requests["plots"] = _plot_requests(data["plot"], coordinates, symbols, functions, used,
                                            requests.get("matter"))
+    if "frame" in data:
+        requests["frame"] = _frame_request(_table(data, "frame"), coordinates, vocabulary)
     return Metric(
         coordinates=coordinates,
         matrix=matrix,
@@ -267,7 +289,7 @@ def metric_from_data(data: dict[str, Any], default_title: str = "Untitled metric
         functions=tuple(functions.values()),
         abbreviations=tuple(abbreviations.items()),
         line_element=line,
-        line_element_expression=line_expression,
+        line_element_expression=None if line_expression is None else printer_stable(line_expression),
         notes=notes,
         assumptions=tuple((n, declared.get(n, "real")) for n in list(names) + [p.name for p in parameters]),
         function_signs=tuple(function_signs),
@@ -338,9 +360,12 @@ def _constant_expression(table: dict, key: str, symbols: dict, where: str, coord
     text = table.get(key, "0")
     if isinstance(text, (int, float)) and not isinstance(text, bool):
         text = repr(text)
-    if not isinstance(text, str):
+    if isinstance(text, sympy.Basic):  # from Python (Metric.from_matrix): an exact expression already
+        value = text
+    elif not isinstance(text, str):
         raise InputError(f"'{where}.{key}' must be text")
-    value = parse_expression(text, Vocabulary(symbols, {}, {}), f"{where}.{key}")
+    else:
+        value = parse_expression(text, Vocabulary(symbols, {}, {}), f"{where}.{key}")
     bad = [s.name for s in value.free_symbols if s in set(coordinates)]
     if bad:
         raise InputError(f"'{where}.{key}' must be a constant, but it uses the coordinate '{bad[0]}'")
@@ -385,8 +410,69 @@ def _matter_request(table: dict, coordinates, symbols: dict, functions: dict) ->
         if not low <= high:
             raise InputError(f"matter.region.{name}: the low end {low} is above the high end {high}")
         region.append((symbols[name], low, high))
-    return MatterRequest(time=_coordinate(table, "time", coordinates, "matter"), units=units,
-                         cosmological_constant=lam, newton=newton, light=light, region=tuple(region))
+    time = _coordinate(table, "time", coordinates, "matter")
+    model = _matter_model(_table(table, "model"), coordinates, symbols, functions) if "model" in table else None
+    return MatterRequest(time=time, units=units,
+                         cosmological_constant=lam, newton=newton, light=light, region=tuple(region), model=model)
+
+
+MODEL_KEYS = {"perfect fluid": ("kind", "density", "pressure", "velocity"),
+              "dust": ("kind", "density", "velocity"),
+              "scalar field": ("kind", "field", "potential"),
+              "electromagnetic field": ("kind", "vector_potential")}
+
+
+def _matter_model(table: dict, coordinates, symbols: dict, functions: dict) -> MatterModel:
+    """[matter.model]: the matter the metric is to hold (see stepper/models.py).
+
+    kind = "perfect fluid" (density, pressure, optional velocity), "dust" (density, optional velocity),
+    "scalar field" (field, optional potential, an expression that may hold the field) or
+    "electromagnetic field" (vector_potential = { t = "Q/r" }, lower components A_a, the others 0).
+    velocity = { t = "..." , ... } gives u^a (upper components, the others 0); without it the fluid is at
+    rest along the time coordinate, u^a = delta^a_t / sqrt(-g_tt)."""
+    kind = table.get("kind")
+    if kind not in MODEL_KINDS:
+        raise InputError(f"'matter.model.kind' must be one of {', '.join(repr(k) for k in MODEL_KINDS)}, not {kind!r}")
+    _check_keys(table, MODEL_KEYS[kind], f"matter.model ({kind})")
+    vocabulary = Vocabulary(symbols, functions, {})
+    names = [c.name for c in coordinates]
+
+    def expression(key: str, required: bool) -> sympy.Expr | None:
+        if key not in table:
+            if required:
+                raise InputError(f"matter.model ({kind}) needs '{key}', e.g. {key} = \"rho\" for a declared function")
+            return None
+        text = table[key]
+        if not isinstance(text, str):
+            raise InputError(f"'matter.model.{key}' must be text")
+        return parse_expression(text, vocabulary, f"matter.model.{key}")
+
+    def per_coordinate(key: str) -> tuple:
+        if key not in table:
+            return ()
+        given = _table(table, key)
+        for name in given:
+            if name not in names:
+                raise InputError(f"matter.model.{key}: '{name}' is not a coordinate ({', '.join(names)})")
+            if not isinstance(given[name], str):
+                raise InputError(f"'matter.model.{key}.{name}' must be text")
+        if not given:
+            raise InputError(f"matter.model.{key} needs at least one component")
+        return tuple(parse_expression(given[n], vocabulary, f"matter.model.{key}.{n}") if n in given
+                     else sympy.Integer(0) for n in names)
+
+    if kind in ("perfect fluid", "dust"):
+        density = expression("density", True)
+        pressure = expression("pressure", True) if kind == "perfect fluid" else sympy.Integer(0)
+        return MatterModel(kind, density=density, pressure=pressure, velocity=per_coordinate("velocity"))
+    if kind == "scalar field":
+        field = expression("field", True)
+        return MatterModel(kind, field=field, potential=expression("potential", False) or sympy.Integer(0))
+    potential = per_coordinate("vector_potential")
+    if not potential:
+        raise InputError("matter.model (electromagnetic field) needs 'vector_potential', e.g. "
+                         "vector_potential = { t = \"-Q/r\" }")
+    return MatterModel(kind, vector_potential=potential)
 
 
 #: Region bounds and orbit values: a rational or a rational multiple of pi, at most this large.
@@ -399,9 +485,12 @@ def _number(text, symbols: dict, where: str) -> sympy.Expr:
     such as "pi/2", at most a million in size."""
     if isinstance(text, (int, float)) and not isinstance(text, bool):
         text = repr(text)
-    if not isinstance(text, str):
+    if isinstance(text, sympy.Basic):  # from Python (Metric.from_matrix): an exact number already
+        value = text
+    elif not isinstance(text, str):
         raise InputError(f"{where} must be a number in quotes, e.g. \"1/2\"")
-    value = parse_expression(text, Vocabulary({}, {}, {}), where)
+    else:
+        value = parse_expression(text, Vocabulary({}, {}, {}), where)
     coefficient, rest = value.as_coeff_Mul()
     if not coefficient.is_Rational or rest not in (sympy.Integer(1), sympy.pi):
         raise InputError(f"{where} must be a rational number or a rational multiple of pi, not {text!r}")
@@ -636,3 +725,76 @@ def matrix_from_components(rows, coordinates, vocabulary: Vocabulary) -> sympy.I
             if sympy.cancel(g[i][j] - g[j][i]) != 0:
                 raise InputError(f"'components' is not symmetric: entry [{i + 1}][{j + 1}] differs from [{j + 1}][{i + 1}]")
     return sympy.ImmutableMatrix([[printer_stable(e) for e in row] for row in g])
+
+
+FRAME_KEYS = ("kind", "index", "vectors")
+FRAME_KINDS = ("orthonormal", "null")
+NULL_TETRAD_NAMES = ("l", "n", "m")
+
+
+def _frame_request(table: dict, coordinates, vocabulary: Vocabulary) -> FrameRequest:
+    """The [frame] table: kind, index and one table of components per vector (read with stepper.parse)."""
+    _check_keys(table, FRAME_KEYS, "frame")
+    kind = table.get("kind", "orthonormal")
+    if kind not in FRAME_KINDS:
+        raise InputError(f"'frame.kind' must be \"orthonormal\" or \"null\", not {kind!r}")
+    index = table.get("index", "up")
+    if index not in ("up", "down"):
+        raise InputError(f"'frame.index' must be \"up\" (vector components) or \"down\" (covector components), "
+                         f"not {index!r}")
+    names = [c.name for c in coordinates]
+    given = _table(table, "vectors")
+    if not given:
+        raise InputError("[frame] needs [frame.vectors], e.g. t = { t = \"1\" } for each vector")
+    if kind == "orthonormal":
+        wanted = names
+        for label in given:
+            if label not in names:
+                raise InputError(f"frame.vectors: '{label}' is not a coordinate (an orthonormal frame names each "
+                                 f"vector after a coordinate: {', '.join(names)})")
+        missing = [n for n in names if n not in given]
+        if missing:
+            raise InputError(f"frame.vectors is missing '{missing[0]}' (an orthonormal frame needs one vector per "
+                             "coordinate, the first listed timelike)")
+    else:
+        wanted = list(NULL_TETRAD_NAMES)
+        for label in given:
+            if label not in wanted:
+                raise InputError(f"frame.vectors: '{label}' is not one of l, n, m (a null tetrad)")
+        if "l" not in given:
+            raise InputError("frame.vectors needs 'l', a null vector, when frame.kind = \"null\"")
+    vectors = []
+    for label, entries in given.items():
+        where = f"frame.vectors.{label}"
+        if not isinstance(entries, dict) or not entries:
+            raise InputError(f"{where} must be a table of components, e.g. {label} = {{ {names[0]} = \"1\" }}")
+        components = [sympy.Integer(0)] * len(names)
+        for coordinate, text in entries.items():
+            if coordinate not in names:
+                raise InputError(f"{where}: '{coordinate}' is not a coordinate")
+            components[names.index(coordinate)] = _frame_component(text, vocabulary, f"{where}.{coordinate}",
+                                                                   complex_allowed=(label == "m"))
+        if all(c == 0 for c in components):
+            raise InputError(f"{where}: every component is zero")
+        vectors.append((label, tuple(components)))
+    return FrameRequest(kind=kind, vectors=tuple(vectors), index=index)
+
+
+def _frame_component(text, vocabulary: Vocabulary, where: str, complex_allowed: bool) -> sympy.Expr:
+    """One component: an expression in quotes (or a number), or for m a pair [real part, imaginary part]."""
+    if isinstance(text, list):
+        if not complex_allowed:
+            raise InputError(f"{where}: only m may have complex components ([real part, imaginary part])")
+        if len(text) != 2:
+            raise InputError(f"{where} must be [\"real part\", \"imaginary part\"]")
+        real, imaginary = (_frame_component(t, vocabulary, where, False) for t in text)
+        return printer_stable(real + sympy.I * imaginary)
+    if isinstance(text, sympy.Basic):  # from Python (Metric.from_matrix): an exact expression already
+        if text.has(sympy.I) and not complex_allowed:
+            raise InputError(f"{where}: only m may have complex components ([real part, imaginary part])")
+        return printer_stable(text)
+    if isinstance(text, (int, float)) and not isinstance(text, bool):
+        text = repr(text)
+    if not isinstance(text, str):
+        raise InputError(f"{where} must be an expression in quotes")
+    return printer_stable(parse_expression(text, vocabulary, where))

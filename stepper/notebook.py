@@ -49,12 +49,13 @@ from .record import as_expression
 from .record import Derivation
 from .quantities import QUANTITIES, in_position
 from .runtime import MODULES as RUNTIME_MODULES, inlined_source
-from .record import ASSUMPTION_WORDS, HOLDS_WORDS, Decision, Method, Step, Verdict
+from .record import ASSUMPTION_WORDS, HOLDS_WORDS, MODEL_KINDS, Decision, Method, Step, Verdict
 from .plots import ORBIT_DIGITS, ORBIT_END_TOLERANCE, orbit_plot, plots as derivation_plots
 
 #: The project's own templates; user directories given to :func:`notebook_text` come first.
 from .exporters import template_environment  # noqa: E402  (one environment for every template set)
 from .latex import without_invisible  # noqa: E402
+from .report import partial_words  # noqa: E402
 
 KERNELSPEC = {"display_name": "Python 3", "language": "python", "name": "python3"}
 
@@ -86,6 +87,7 @@ _NOTEBOOK_NAMES = _runtime_names() | frozenset("""
     orbit_solution orbit_span orbit_start orbit_time orbit_time_rate orbit_tolerance orbit_values
     check_plot plot_data recorded_einstein_constant solved_ricci solved_scalar solved_kretschmann
     check_orbit_plot orbit_end
+    recorded_tetrad products directions unnormalised expected
 """.split())
 
 
@@ -194,6 +196,13 @@ class _Source:
             name = applied.func.__name__
             if name not in self.functions:
                 self.functions[name] = _identifier_for(name, taken)
+        for step in derivation.steps:  # functions a matter model's solved form introduced (a mass function)
+            if step.kind.value == "model" and step.quantity == "model_solution":
+                for key in ("mass_function", "redshift_function", "scale_factor"):
+                    value = step.params.get(key)
+                    name = value.func.__name__ if isinstance(value, AppliedUndef) else None
+                    if name is not None and name not in self.functions:
+                        self.functions[name] = _identifier_for(name, taken)
         # Symbols the derivation introduced beyond the metric's own: integration constants, the velocity
         # components of the geodesic equations, a cosmological constant or G and c used only by [matter].
         known = set(metric.coordinates) | set(metric.parameters)
@@ -319,6 +328,10 @@ _ANSATZ_HELPERS = inlined_source("ansatz")
 
 _GEODESIC_HELPERS = inlined_source("geodesics")
 
+_PETROV_HELPERS = inlined_source("petrov")
+
+_MODEL_HELPERS = inlined_source("models")
+
 
 # --------------------------------------------------------------------------
 # Step cells
@@ -375,6 +388,10 @@ class _Cells:
             ("invariant", "kretschmann", ""): self.kretschmann,
             ("tensor", "weyl", ""): self.weyl,
             ("tensor", "cotton", ""): self.cotton,
+            ("frame", "null_tetrad", ""): self.null_tetrad,
+            ("check", "null_tetrad", "normalisation"): self.null_tetrad_check,
+            ("frame components", "weyl_scalars", ""): self.weyl_scalars,
+            ("verdict", "algebraic_type", ""): self.algebraic_type,
             ("verdict", "ricci_flat", ""): self.ricci_flat,
             ("verdict", "einstein_space", ""): self.einstein_space,
             ("verdict", "constant_curvature", ""): self.constant_curvature,
@@ -387,6 +404,10 @@ class _Cells:
             ("raising", "stress_energy_up", ""): self.stress_energy_up,
             ("verdict", "trace_free", ""): self.trace_free,
             ("frame", "", ""): self.frame,
+            ("frame", "", "given"): self.given_frame,
+            ("check", "", "given frame"): self.given_frame_check,
+            ("check", "", "null directions"): self.null_directions,
+            ("check", "", "null dust"): self.null_dust,
             ("check", "", "frame"): self.frame_check,
             ("frame components", "frame_stress_energy", ""): self.frame_stress_energy,
             ("frame components", "frame_ricci", ""): self.frame_ricci,
@@ -402,6 +423,10 @@ class _Cells:
             ("ansatz", "ansatz_solution", "properties"): self.ansatz_properties,
             ("geodesic", "", ""): self.geodesic_equations,
             ("claim", "*", "*"): self.claim,
+            ("model", "model_stress_energy", ""): self.model_stress_energy,
+            ("model", "model_equation", "equations"): self.model_equations,
+            ("model", "model_conservation", ""): self.model_conservation,
+            ("model", "model_solution", "*"): self.model_solved,
             # components an audit raised or lowered into the index position a claim names
             **{(kind, name, "*"): self.moved_component for name, q in QUANTITIES.items() if q.tensor == name
                for kind in ("raising", "lowering")},
@@ -742,6 +767,8 @@ claim_agrees = vanishes(claimed - derived)
                     if "geodesic_equations" in results else None)
         if quantity == "ansatz_solution":
             return self._derived_ansatz_solution(number, component, p)
+        if quantity == "model_conservation":
+            return f"model_divergence({self.s.name(component)})" if quantity in results else None
         raise NotebookError(f"claim {number}: unknown quantity {quantity!r}")
 
     def _derived_ansatz_solution(self, number: int, function_name: str, p: dict) -> str | None:
@@ -854,6 +881,76 @@ check_table("cotton", recorded, cotton_from_ricci, cotton_index_sets())
 fill_cotton(cotton, recorded)
 {self._done(step)}"""
         return "cotton", code
+
+    # the Weyl scalars and the algebraic type (stepper.petrov) ---------------------
+    def _literal(self, value) -> str:
+        """Plain data of a step's params as Python source: expressions printed, text quoted (the texts are
+        stepper's own words and coordinate names), numbers and booleans as they are."""
+        if isinstance(value, dict):
+            return "{" + ", ".join(f"{self._literal(k)}: {self._literal(v)}" for k, v in value.items()) + "}"
+        if isinstance(value, (list, tuple)):
+            return "[" + ", ".join(self._literal(v) for v in value) + "]"
+        if isinstance(value, str):
+            if not all(ch.isalnum() or ch in " _^-" for ch in value):
+                raise NotebookError(f"the text {value!r} has characters the notebook does not write into code")
+            return f'"{value}"'
+        if value is None or isinstance(value, (bool, float)):
+            return repr(value)
+        return self.s.expr(value)
+
+    def null_tetrad(self, step):
+        p, lit = step.params, self._literal
+        code = f"""# The recorded Gram-Schmidt order, unnormalised vectors w_k, squared norms N_k and their signs, the roots
+# sqrt|N_k|, the products of |N_k| that are perfect squares, and the tetrad vectors (components not listed are zero).
+tetrad_roots = {lit(p["roots"])}
+recorded_vectors = {lit(step.result)}
+check_null_tetrad({self._id(step)}, {lit(p["order"])}, {lit(p["vectors_unnormalised"])},
+                  {lit(p["squared_norms"])}, {lit(p["signs"])}, tetrad_roots,
+                  {lit([[q["directions"], q["value"]] for q in p["perfect_squares"]])}, recorded_vectors,
+                  {lit(p["pairs"])}, {lit(p["sign_point"])})
+{self._done(step)}"""
+        return "null_tetrad", code
+
+    def null_tetrad_check(self, step):
+        code = f"""{self._holds(step)}
+# g(w_a, w_b) - delta_ab N_a for the unnormalised vectors rebuilt above: with e_k = w_k / sqrt|N_k| this makes
+# l.n = -1, m.mbar = 1 and every other product of tetrad vectors 0.
+residues = {{f"g(w_{{a}}, w_{{b}}) - delta N": metric_inner(tetrad_unnormalised[a], tetrad_unnormalised[b])
+            - (tetrad_norms[a] if a == b else 0)
+            for position, a in enumerate(tetrad_order) for b in tetrad_order[position:]}}
+verdict({self._id(step)}, recorded_holds, residues)"""
+        return "null_tetrad_check", code
+
+    def weyl_scalars(self, step):
+        lit = self._literal
+        if "tetrad" in step.params:  # the metric file's tetrad
+            code = f"""# The Weyl scalars for the tetrad of the metric file, contracted here with the recorded Weyl tensor.
+recorded_vectors = {lit(step.params["tetrad"])}
+recorded = {lit(step.result)}
+weyl_scalar_values = check_weyl_scalars_given({self._id(step)}, recorded, recorded_vectors)
+{self._done(step)}"""
+            return "weyl_scalars", code
+        code = f"""# Each Psi as a sum of parts: coefficient * (i if imaginary) * the product of the listed roots sqrt|N_k|.
+recorded_parts = {lit(step.params["parts"])}
+recorded = {lit(step.result)}
+weyl_scalar_values = check_weyl_scalars({self._id(step)}, recorded_parts, recorded, tetrad_roots)
+{self._done(step)}"""
+        return "weyl_scalars", code
+
+    def algebraic_type(self, step):
+        p, lit = step.params, self._literal
+        given = any(s.quantity == "weyl_scalars" and "tetrad" in s.params for s in self.d.steps)
+        if given:
+            code = f"""recorded_type = {lit(p["type"])}
+recorded_invariants = {lit(p["invariants"])}
+decisions = {lit(p["decisions"])}
+check_algebraic_type_given({self._id(step)}, recorded_type, recorded_invariants, decisions, weyl_scalar_values)"""
+            return "algebraic_type", code
+        code = f"""recorded_type = {lit(p["type"])}
+recorded_invariants = {lit(p["invariant_parts"])}
+decisions = {lit(p["decisions"])}
+check_algebraic_type({self._id(step)}, recorded_type, recorded_invariants, decisions, weyl_scalar_values)"""
+        return "algebraic_type", code
 
     # verdicts -------------------------------------------------------------
     def ricci_flat(self, step):
@@ -985,6 +1082,8 @@ if (frame_broken_at is None) != (recorded_holds is not False):
     raise AssertionError("step frame: recorded that no frame exists, but the construction here disagrees")
 print(f"frame: the construction breaks down at the vector {{frame_broken_at}}, as recorded")"""
             return "frame_missing", code
+        if step.params.get("given"):
+            return self.given_orthonormal_frame(step)
         time, order = step.params["time"], step.params["order"]
         vectors = step.result["vectors"]
         norms = step.result["squared_norms"]
@@ -1007,6 +1106,82 @@ frame_vectors.update(recorded_vectors)
 frame_norms.update(recorded_norms)
 {self._done(step)}"""
         return "frame", code
+
+    def _vectors_source(self, vectors: dict) -> str:
+        """{label: {coordinate: component}} as Python source (labels as string literals)."""
+        lines = ",\n".join(f"    {_label_literal(label)}: {{"
+                            + ", ".join(f"{self.s.name(i)}: {self.s.expr(v)}" for i, v in components.items()) + "}"
+                            for label, components in vectors.items())
+        return "{\n" + lines + ",\n}" if lines else "{}"
+
+    def given_frame(self, step):
+        p = step.params
+        index = "down" if p.get("index") == "down" else "up"
+        code = f"""# The vectors as the metric file gives them ({'covector' if index == 'down' else 'vector'} components; those not listed are zero).
+given = {self._vectors_source(p["given"])}
+# The recorded vectors with upper indices, and the null tetrad built from an orthonormal frame (if any).
+recorded = {self._vectors_source(step.result["vectors"])}
+recorded_tetrad = {self._vectors_source(step.result.get("null_tetrad", {}))}
+check_given_vectors({self._id(step)}, given, "{index}", recorded, recorded_tetrad)
+given_frame_vectors.update(recorded)
+given_tetrad.update(recorded_tetrad)
+{self._done(step)}"""
+        return "given_frame", code
+
+    def given_frame_check(self, step):
+        products = "[\n" + "".join(
+            f"    {{\"first\": {_label_literal(q['first'])}, \"second\": {_label_literal(q['second'])}, "
+            f"\"value\": {int(q['value'])}}},\n" for q in step.params.get("products", [])) + "]"
+        code = f"""{self._holds(step)}
+# Each product the vectors must have: g(first, second) = value (mbar is the complex conjugate of m).
+products = {products}
+verdict({self._id(step)}, recorded_holds, given_products(given_frame_vectors, products))"""
+        return "given_frame_check", code
+
+    def null_directions(self, step):
+        entries = []
+        for name, entry in step.params.get("directions", {}).items():
+            source = "coordinate vector" if entry["source"] == "coordinate vector" else "coordinate gradient"
+            upper = "{" + ", ".join(f"{self.s.name(i)}: {self.s.expr(v)}" for i, v in entry["upper"].items()) + "}"
+            lower = "{" + ", ".join(f"{self.s.name(i)}: {self.s.expr(v)}" for i, v in entry["lower"].items()) + "}"
+            entries.append(f"    {_label_literal(name)}: {{\"source\": \"{source}\", "
+                           f"\"coordinate\": {self.s.name(entry['coordinate'])},\n"
+                           f"        \"upper\": {upper},\n        \"lower\": {lower}}},")
+        code = f"""{self._holds(step)}
+# The recorded null directions: d_v where g_vv = 0, du where g^uu = 0 (components not listed are zero).
+directions = {{
+{chr(10).join(entries)}
+}}
+verdict({self._id(step)}, recorded_holds, null_direction_residues({self._id(step)}, directions))"""
+        return "null_directions", code
+
+    def null_dust(self, step):
+        p = step.params
+        if step.result.holds and "density" in p:
+            code = f"""{self._holds(step)}
+# The recorded density f of null dust along the recorded null vector k: T_ij = f k_i k_j.
+null_dust_density = {self.s.expr(p["density"])}
+verdict({self._id(step)}, recorded_holds, null_dust_residues({self._id(step)}, {_label_literal(p["direction"])}, null_dust_density))"""
+        else:
+            code = f"""{self._holds(step)}
+# Not null dust along the first null vector tried: some T_ij - f k_i k_j does not vanish.
+verdict({self._id(step)}, recorded_holds, null_dust_residues({self._id(step)}, {_label_literal(p["direction"])}, {self.s.expr(p["density"])}))"""
+        return "null_dust", code
+
+    def given_orthonormal_frame(self, step):
+        order = step.params["order"]
+        code = f"""frame_order = [{", ".join(self.s.name(label) for label in order)}]
+# The recorded frame (the metric file's, checked in an earlier cell): e_(a) = w_(a) / sqrt(N_(a)) with w_(a) rational.
+recorded_vectors = {self._vectors_source(step.result["vectors"])}
+recorded_norms = {{{", ".join(f"{self.s.name(k)}: {self.s.expr(v)}" for k, v in step.result["squared_norms"].items())}}}
+unnormalised = {self._vectors_source(step.params["unnormalised"])}
+frame_region = {self._frame_region()}
+frame_point = check_given_orthonormal_frame({self._id(step)}, recorded_vectors, recorded_norms, unnormalised)
+frame_vectors.update(recorded_vectors)
+frame_norms.update(recorded_norms)
+frame_unnormalised = unnormalised
+{self._done(step)}"""
+        return "given_orthonormal_frame", code
 
     def frame_check(self, step):
         code = f"""{self._holds(step)}
@@ -1054,7 +1229,7 @@ pressures.update(recorded["pressures"])
         return "density_and_pressures", code
 
     def _frame_built(self) -> bool:
-        return any(s.kind == "frame" and not isinstance(s.result, Verdict) for s in self.d.steps)
+        return any(s.kind == "frame" and s.quantity == "" and s.component == "" and not isinstance(s.result, Verdict) for s in self.d.steps)
 
     def perfect_fluid(self, step):
         holds = step.result.holds
@@ -1100,6 +1275,9 @@ if recorded_holds is not None or (frame_vectors and stress_energy_diagonal_in_fr
     raise AssertionError("step {step.id}: the frame exists and T is diagonal in it, so this should have been decided")
 print("{step.id}: undecided (no frame, or T not diagonal in it), as recorded")"""
             return "energy_condition_undecided", code
+        route = step.params.get("route")
+        if route in ("null dust", "null vectors"):
+            return self.energy_condition_along_null(step, route, rows)
         table = ",\n".join(f"    {_label_literal(label)}: ({self.s.expr(row['value'])}, {row['holds']!r})"
                            for label, row in rows.items())
         lines = [self._holds(step),
@@ -1118,6 +1296,42 @@ print("{step.id}: undecided (no frame, or T not diagonal in it), as recorded")""
                   f"    raise AssertionError(\"step {step.id}: the answers of the inequalities do not give the recorded answer\")",
                   f"print(\"{step.id}: {_ANSWER[step.result.holds]}, as recorded\")"]
         return "energy_condition", "\n".join(lines)
+
+    def energy_condition_along_null(self, step, route: str, rows: dict):
+        """An energy condition read along null vectors: null dust (every condition holds exactly when f >= 0) or
+        T_ab k^a k^b >= 0 along known null vectors (a negative value disproves the null condition; non-negative
+        values decide nothing)."""
+        lines = [self._holds(step), "# Each inequality value >= 0: (the recorded value, the recorded answer)."]
+        table = ",\n".join(f"    {_label_literal(label)}: ({self.s.expr(row['value'])}, {row['holds']!r})"
+                           for label, row in rows.items())
+        lines += ["recorded = {", table, "}"]
+        for label, row in rows.items():
+            symbol = row.get("symbol", {})
+            if symbol.get("kind") == "null dust density":
+                recomputed = "null_dust_density"
+            else:
+                recomputed = f"along_null_vector({_label_literal(symbol.get('direction', ''))})"
+            lines.append(f"check({self._id(step)}, recorded[{_label_literal(label)}][0], {recomputed}, "
+                         f"part={_label_literal(label)})")
+            how, point = self._inequality_how(row)
+            extra = "" if point is None else ", " + point
+            signs = self._function_signs_source(row)
+            if signs:
+                extra += ", signs=" + signs
+            lines.append(f"recheck_inequality({self._id(step)}, {_label_literal(label)}, "
+                         f"recorded[{_label_literal(label)}][0], \"{how}\"{extra})")
+        if route == "null dust":
+            lines.append("# Null dust: the condition holds exactly when f >= 0, so its answer is that of f >= 0.")
+            lines.append("expected = combined_answer([answer for _, answer in recorded.values()])")
+        else:
+            lines.append("# Along a few null vectors a negative value violates the null condition; non-negative values "
+                         "decide nothing.")
+            lines.append("expected = False if any(answer is False for _, answer in recorded.values()) else None")
+        lines += ["if expected != recorded_holds:",
+                  f"    raise AssertionError(\"step {step.id}: the answers of the inequalities do not give the recorded answer\")",
+                  f"print(\"{step.id}: {_ANSWER[step.result.holds]}, as recorded\")"]
+        topic = "energy_condition_null_dust" if route == "null dust" else "energy_condition_null_vectors"
+        return topic, "\n".join(lines)
 
     def _inequality_how(self, row) -> tuple[str, str | None]:
         """How a recorded answer to value >= 0 was reached (the recorded decision), and the exact point
@@ -1159,6 +1373,105 @@ print("{step.id}: undecided (no frame, or T not diagonal in it), as recorded")""
                 raise NotebookError(f"a recorded point names {name!r}, which is not a symbol of the derivation")
             entries.append(f"{self.s.expr(by_name[name])}: {self.s.expr(value)}")
         return "{" + ", ".join(entries) + "}"
+
+    # [matter.model] -------------------------------------------------------------
+    def _model_declaration(self) -> str:
+        request = self.d.metric.matter
+        model = request.model if request is not None else None
+        if model is None:
+            raise NotebookError("a matter-model step without [matter.model] in the recorded request")
+        names = self.d.metric.names
+        parts = [f'"kind": "{model.kind}"' if model.kind in MODEL_KINDS else None]
+        if parts[0] is None:
+            raise NotebookError(f"unknown matter model {model.kind!r}")
+        for key in ("density", "pressure", "field", "potential"):
+            value = getattr(model, key)
+            if value is not None:
+                parts.append(f'"{key}": {self.s.expr(value)}')
+        for key, values in (("velocity", model.velocity), ("vector_potential", model.vector_potential)):
+            if values:
+                inner = ", ".join(f"{self.s.name(n)}: {self.s.expr(v)}" for n, v in zip(names, values) if v != 0)
+                parts.append(f'"{key}": {{{inner}}}')
+        parts.append(f'"time": {self.s.name(request.time.name)}')
+        return "{" + ", ".join(parts) + "}"
+
+    def model_stress_energy(self, step):
+        p = step.params
+        norm = ""
+        if p.get("velocity_default") is False:
+            norm = (f"\ncheck({self._id(step)}, {self.s.expr(p['normalisation'])}, sum(component(metric, i, j) * "
+                    "expression(model_declaration['velocity'].get(i, 0)) * expression(model_declaration['velocity']"
+                    ".get(j, 0)) for i in index_names for j in index_names), part=\"g_ab u^a u^b\")")
+        code = f"""model_declaration = {self._model_declaration()}
+# The recorded T_ab (a <= b; T_ba = T_ab, those not listed are zero).
+recorded = {self.s.table(step.result)}
+recorded.update({{(b, a): value for (a, b), value in list(recorded.items())}})
+check_table({self._id(step)}, recorded, lambda a, b: model_stress_energy_from_declaration(model_declaration, a, b),
+            every_index(2)){norm}
+model_stress_energy.update(recorded)
+{self._done(step)}"""
+        return "model_stress_energy", code
+
+    def model_equations(self, step):
+        p = step.params
+        duplicates = ",\n".join(f"    {self.s.key(k)}: ({self.s.key(v['of'])}, {self.s.expr(v['factor'])})"
+                                for k, v in p["duplicates"].items())
+        duplicates = ("\n" + duplicates + ",\n") if duplicates else ""
+        zero = ", ".join(self.s.key(k) for k in p["identically_zero"])
+        code = f"""model_unknowns = [{", ".join(self.s.expr(u) for u in p["unknowns"])}]
+check({self._id(step)}, {self.s.expr(p["kappa"])}, kappa, part="kappa")
+check({self._id(step)}, {self.s.expr(p["cosmological_constant"])}, cosmological_constant, part="Lambda")
+# Each listed equation: the numerator of E_ij = G_ij + Lambda g_ij - kappa T_ij, factors that cannot vanish removed.
+recorded = {self.s.table(step.result)}
+# Components recorded as a multiple of a listed one (by the factor given), and those that vanish identically.
+model_duplicates.update({{{duplicates}}})
+check_model_equations({self._id(step)}, recorded, model_duplicates, [{zero}], model_unknowns)
+model_equations.update(recorded)
+{self._done(step)}"""
+        return "model_equations", code
+
+    def model_conservation(self, step):
+        p = step.params
+        recorded = ", ".join(f"{self.s.name(b)}: {self.s.expr(v)}" for b, v in step.result.items())
+        follows = ",\n".join(
+            f"    {self.s.key(k)}: ([{', '.join(self.s.key(o) for o in v['from'])}], {self.s.name(v['bianchi_component'])}, "
+            f"{self.s.expr(v['coefficient'])})" for k, v in p["follows"].items())
+        follows = ("\n" + follows + ",\n") if follows else ""
+        independent = ", ".join(self.s.key(k) for k in p["independent"])
+        code = f"""# nabla_a T^a_b for each b (those not listed vanish).
+recorded = {{{recorded}}}
+# Each equation recorded as following from others: (those others, the component b of the identity
+# nabla^a E_ab = -kappa nabla_a T^a_b, the coefficient with which it enters undifferentiated).
+recorded_follows = {{{follows}}}
+check_model_conservation({self._id(step)}, recorded, recorded_follows, model_duplicates)
+if sorted([{independent}] + list(recorded_follows)) != sorted(model_equations):
+    raise AssertionError("step {step.id}: the independent equations and those that follow are not the listed ones")
+{self._done(step)}"""
+        return "model_conservation", code
+
+    def model_solved(self, step):
+        p = step.params
+        definitions = ", ".join(f"({self.s.expr(old)}, {self.s.expr(new)})" for old, new in p.get("definitions", []))
+        rows = []
+        for eq in p["equations"]:
+            if eq["source"] not in ("conservation", "field equation"):
+                raise NotebookError(f"unknown source {eq['source']!r} of a solved equation")
+            component = "(" + self.s.names(eq["component"]) + ("," if eq["source"] == "conservation" else "") + ")"
+            replace = ", ".join(f"({self.s.expr(old)}, {self.s.expr(new)})" for old, new in eq["replace"])
+            if eq["name"] not in ("mass", "redshift", "conservation", "tov", "friedmann", "acceleration", "continuity"):
+                raise NotebookError(f"unknown solved equation {eq['name']!r}")
+            rows.append(f'    {{"name": "{eq["name"]}", "lhs": {self.s.expr(eq["lhs"])}, '
+                        f'"rhs": {self.s.expr(eq["rhs"])},\n     "source": "{eq["source"]}", "component": {component}, '
+                        f'"replace": [{replace}]}},')
+        code = f"""# The definitions put into the metric (old, new), then each equation lhs = rhs with where it came from and
+# the replacements (old, new) that turn its source into 0.
+model_definitions = [{definitions}]
+recorded_equations = [
+{chr(10).join(rows)}
+]
+check_model_solved({self._id(step)}, recorded_equations, model_definitions)
+{self._done(step)}"""
+        return "model_solved", code
 
     # ansatz -------------------------------------------------------------------
     def ansatz_equations(self, step):
@@ -1617,12 +1930,16 @@ def _setup_code(source: _Source, steps: Sequence[Step]) -> str:
               "coordinate = dict(zip(index_names, coordinates))",
               "dimension = len(coordinates)", "", "", ""]
     blocks = [_HELPERS]
-    if any(step.stage == "matter" for step in steps):
+    if any(step.stage == "matter" or step.kind == "frame" for step in steps):
         blocks.append(_MATTER_HELPERS)
     if any(step.stage == "ansatz" for step in steps):
         blocks.append(_ANSATZ_HELPERS)
     if any(step.kind == "geodesic" for step in steps):
         blocks.append(_GEODESIC_HELPERS)
+    if any(step.quantity in ("null_tetrad", "weyl_scalars", "algebraic_type") for step in steps):
+        blocks.append(_PETROV_HELPERS)
+    if any(step.stage == "model" for step in steps):
+        blocks.append(_MODEL_HELPERS)
     return "\n".join(lines) + "\n\n\n".join(blocks)
 
 
@@ -1675,6 +1992,7 @@ def notebook_text(derivation: Derivation, templates: list[Path] | None = None) -
         "conventions": derivation.conventions,
         "arithmetic": derivation.arithmetic,
         "step_count": len(derivation.steps),
+        "partial": partial_words(derivation.stopped),
         "matter": any(step.stage == "matter" for step in derivation.steps),
         "ansatz": any(step.stage == "ansatz" for step in derivation.steps),
         "orbit": any(step.kind == "geodesic" and step.params.get("orbit") for step in derivation.steps),

@@ -116,6 +116,15 @@ QUANTITIES: Mapping[str, Quantity] = {q.name: q for q in (
               r"+ \tfrac14 \left(g_{ac}\,\partial_b R - g_{ab}\,\partial_c R\right)"),
              "every ordering (antisymmetric in b, c: C_acb = -C_abc; the step lists b < c)", claimable=True,
              requires="invariants"),
+    # four dimensions, Lorentzian signature (stepper.petrov): a null tetrad l.n = -1, m.mbar = 1 and the Weyl
+    # tensor in it; the tetrad is the user's ([frame]) or built by stepper and recorded
+    Quantity("null_tetrad", "null tetrad", "", "l",
+             (r"l \cdot n = -1,\ m \cdot \bar m = 1;\ l, n = (e_T \pm e_S)/\sqrt2,\ "
+              r"m = (e_P + i e_Q)/\sqrt2,\ e_k = w_k/\sqrt{|N_k|}"), requires="invariants"),
+    Quantity("weyl_scalars", "Weyl scalars", "", r"\Psi",
+             (r"\Psi_0 = C_{abcd} l^a m^b l^c m^d,\ \Psi_1 = C_{abcd} l^a n^b l^c m^d,\ "
+              r"\Psi_2 = C_{abcd} l^a m^b \bar m^c n^d,\ \Psi_3 = C_{abcd} l^a n^b \bar m^c n^d,\ "
+              r"\Psi_4 = C_{abcd} n^a \bar m^b n^c \bar m^d"), "Psi0 ... Psi4", requires="invariants"),
     Quantity("field_equation", "field equation of the ansatz", "dd", "E", r"E_{ij} = G_{ij} + \Lambda g_{ij}",
              requires="ansatz"),
     Quantity("stress_energy", "stress-energy tensor", "dd", "T",
@@ -140,6 +149,16 @@ QUANTITIES: Mapping[str, Quantity] = {q.name: q for q in (
     Quantity("pressure", "pressures", "f", "p", r"p_{(k)} = T_{(k)(k)}", "one per spatial frame direction",
              claimable=True, result_key="pressures", step="density_and_pressures", requires="matter",
              kappa_scaled=True),
+    # [matter.model] (stepper/models.py): the declared matter's own T_ab, its field equations, div T = 0
+    Quantity("model_stress_energy", "stress-energy tensor of the matter model", "dd", r"\mathcal{T}",
+             r"T_{ab} \text{ of the declared matter (perfect fluid, dust, scalar or electromagnetic field)}",
+             "both orders (symmetric)", claimable=True, step="model/stress_energy", requires="matter"),
+    Quantity("model_equation", "field equation of the matter model", "dd", "E",
+             r"E_{ab} = G_{ab} + \Lambda g_{ab} - \kappa T_{ab}", requires="matter"),
+    Quantity("model_conservation", "divergence of the matter model's stress-energy", "d", r"\nabla\!\cdot\!\mathcal{T}",
+             r"\nabla_a T^a{}_b", "one per coordinate", claimable=True, step="model/conservation", requires="matter"),
+    Quantity("model_solution", "equations of the matter model in textbook form", "n", "",
+             r"\text{structure or expansion equations}", requires="matter"),
     Quantity("geodesic_acceleration", "geodesic acceleration", "v", "u",
              r"\frac{du^a}{d\tau} = -\Gamma^a_{bc}\, u^b u^c", "one per coordinate", claimable=True,
              result_key="geodesic_equations", step="geodesic_equations"),
@@ -164,6 +183,10 @@ VERDICTS: Mapping[str, VerdictKind] = {v.name: v for v in (
     VerdictKind("constant_curvature", "Constant curvature",
                 r"R_{abcd} = k\,(g_{ac}g_{bd} - g_{ad}g_{bc}),\quad k = \frac{R}{n(n-1)} \text{ constant}"),
     VerdictKind("conformally_flat", "Conformally flat", r"C_{abcd} = 0"),
+    VerdictKind("algebraic_type", "Algebraic (Petrov) type",
+                r"I = \Psi_0\Psi_4 - 4\Psi_1\Psi_3 + 3\Psi_2^2,\quad J = \det\begin{pmatrix} \Psi_4 & \Psi_3 & \Psi_2 \\ "
+                r"\Psi_3 & \Psi_2 & \Psi_1 \\ \Psi_2 & \Psi_1 & \Psi_0 \end{pmatrix};\quad "
+                r"\text{type I} \iff I^3 \ne 27 J^2"),
     VerdictKind("bianchi", "Contracted Bianchi identity",
                 r"\nabla^a G_{ab} = g^{ac}\left(\partial_c G_{ab} - \Gamma^e_{ca} G_{eb} - \Gamma^e_{cb} G_{ae}\right) = 0"),
     VerdictKind("trace_free", "Trace-free stress-energy", r"T = T^i{}_i = 0"),

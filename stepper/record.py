@@ -50,6 +50,7 @@ class StepKind(str, enum.Enum):
     ODE_SOLUTION = "ode solution"
     GEODESIC = "geodesic"
     CLAIM = "claim"
+    MODEL = "model"
 
     def __str__(self) -> str:
         return self.value
@@ -124,6 +125,10 @@ class Verdict:
     statement: str
     holds: bool | None
     evidence: str
+
+    def _repr_latex_(self) -> str:  # Jupyter (stepper.display)
+        from .display import verdict_latex
+        return verdict_latex(self)
 
 
 Result = Union[sympy.Expr, Mapping[str, Any], Verdict, None]
@@ -247,7 +252,7 @@ class Simplification:
 
 
 #: The parts of a derivation, in the order they run; each step belongs to one.
-STAGES = ("curvature", "matter", "energy conditions", "ansatz", "geodesics", "audit")
+STAGES = ("curvature", "matter", "energy conditions", "model", "ansatz", "geodesics", "audit")
 
 
 @dataclass(frozen=True)
@@ -280,6 +285,10 @@ class Step:
         object.__setattr__(self, "uses", tuple(self.uses))
         object.__setattr__(self, "simplifications", tuple(self.simplifications))
 
+    def _repr_latex_(self) -> str:  # Jupyter (stepper.display)
+        from .display import step_latex
+        return step_latex(self)
+
 
 # ---------------------------------------------------------------------------
 # What was asked
@@ -302,6 +311,8 @@ class MatterRequest:
     newton: sympy.Symbol | None = None
     light: sympy.Symbol | None = None
     region: tuple[tuple[sympy.Symbol, sympy.Expr, sympy.Expr], ...] = ()
+    #: The matter declared with ``[matter.model]`` (its stress-energy, field equations and conservation law).
+    model: "MatterModel | None" = None
 
     @property
     def kappa(self) -> sympy.Expr:
@@ -309,6 +320,29 @@ class MatterRequest:
         if self.units == "physical":
             return 8 * sympy.pi * self.newton / self.light**4
         return 8 * sympy.pi
+
+
+MODEL_KINDS = ("perfect fluid", "dust", "scalar field", "electromagnetic field")
+
+
+@dataclass(frozen=True)
+class MatterModel:
+    """The matter a metric file declares with ``[matter.model]`` (see stepper/models.py).
+
+    ``kind`` is one of MODEL_KINDS.  A perfect fluid has ``density`` and ``pressure`` (expressions, usually
+    free functions); dust has ``density`` only.  ``velocity`` holds the fluid's four-velocity u^a (upper
+    indices, one per coordinate); empty means the observer at rest along the time coordinate,
+    u^a = delta^a_t / sqrt(-g_tt).  A scalar field has ``field`` (phi) and ``potential`` V (an expression
+    that may hold phi).  An electromagnetic field has ``vector_potential``, A_a with lower indices.
+    """
+
+    kind: str
+    density: sympy.Expr | None = None
+    pressure: sympy.Expr | None = None
+    velocity: tuple[sympy.Expr, ...] = ()
+    field: sympy.Expr | None = None
+    potential: sympy.Expr = sympy.Integer(0)
+    vector_potential: tuple[sympy.Expr, ...] = ()
 
 
 @dataclass(frozen=True)
@@ -446,6 +480,10 @@ class Derivation:
     #: signature when the declared signs fix it (None otherwise), which orderings each table lists.
     convention_data: Mapping[str, Any] = field(default_factory=dict)
     seconds: float = field(default=0.0, compare=False)
+    #: None for a whole derivation.  A run stopped by its time limit or by Ctrl-C keeps the stages it
+    #: finished: {"reason": "time limit" or "interrupted", "during": the stage it was in, "finished": the
+    #: stages before it, in order}; steps and results then hold exactly those stages.
+    stopped: Mapping[str, Any] | None = None
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "steps", tuple(self.steps))
@@ -459,6 +497,27 @@ class Derivation:
     def with_steps(self, steps: tuple[Step, ...], results: Mapping[str, Any]) -> "Derivation":
         """A new derivation with ``steps`` appended and ``results`` merged into the results."""
         return dataclasses.replace(self, steps=self.steps + tuple(steps), results={**self.results, **results})
+
+    def quantity(self, name: str):
+        """The recorded components of the quantity ``name`` ("ricci", "christoffel", "scalar", ...): a
+        mapping from component keys ("theta,theta") to expressions, typeset in Jupyter (stepper.display)."""
+        from .display import Components
+        return Components(self, name)
+
+    def verdict(self, name):
+        """The verdict ``name`` ("ricci_flat", an energy condition such as "null", or a claim's number after
+        an audit) with the step that decided it, typeset in Jupyter (stepper.display)."""
+        from .display import find_verdict
+        return find_verdict(self, name)
+
+    def show_step(self, step_id: str):
+        """The step ``step_id`` typeset with this derivation's abbreviations and notation (stepper.display)."""
+        from .display import StepView
+        return StepView(self, self.step(step_id))
+
+    def _repr_latex_(self) -> str:  # Jupyter (stepper.display)
+        from .display import derivation_latex
+        return derivation_latex(self)
 
 
 def as_expression(value) -> sympy.Expr:

@@ -31,6 +31,7 @@ SECTION_TITLES = {
     "curvature": "The derivation, step by step",
     "matter": "Matter required by the metric",
     "energy": "Energy conditions",
+    "model": "The declared matter: field equations and conservation",
     "ansatz": "Solving the ansatz",
     "geodesics": "Geodesic equations",
 }
@@ -56,6 +57,14 @@ ANNOTATIONS = {
     ("verdict", "perfect_fluid", ""): (r"Is the matter a perfect fluid at rest in the frame, "
                               r"\(T_{ij} = (\rho + p)\,u_i u_j + p\,g_{ij}\) with \(u = e_{(0)}\), the 4-velocity of "
                               r"the frame's observers?"),
+    ("check", "null_tetrad", "normalisation"): (r"The tetrad is null and normalised: the unnormalised vectors are "
+                                               r"orthogonal, \(g(w_a, w_b) = \delta_{ab} N_a\), so \(l \cdot n = -1\), "
+                                               r"\(m \cdot \bar m = 1\) and every other product vanishes."),
+    ("frame components", "weyl_scalars", ""): (r"The Weyl scalars: the Weyl tensor in the null tetrad, "
+                                              r"\(\Psi_0 = C(l,m,l,m)\), \(\Psi_1 = C(l,n,l,m)\), "
+                                              r"\(\Psi_2 = C(l,m,\bar m,n)\), \(\Psi_3 = C(l,n,\bar m,n)\), "
+                                              r"\(\Psi_4 = C(n,\bar m,n,\bar m)\) with "
+                                              r"\(C(u,v,w,x) = C_{abcd} u^a v^b w^c x^d\)."),
     ("check", "ansatz_solution", ""): (r"Put the solution into every component \(E_{ij} = G_{ij} + \Lambda g_{ij}\), including the "
                      r"duplicates and those that follow by the Bianchi identity."),
 }
@@ -66,6 +75,10 @@ STATEMENTS = {
     ("verdict", "perfect_fluid", ""): r"Perfect fluid at rest in the frame",
     ("check", "", "frame"): r"\(g(e_{(a)}, e_{(b)}) = \eta_{(a)(b)}\)",
     ("check", "ansatz_solution", ""): r"The solution satisfies every field equation \(E_{ij} = 0\)",
+    ("check", "", "given frame"): "The vectors of the metric file are what they are said to be",
+    ("check", "null_tetrad", "normalisation"): r"\(l \cdot n = -1\), \(m \cdot \bar m = 1\), all other products 0",
+    ("check", "", "null directions"): "The coordinate directions listed are null",
+    ("check", "", "null dust"): r"Null dust: \(T_{ab} = f\, k_a k_b\) with \(k\) null",
 }
 
 #: Typeset annotations of the curvature chain's steps whose words do not depend on the metric, keyed like
@@ -142,6 +155,9 @@ CHECK_RESIDUES = {
     ("check", "riemann_lowered", "first_bianchi"): r"the cyclic sums with \(b < c < d\)",
     ("check", "", "frame"): r"\(g(w_{(a)}, w_{(b)}) - \eta_{(a)(b)} N_{(a)}\) for the unnormalised vectors",
     ("check", "ansatz_solution", ""): r"the components \(E_{ij}\) with the solution put in",
+    ("check", "", "given frame"): "the products of the vectors minus their required values",
+    ("check", "", "null directions"): r"the diagonal entries \(g_{vv}\) and \(g^{uu}\) listed",
+    ("check", "", "null dust"): r"the components of \(T_{ab} - f\, k_a k_b\)",
 }
 
 #: The quantities the numeric cross-check compares, in words.
@@ -328,6 +344,14 @@ class _Model:
         if isinstance(result, Verdict) or result is None:
             if fields(step) == ("verdict", "trace_free", "") and "trace" in step.params:
                 return [self.eq(r"T^i{}_i", step.params["trace"])]
+            if fields(step) == ("check", "", "null directions"):
+                return self.null_direction_lines(step.params.get("directions", {}))
+            if fields(step) == ("check", "", "null dust") and "density" in step.params:
+                return [self.eq("f", step.params["density"])]
+            if fields(step) == ("verdict", "algebraic_type", "") and step.params.get("invariants"):
+                return self.petrov_invariant_lines(step)
+            if fields(step) == ("check", "", "given frame"):
+                return self.pack([self.line(self.product_tex(p)) for p in step.params.get("products", [])])
             return []
         if step.kind == "component":
             lhs = component_symbol(step.quantity, step.component.split(","), self.writer)
@@ -340,12 +364,19 @@ class _Model:
         special = {
             ("field equations", "", ""): self.field_equations_lines,
             ("frame", "", ""): self.frame_lines,
+            ("frame", "", "given"): self.given_frame_lines,
+            ("frame", "null_tetrad", ""): lambda _: self.null_tetrad_lines(step),
+            ("frame components", "weyl_scalars", ""): self.weyl_scalar_lines,
             ("matter", "", ""): self.density_lines,
             ("ansatz", "field_equation", "equations"): self.ansatz_equation_lines,
             ("ansatz", "ansatz_solution", ""): self.ansatz_solution_lines,
             ("ansatz", "ansatz_solution", "properties"): self.solved_metric_lines,
             ("geodesic", "", ""): self.geodesic_lines,
+            ("model", "model_equation", "equations"): self.model_equation_lines,
+            ("model", "model_conservation", ""): self.model_conservation_lines,
         }
+        if step.kind.value == "model" and step.quantity == "model_solution":
+            return self.model_solution_lines(step)
         if fields(step) in special:
             return special[fields(step)](result)
         if step.kind == "ode solution":
@@ -387,6 +418,111 @@ class _Model:
                 lines += [self.line(e)] + ([self.line(n)] if n else [])
         return self.flush_together(lines)
 
+    # the null tetrad, the Weyl scalars and the algebraic type (stepper.petrov) ---------------------
+    TETRAD_SYMBOLS = {"l": "l", "n": "n", "m": "m", "mbar": r"\bar m"}
+
+    def null_tetrad_lines(self, step: Step) -> list[dict]:
+        """w_k and N_k of the built tetrad, then l, n, m, mbar."""
+        p, lines = step.params, []
+        for label in p.get("order", []):
+            w = rf"w_{frame_index(label, self.writer)} = {self.vector_tex(p['vectors_unnormalised'][label])}"
+            n = rf"N_{frame_index(label, self.writer)} = {self.value_tex(p['squared_norms'][label])}"
+            lines.append(self.line(w + r",\qquad " + n) if len(w) + len(n) + 8 <= SHORT_LATEX
+                         else self.line(w))
+            if len(w) + len(n) + 8 > SHORT_LATEX:
+                lines.append(self.line(n))
+        for name, components in step.result.items():
+            lines.append(self.line(f"{self.TETRAD_SYMBOLS.get(name, 'v')} = {self.vector_tex(components)}"))
+        return self.flush_together(lines)
+
+    def weyl_scalar_lines(self, result: dict) -> list[dict]:
+        return [self.eq(rf"\Psi_{k}", result[f"Psi{k}"]) for k in range(5) if f"Psi{k}" in result]
+
+    def petrov_invariant_lines(self, step: Step) -> list[dict]:
+        invariants = step.params["invariants"]
+        return [self.eq("I", invariants["I"]), self.eq("J", invariants["J"])]
+
+    PETROV_QUESTIONS = {
+        "weyl_scalars_vanish": r"every \(\Psi_k\) vanishes (type O)",
+        "hessian_vanishes": r"the Hessian \(H\) of the quartic vanishes (type N)",
+        "hessian_proportional": r"\(H\) is a multiple of the quartic \(f\), \(h_i f_j = h_j f_i\) (type D)",
+        "invariants_vanish": r"\(I = J = 0\) (type III)",
+        "special": r"\(I^3 = 27 J^2\) (type II; type I otherwise)",
+    }
+
+    def petrov_element_tex(self, name: str) -> str:
+        """Psi2, h3, "h0 f2 - h2 f0", I, J or "I^3 - 27 J^2" typeset."""
+        if name.startswith("Psi"):
+            return rf"\(\Psi_{name[3:]}\)"
+        if name in ("I", "J"):
+            return rf"\({name}\)"
+        if name == "I^3 - 27 J^2":
+            return r"\(I^3 - 27 J^2\)"
+        if name.startswith("h") and len(name) == 2:
+            return rf"\(h_{name[1]}\)"
+        i, j = name[1], name[4]  # "hi fj - hj fi"
+        return rf"\(h_{i} f_{j} - h_{j} f_{i}\)"
+
+    def petrov_evidence_tex(self, step: Step) -> str:
+        """The decisions the type rests on, in order, each with how it was made."""
+        p = step.params
+        parts = []
+        for d in p.get("decisions", []):
+            question = self.PETROV_QUESTIONS.get(d["question"], escape_text(d["question"]))
+            if d["vanishes"] is True:
+                parts.append(f"{question}: yes, all {d.get('count', len(d.get('elements', [])))} vanish "
+                             f"({self.zero_test_tex(d['test'])})")
+            elif d["vanishes"] is False:
+                parts.append(f"{question}: no, {self.petrov_element_tex(d['decided_by'])} does not vanish "
+                             f"({self.zero_test_tex(d['test'])})")
+            else:
+                parts.append(f"{question}: taken as yes on evidence only, "
+                             f"{self.petrov_element_tex(d['decided_by'])}: {self.zero_test_tex(d['test'])}")
+        tail = ("; the type holds where the quantities found non-zero do not vanish, an open dense set"
+                if p.get("generic") else "")
+        return "; ".join(parts) + tail
+
+    def given_vector_symbol(self, label: str) -> str:
+        """e_(x) for a vector of an orthonormal frame (named after a coordinate), l, n, m of a null tetrad."""
+        if label in self.d.metric.names:
+            return "e_" + frame_index(label, self.writer)
+        return {"l": "l", "n": "n", "m": "m", "mbar": r"\bar m"}.get(label, r"\mathrm{" + escape_text(label) + "}")
+
+    def direction_tex(self, name: str) -> str:
+        """A null direction of the trace: a given l or n, d_v (a coordinate vector), du (a gradient)."""
+        directions = {}
+        for s in self.d.steps:
+            if fields(s) == ("check", "", "null directions"):
+                directions = s.params.get("directions", {})
+        entry = directions.get(name)
+        if entry is None:
+            return self.given_vector_symbol(name)
+        if entry.get("source") == "coordinate vector":
+            return rf"\partial_{{{self.sym(entry['coordinate'])}}}"
+        return rf"\partial {self.sym(entry['coordinate'])}"
+
+    def given_frame_lines(self, result: dict) -> list[dict]:
+        lines = [self.line(rf"{self.given_vector_symbol(label)} = {self.vector_tex(components)}")
+                 for label, components in result.get("vectors", {}).items()]
+        for label, components in result.get("null_tetrad", {}).items():
+            lines.append(self.line(rf"{self.given_vector_symbol(label)} = {self.vector_tex(components)}"))
+        return self.flush_together(lines)
+
+    def product_tex(self, product: dict) -> str:
+        first, second = (self.given_vector_symbol(product[k]) for k in ("first", "second"))
+        return rf"g({first}, {second}) = {product['value']}"
+
+    def null_direction_lines(self, directions: dict) -> list[dict]:
+        lines = []
+        for name, entry in directions.items():
+            x = self.sym(entry["coordinate"])
+            if entry["source"] == "coordinate vector":
+                lines.append(self.line(rf"g(\partial_{{{x}}}, \partial_{{{x}}}) = g_{{{x}{x}}} = 0"))
+            else:
+                lines.append(self.line(rf"g^{{{x}{x}}} = 0:\quad k^a = g^{{ab}} \partial_b {x},\quad "
+                                       rf"k = {self.vector_tex(entry['upper'])}"))
+        return self.flush_together(lines)
+
     def density_lines(self, result: dict) -> list[dict]:
         lines = [self.eq(r"\rho", result["energy_density"])]
         for label, value in result.get("pressures", {}).items():
@@ -403,6 +539,108 @@ class _Model:
     def ansatz_equation_lines(self, result: dict) -> list[dict]:
         return self.flush_together([self.line(rf"({self.E(key)})\qquad " + self.value_tex(value) + " = 0")
                                     for key, value in result.items()])
+
+    # [matter.model] (the model stage) -------------------------------------------------
+    def model_equation_lines(self, result: dict) -> list[dict]:
+        return self.ansatz_equation_lines(result)
+
+    def conservation_symbol(self, coordinate: str) -> str:
+        return rf"\nabla_a \mathcal{{T}}^a{{}}_{{{self.sym(coordinate)}}}"
+
+    def model_conservation_lines(self, result: dict) -> list[dict]:
+        return self.flush_together([self.eq(self.conservation_symbol(b), value) for b, value in result.items()])
+
+    def model_solution_lines(self, step: Step) -> list[dict]:
+        lines = []
+        for eq in step.params.get("equations", []):
+            tex, long = self.writer.equation(self.writer.inline(eq["lhs"]), eq["rhs"])
+            tag = (self.conservation_symbol(eq["component"]) if eq["source"] == "conservation"
+                   else self.E(eq["component"]))
+            lines.append({"tex": rf"({tag})\qquad " + tex, "long": long})
+        return self.flush_together(lines)
+
+    def model_notes(self, step: Step) -> list[str]:
+        p, r, w = step.params, step.result, self.writer
+        notes = []
+        quantity = step.quantity
+        if quantity == "model_stress_energy":
+            notes.append(rf"Convention: \({step.formula}\).")
+            velocity = p.get("velocity")
+            if velocity:
+                u = self.vector_tex(velocity)
+                if p.get("velocity_default"):
+                    notes.append(rf"The fluid is at rest along the time coordinate: \(u = {u}\), so that "
+                                 r"\(u_a u_b = g_{at}\, g_{bt} / (-g_{tt})\) and \(g_{ab} u^a u^b = -1\).")
+                else:
+                    notes.append(rf"The declared four-velocity \(u = {u}\) has \(g_{{ab}} u^a u^b = "
+                                 rf"{self.value_tex(p.get('normalisation', sympy.Integer(0)))}\).")
+            if "potential" in p and "field" in p:
+                notes.append(rf"Field \(\phi = {w.inline(p['field'])}\), potential \(V = {self.value_tex(p['potential'])}\).")
+            if p.get("field_strength"):
+                parts = [rf"F_{{{','.join(self.sym(c) for c in k.split(','))}}} = {self.value_tex(v)}"
+                         for k, v in p["field_strength"].items()]
+                notes.append(r"Field strength (components with \(a < b\) not listed vanish): \(" + r",\ ".join(parts)
+                             + rf"\); invariant \(F_{{cd}}F^{{cd}} = {self.value_tex(p.get('invariant', 0))}\).")
+            notes.append(r"Written \(\mathcal{T}_{ab}\) here to tell it from the \(T_{ab}\) the metric requires; "
+                         "the components not listed vanish.")
+        elif quantity == "model_equation":
+            notes += self.ansatz_equation_notes(p)
+            lam = p.get("cosmological_constant", sympy.Integer(0))
+            notes.append(rf"\(\kappa = {w.inline(p.get('kappa', 8 * sympy.pi))}\)"
+                         + ("" if isinstance(lam, sympy.Symbol) else rf", \(\Lambda = {w.inline(lam)}\)") + ".")
+        elif quantity == "model_conservation":
+            if not r:
+                notes.append(r"Every component vanishes identically: the declared matter is conserved for any "
+                             "choice of its functions.")
+            notes.append("Independent field equations: "
+                         + ", ".join(rf"\({self.E(k)} = 0\)" for k in p.get("independent", [])) + ".")
+            for key, why in p.get("follows", {}).items():
+                sources = ", ".join(rf"\({self.E(k)}\)" for k in why["from"])
+                where = ("which is not zero" if why.get("never_vanishes")
+                         else "wherever it is not zero")
+                notes.append(rf"\({self.E(key)} = 0\) follows from {sources}, their derivatives and "
+                             rf"\({self.conservation_symbol(why['bianchi_component'])} = 0\): that component of "
+                             rf"\(\nabla^a E_{{ab}} = -\kappa\,\nabla_a \mathcal{{T}}^a{{}}_b\) contains it undifferentiated, "
+                             rf"with the coefficient \({self.value_tex(why['coefficient'])}\), {where}.")
+        elif quantity == "model_solution":
+            for old, new in p.get("definitions", []):
+                if old != new:
+                    notes.append(rf"Put in: \({w.inline(old)} = {self.value_tex(new)}\).")
+            notes.append("Each line is tagged with the equation it solves; "
+                         + ("the last is the conservation law with the redshift equation put in."
+                            if p.get("shape") == "static star" else
+                            "the acceleration equation has the Friedmann equation put in."))
+        return notes
+
+    def model_annotation(self, step: Step) -> str:
+        p = step.params
+        if step.quantity == "model_stress_energy":
+            return rf"The stress-energy tensor of the declared {escape_text(p.get('model', 'matter'))}, \(\mathcal{{T}}_{{ab}}\)."
+        if step.quantity == "model_equation":
+            return (r"The field equations \(E_{ab} = G_{ab} + \Lambda g_{ab} - \kappa\,\mathcal{T}_{ab} = 0\) with the declared "
+                    r"matter: each listed equation is a component's numerator with the factors that cannot vanish "
+                    r"removed, in the order of their highest derivatives; duplicates and components that vanish "
+                    r"identically are named below.")
+        if step.quantity == "model_conservation":
+            return (r"The conservation law \(\nabla_a \mathcal{T}^a{}_b = 0\), component by component (components not "
+                    r"listed vanish identically). The contracted Bianchi identity \(\nabla^a (G_{ab} + \Lambda g_{ab}) = 0\) "
+                    r"makes it a consequence of the field equations; with it, some field equations follow from the others.")
+        if step.quantity == "model_solution":
+            shape = p.get("shape", "")
+            if shape == "static star":
+                time = self.d.metric.matter.time.name if self.d.metric.matter is not None else "t"
+                tt, rr = self.sym(time) * 2, self.sym(p["radial"]) * 2
+                return (rf"The structure equations of a static star: the redshift function "
+                        rf"\({self.function_tex(p['redshift_function'])}\) with \(-g_{{{tt}}} = e^{{2{self.sym(str(p['redshift_function'].func))}}}\) "
+                        rf"and the mass function \({self.function_tex(p['mass_function'])}\) with "
+                        rf"\(g_{{{rr}}} = (1 - {self.writer.inline(p['mass_factor'])}\,{self.sym(str(p['mass_function'].func))}/{self.sym(p['radial'])})^{{-1}}\) "
+                        r"put in, each equation solved for its derivative; the last line, the conservation law with "
+                        r"the redshift equation put in, is the Tolman--Oppenheimer--Volkoff equation.")
+            return (r"The expansion equations of a homogeneous universe with scale factor "
+                    rf"\({self.function_tex(p['scale_factor'])}\): the Friedmann equation, the acceleration equation "
+                    r"(with the Friedmann equation put in) and the continuity equation, each solved for its "
+                    r"derivative.")
+        return escape_text(step.annotation)
 
     def ode_lines(self, step: Step) -> list[dict]:
         r = step.result
@@ -541,6 +779,8 @@ class _Model:
             notes += self.solution_notes(p)
         if step.kind == "geodesic" and "orbit" in p:
             notes.append(self.orbit_sentence(p["orbit"]))
+        if step.kind.value == "model":
+            notes += self.model_notes(step)
         return [n for n in notes if n]
 
     def perfect_fluid_sentence(self, fluid: dict) -> str:
@@ -621,9 +861,11 @@ class _Model:
         """Component steps get their symbol typeset, the new stages typeset sentences; others escaped text."""
         if step.kind == "component":
             return self.component_annotation(step)
+        if step.kind.value == "model":
+            return self.model_annotation(step)
         r = step.result
         if step.kind == "energy condition":
-            return self.condition_statement(step.component) + "."
+            return self.condition_statement(step.component, step) + "."
         if step.kind == "matter" and isinstance(r, dict):
             if r.get("diagonal"):
                 return (r"The stress-energy tensor is diagonal in the frame, so \(\rho\) and the \(p_{(k)}\) are the "
@@ -631,6 +873,48 @@ class _Model:
             return (r"The stress-energy tensor is not diagonal in the frame: its diagonal entries are listed, but they "
                     r"are not the principal pressures (stepper does not diagonalise \(T\)), and the energy conditions "
                     r"are not decided from them.")
+        if fields(step) == ("frame", "null_tetrad", "") and "pairs" in step.params:
+            p = step.params
+            (T, S), (P, Q) = p["pairs"]["l_n"], p["pairs"]["m"]
+            e = {k: "e_" + frame_index(k, self.writer) for k in (T, S, P, Q)}
+            how = ("the metric is diagonal, so each \\(w_k\\) is a coordinate direction"
+                   if all(len(v) == 1 for v in p["vectors_unnormalised"].values())
+                   else "Gram-Schmidt from the coordinate directions, in the order listed")
+            signs = ("the declared signs" if p.get("signs_from") == "declared signs"
+                     else "their signs at a random point (the tetrad is real where these signs hold)")
+            return (rf"Null tetrad built by stepper ({how}): \(e_k = w_k/\sqrt{{|N_k|}}\), "
+                    rf"\(l, n = ({e[T]} \pm {e[S]})/\sqrt2\), \(m = ({e[P]} + i\,{e[Q]})/\sqrt2\); "
+                    rf"the timelike direction \(w_{frame_index(T, self.writer)}\) is fixed by {signs}. "
+                    r"Conventions: \(l \cdot n = -1\), \(m \cdot \bar m = 1\), all other products 0.")
+        if fields(step) == ("frame", "", "") and isinstance(r, Verdict) and self.frame_why():
+            reason = self.frame_reason_tex(self.frame_why())
+            return reason[:1].upper() + reason[1:] + "."
+        if fields(step) == ("frame", "", "given"):
+            p = step.params
+            what = ("an orthonormal frame, its first vector timelike" if p.get("kind") == "orthonormal" else
+                    "null vectors of a null tetrad" if p.get("kind") == "null" else "vectors")
+            text = f"The metric file gives {what}; here its vectors with upper indices"
+            if p.get("index") == "down":
+                text += r", the covectors given raised with \(g^{ij}\)"
+            if p.get("tetrad_from_frame"):
+                text += (r", and the null tetrad \(l = (e_{(0)} + e_{(1)})/\sqrt 2\), \(n = (e_{(0)} - e_{(1)})/\sqrt 2\), "
+                         r"\(m = (e_{(2)} + i e_{(3)})/\sqrt 2\) built from it")
+            return text + "."
+        if fields(step) == ("check", "", "given frame"):
+            return ("Each product the vectors must have, in the exact arithmetic (a vector is rational times one "
+                    r"square-root factor \(R\), so \(g(e, e') = g(w, w') R R'\) with \(w\) rational; \(m\) is split "
+                    "into its real and imaginary vectors).")
+        if fields(step) == ("check", "", "null directions"):
+            return (r"Null directions read off the metric: a coordinate vector \(\partial_v\) with \(g_{vv} = 0\), and "
+                    r"the gradient \(k_a = \partial_a u\) of a coordinate with \(g^{uu} = 0\) (then \(u = \text{const}\) is "
+                    r"a null hypersurface, and its normal is null).")
+        if fields(step) == ("check", "", "null dust"):
+            k = self.direction_tex(step.params.get("direction", ""))
+            return (rf"Is the stress-energy that of null dust (pure radiation) along \(k = {k}\), "
+                    r"\(T_{ab} = f\, k_a k_b\), with \(f = T_{pp}/k_p^2\) at the first index \(p\) where \(k_p \ne 0\)?")
+        if step.kind == "frame" and isinstance(r, dict) and step.params.get("given"):
+            return (r"The orthonormal frame of the metric file (checked above), \(e_{(x)} = w_{(x)}/\sqrt{N_{(x)}}\) with "
+                    r"\(w_{(x)}\) rational; its first vector is timelike.")
         if step.kind == "frame" and isinstance(r, dict):
             time = self.sym(step.params.get("time", ""))
             diagonal = all(len(v) == 1 for v in r.get("vectors", {}).values())
@@ -739,8 +1023,18 @@ class _Model:
                "stress_energy": " that the metric requires"}.get(quantity, "")
         return rf"{title} \({symbol}\){how}" + (rf" (\(= {twin}\))" if twin else "") + "."
 
-    def condition_statement(self, key: str) -> str:
-        """An energy condition in words and symbols."""
+    def condition_statement(self, key: str, step: Step | None = None) -> str:
+        """An energy condition in words and symbols (for null dust or null vectors, as a statement on vectors)."""
+        route = step.params.get("route") if step is not None else None
+        if route:
+            return {
+                "null": r"\textbf{Null energy condition}: \(T_{ab}\, l^a l^b \ge 0\) for every null vector \(l\)",
+                "weak": r"\textbf{Weak energy condition}: \(T_{ab}\, t^a t^b \ge 0\) for every timelike vector \(t\)",
+                "strong": (r"\textbf{Strong energy condition}: \((T_{ab} - \frac{T}{n-2} g_{ab})\, t^a t^b \ge 0\) for every "
+                           r"timelike vector \(t\)"),
+                "dominant": (r"\textbf{Dominant energy condition}: \(T_{ab}\, t^a t^b \ge 0\) and \(-T^a{}_b\, t^b\) "
+                             r"causal and future-pointing for every future-pointing timelike \(t\)"),
+            }.get(key, escape_text(key))
         n = self.d.metric.dimension
         strong_sum = r"\rho + \sum_k p_{(k)} \ge 0" if n == 4 else rf"({n} - 3)\rho + \sum_k p_{{(k)}} \ge 0"
         return {
@@ -764,6 +1058,17 @@ class _Model:
         elif total:
             tex += f" {sign} " + r"\sum_k p_{(k)}"
         return tex + r" \ge 0"
+
+    def row_inequality_tex(self, label: str, row: dict) -> str:
+        """An inequality of a condition's table: from its symbol data when it has one (null dust, a null
+        vector), else from its label."""
+        symbol = row.get("symbol")
+        if isinstance(symbol, dict) and symbol.get("kind") == "null dust density":
+            return r"f \ge 0"
+        if isinstance(symbol, dict) and symbol.get("kind") == "contraction":
+            k = self.direction_tex(symbol.get("direction", ""))
+            return rf"T_{{ab}}\, k^a k^b \ge 0,\ k = {k}"
+        return self.inequality_tex(label)
 
     def point_tex(self, point: dict) -> str:
         return ",\\ ".join(f"{self.sym(name)} = {self.writer.inline(value)}" for name, value in point.items())
@@ -815,7 +1120,7 @@ class _Model:
             return None
         out = []
         for label, row in rows.items():
-            out.append({"inequality": self.inequality_tex(label),
+            out.append({"inequality": self.row_inequality_tex(label, row),
                         "value": self.value_tex(row["value"], CELL_WIDTH),
                         "outcome": self.outcome_tex(row)})
         return {"rows": out}
@@ -826,12 +1131,27 @@ class _Model:
         rows = step.params.get("inequalities", {})
         if not rows:
             return self.evidence_tex(step)
+        route = step.params.get("route")
+        if route == "null dust":
+            k = self.direction_tex(step.params.get("direction", ""))
+            row = next(iter(rows.values()))
+            reduction = {"null": r"\(T_{ab}\, l^a l^b = f\,(k \cdot l)^2\) for every null \(l\)",
+                         "weak": r"\(T_{ab}\, t^a t^b = f\,(k \cdot t)^2\) with \(k \cdot t \ne 0\) for every timelike \(t\)",
+                         "strong": r"\(T = 0\), so the left-hand side is \(f\,(k \cdot t)^2\)",
+                         "dominant": (r"\(T_{ab}\, t^a t^b = f\,(k \cdot t)^2\) and \(-T^a{}_b t^b = -f\,(k \cdot t)\, k^a\) "
+                                      r"is null, future-pointing exactly when \(f \ge 0\)")}.get(step.component, "")
+            return (rf"the stress-energy is null dust along \(k = {k}\): {reduction}, so the condition holds exactly "
+                    r"when \(f \ge 0\), and \(f \ge 0\) " + self.outcome_parts(row)[2])
+        if route == "null vectors" and result.holds is None and all(r["holds"] for r in rows.values()):
+            return (rf"\(T_{{ab}}\, k^a k^b \ge 0\) is proven along each of the {len(rows)} null vectors listed, but the "
+                    "condition asks it of every null vector, and the stress-energy is not null dust along any of them: "
+                    "not decided")
         if result.holds is True:
             return "every inequality is proven"
         wanted = False if result.holds is False else None
         for label, row in rows.items():
             if row["holds"] is wanted:
-                return rf"\({self.inequality_tex(label)}\) " + self.outcome_parts(row)[2]
+                return rf"\({self.row_inequality_tex(label, row)}\) " + self.outcome_parts(row)[2]
         return breakable_text(result.evidence)
 
     # steps ---------------------------------------------------------------------
@@ -866,7 +1186,7 @@ class _Model:
 
     def verdict_statement(self, step: Step) -> str:
         if step.kind == "energy condition":
-            return self.condition_statement(step.component)
+            return self.condition_statement(step.component, step)
         if fields(step) == ("verdict", "einstein_space", ""):
             return rf"Einstein manifold: \(R_{{ij}} = \lambda g_{{ij}}\) with \(\lambda = R/{self.d.metric.dimension}\)"
         if fields(step) == ("verdict", "conformally_flat", "") and self.d.metric.dimension == 3:
@@ -890,10 +1210,38 @@ class _Model:
         return (rf"\({component_symbol('pressure', [a], self.writer)} - "
                 rf"{component_symbol('pressure', [b], self.writer)}\)")
 
+    def frame_why(self) -> dict | None:
+        """Why no frame was built, as recorded data (None when a frame was built or the trace predates it)."""
+        frame = self.d.results.get("frame", {})
+        why = frame.get("why") if isinstance(frame, dict) and not frame.get("built") else None
+        return why if isinstance(why, dict) and why.get("kind") else None
+
+    def frame_reason_tex(self, why: dict) -> str:
+        """Why no frame was built, typeset from its data."""
+        kind, t = why.get("kind"), self.sym(why.get("time", ""))
+        if kind == "null slices":
+            return (rf"no frame is built: \(g^{{{t}{t}}}\) vanishes identically, so the hypersurfaces "
+                    rf"\({t} = \text{{const}}\) are null and have no normal observers")
+        if kind == "null direction":
+            x = self.sym(why.get("direction", ""))
+            return (rf"no frame is built: the direction \(\partial_{{{x}}}\) has zero norm after Gram--Schmidt (it "
+                    rf"is null within \({t} = \text{{const}}\))")
+        if kind == "not positive":
+            x = self.sym(why.get("direction", ""))
+            return (rf"no frame is built: the squared norm \(N_{{({x})}} = {self.value_tex(why.get('norm', 0))}\) is "
+                    r"never positive for the declared signs (stepper's frame needs the signature "
+                    rf"\((-, +, \dots, +)\) with \({t}\) timelike; set the time of the matter table, or write the "
+                    r"metric with that signature)")
+        return "no frame is used: the orthonormal frame given in the metric file is not orthonormal"
+
     def evidence_tex(self, step: Step) -> str:
         """A verdict's evidence as LaTeX text, typeset from the step's fields (the trace keeps the plain-text
         sentence for the terminal)."""
         verdict, p = step.result, step.params
+        why = self.frame_why()
+        if why and (fields(step) == ("frame", "", "") or (fields(step) == ("verdict", "perfect_fluid", "") and verdict.holds is None
+                                             and not p) or (step.kind == "energy condition" and not p.get("inequalities"))):
+            return self.frame_reason_tex(why)
         if fields(step) == ("verdict", "perfect_fluid", "") and "residue" in p:
             residue = self.residue_tex(p["residue"])
             if verdict.holds is False:
@@ -910,6 +1258,8 @@ class _Model:
                 return rf"the trace \(T^i{{}}_i\) vanishes ({self.zero_test_tex(p.get('test', {}))})"
             return (rf"the trace \(T^i{{}}_i = {self.value_tex(p['trace'])}\) is not proven zero: "
                     + self.zero_test_tex(p.get("test", {})))
+        if fields(step) == ("verdict", "algebraic_type", ""):
+            return self.petrov_evidence_tex(step)
         if step.kind == "verdict" and "checked" in p and step.stage == "curvature":
             return self.curvature_verdict_tex(step)
         if step.kind == "check" and ("count" in p or "checked" in p):
@@ -1136,10 +1486,16 @@ class _Model:
                      rf"matter must supply. Here \(\kappa = {self.writer.inline(kappa)}\) ({units}) and "
                      rf"\(\Lambda = {self.writer.inline(lam)}\).")]
             frame = r.get("frame", {})
-            if frame.get("built"):
+            if frame.get("built") and frame.get("given"):
+                text.append(r"The energy density \(\rho\) and the pressures \(p_{(k)}\) are measured in the orthonormal "
+                            r"frame given in the metric file, whose first vector is the observers' 4-velocity.")
+            elif frame.get("built"):
                 text.append(r"The energy density \(\rho\) and the pressures \(p_{(k)}\) are what observers at rest on "
                             rf"\({self.sym(frame.get('time', ''))} = \text{{const}}\) measure, in their orthonormal "
                             r"frame.")
+            elif frame and self.frame_why():
+                reason = self.frame_reason_tex(self.frame_why())
+                text.append(reason[:1].upper() + reason[1:] + ".")
             elif frame:
                 reason = frame.get("reason", "no orthonormal frame is built")
                 text.append(breakable_text(reason[:1].upper() + reason[1:]) + ".")
@@ -1155,6 +1511,11 @@ class _Model:
             if region:
                 text.append("Sampling region: " + self.region_tex(region) + ", where every squared norm "
                             r"\(N_{(x)}\) of the frame is positive.")
+            if any(s.kind == "energy condition" and s.params.get("route") for s in self.d.steps):
+                text.append(r"Where no frame gives \(\rho\) and the \(p_{(k)}\), the conditions are read along null "
+                            r"vectors: when \(T_{ab} = f\, k_a k_b\) with \(k\) null (null dust), every condition holds "
+                            r"exactly when \(f \ge 0\); otherwise \(T_{ab}\, k^a k^b < 0\) along a known null vector "
+                            r"violates the null condition, while \(\ge 0\) along a few of them decides nothing.")
             return text
         if key == "ansatz":
             eq = self.d.step("ansatz/equations") if self.has("ansatz/equations") else None
@@ -1196,9 +1557,18 @@ class _Model:
             "line_element": breakable_text(m.line_element) if m.line_element else "",
             "components": [{"tex": tex, "long": long}
                            for tex, long in mapping_lines(self.d.results["metric"], "metric", w)],
-            "arithmetic": escape_text(self.d.arithmetic_description),
+            "arithmetic": escape_text(self.d.arithmetic_description) + self.slow_path_text(),
             "signature": self.signature_text(),
         }
+
+    def slow_path_text(self) -> str:
+        """Why the exact field was not used (the metric step's ``slow_path_because``), as a clause; empty when it was."""
+        slow = next((s.params["slow_path_because"] for s in self.d.steps
+                     if s.quantity == "metric" and "slow_path_because" in s.params), None)
+        if not slow:
+            return ""
+        where = f": \\({self.writer.inline(slow['expression'])}\\)" if "expression" in slow else ""
+        return f" (the exact field was not used because of {escape_text(slow['reason'])}{where})"
 
     def signature_text(self) -> str:
         """The signature in words and signs, "Lorentzian, signature (-,+,+,+)", from the record's convention data;
@@ -1259,6 +1629,13 @@ class _Model:
             verdicts.append({"label": VERDICTS[k].label, "word": _verdict_word(v["holds"]),
                              "holds": v["holds"], "evidence": self.evidence_tex(self.d.step(f"verdict/{k}")),
                              "link": self.link(f"verdict/{k}")})
+        if self.has("algebraic_type") and isinstance(self.d.step("algebraic_type").result, Verdict):
+            step = self.d.step("algebraic_type")
+            kind = step.params.get("type")
+            verdicts.append({"label": "Algebraic (Petrov) type of the Weyl tensor",
+                             "word": f"type {kind}" + (" (on evidence only)" if step.result.holds is None else "")
+                             if kind else "undecided", "holds": step.result.holds,
+                             "evidence": self.evidence_tex(step), "link": self.link("algebraic_type")})
         for key in ENERGY_CONDITIONS:
             step_id = f"energy_conditions/{key}"
             if self.has(step_id):
@@ -1316,7 +1693,17 @@ class _Model:
                 "equations": rows, "matter": matter if fluid is None else self.pack(matter),
                 "matter_intro": matter_intro,
                 "solution": self.pack(solution), "verdicts": verdicts, "counts": counts,
-                "numeric": numeric_line}
+                "numeric": numeric_line, **self.model_summary()}
+
+    def model_summary(self) -> dict:
+        """The declared matter's equations in textbook form for page one ([matter.model]), with their step."""
+        if not self.has("model/solved"):
+            return {"model": [], "model_intro": ""}
+        step = self.d.step("model/solved")
+        what = {"static star": "The structure equations of the declared static star",
+                "homogeneous universe": "The expansion equations of the declared homogeneous universe"}
+        intro = what.get(step.params.get("shape", ""), "The declared matter's equations")
+        return {"model": self.model_solution_lines(step), "model_intro": intro, "model_link": self.link("model/solved")}
 
     def claim_symbol(self, quantity: str, component: str, positions: str = "") -> str:
         """The typeset symbol a claim is about, or '' when there is none; ``positions`` are the claim's
@@ -1682,6 +2069,44 @@ class _Model:
         return out
 
 
+#: The chain's stages in words, for the notice of a partial derivation.
+STAGE_WORDS = {
+    "metric_step": "the metric", "metric_derivatives": "the derivatives of the metric",
+    "determinant": "the determinant", "inverse_metric": "the inverse metric",
+    "christoffel": "the Christoffel symbols", "contracted_christoffel": "the contracted Christoffel symbols",
+    "riemann": "the Riemann tensor", "ricci": "the Ricci tensor",
+    "ricci_by_trace_identity": "the Ricci tensor's check by the trace identity", "scalar": "the scalar curvature",
+    "einstein": "the Einstein tensor", "mixed_tensors": "the mixed Ricci and Einstein tensors",
+    "verdict_ricci_flat": "the Ricci-flat verdict", "verdict_einstein_space": "the Einstein-space verdict",
+    "riemann_lowered": "the Riemann tensor with all indices down",
+    "verdict_constant_curvature": "the constant-curvature verdict", "kretschmann": "the Kretschmann scalar",
+    "weyl": "the Weyl tensor", "bianchi": "the contracted Bianchi identity",
+    "numeric_verification": "the numeric verification", "matter": "the matter content",
+    "ansatz": "the ansatz", "geodesics": "the geodesic equations",
+}
+
+
+def stage_words(name: str) -> str:
+    return STAGE_WORDS.get(name, "the stage " + name.replace("_", " "))
+
+
+def partial_words(stopped) -> dict | None:
+    """Why and where a partial derivation stopped and which stages it holds, in plain words (None for a
+    whole derivation)."""
+    if not stopped:
+        return None
+    finished = [stage_words(name) for name in stopped["finished"]]
+    listed = (", ".join(finished[:-1]) + " and " + finished[-1]) if len(finished) > 1 else (finished or ["none"])[0]
+    return {"why": "its time limit" if stopped["reason"] == "time limit" else "an interrupt (Ctrl-C)",
+            "during": stage_words(stopped["during"]), "count": len(finished), "finished": listed}
+
+
+def partial_notice(stopped) -> dict | None:
+    """:func:`partial_words` escaped for LaTeX."""
+    words = partial_words(stopped)
+    return None if words is None else {k: escape_text(v) if isinstance(v, str) else v for k, v in words.items()}
+
+
 def report_model(derivation: Derivation) -> dict[str, Any]:
     """Plain data for the report templates."""
     model = _Model(derivation)
@@ -1695,6 +2120,7 @@ def report_model(derivation: Derivation) -> dict[str, Any]:
         "audit": model.audit(),
         "summary": model.summary(),
         "checks": model.checks(),
+        "partial": partial_notice(derivation.stopped),
     }
     # a symbol of the metric's that the report also uses for a quantity of its own: the report's quantity
     # takes another symbol, and the conventions say so

@@ -35,7 +35,8 @@ from sympy.core.function import AppliedUndef
 
 from .version import __version__
 from .errors import InputError
-from .record import (ASSUMPTION_WORDS, FUNCTION_SIGN_WORDS, PLOT_SHADES, STAGES, AnsatzRequest, Derivation, FunctionSign,
+from .record import MODEL_KINDS, MatterModel
+from .record import (ASSUMPTION_WORDS, FUNCTION_SIGN_WORDS, PLOT_SHADES, STAGES, AnsatzRequest, Derivation, FrameRequest, FunctionSign,
                      MatterRequest, MetricRecord, OrbitRequest, PlotRequest, Simplification, Step, StepKind, Verdict)
 
 TRACE_FORMAT = "stepper trace"
@@ -156,6 +157,14 @@ class _Writer:
             "requests": self.requests(m),
         }
 
+    def model(self, model: MatterModel) -> dict:
+        """[matter.model]: its kind and the expressions that declare it (absent ones are None or empty)."""
+        optional = lambda e: None if e is None else self.expression(e)
+        return {"kind": model.kind, "density": optional(model.density), "pressure": optional(model.pressure),
+                "velocity": [self.expression(e) for e in model.velocity], "field": optional(model.field),
+                "potential": self.expression(model.potential),
+                "vector_potential": [self.expression(e) for e in model.vector_potential]}
+
     def requests(self, m: MetricRecord) -> dict:
         """What was asked beyond curvature: matter, an ansatz to solve, an orbit."""
         out: dict = {}
@@ -167,6 +176,8 @@ class _Writer:
                 "newton": None if r.newton is None else r.newton.name,
                 "light": None if r.light is None else r.light.name,
                 "region": {s.name: [self.expression(lo), self.expression(hi)] for s, lo, hi in r.region}}
+            if r.model is not None:
+                out["matter"]["model"] = self.model(r.model)
             for symbol in (r.newton, r.light):
                 if symbol is not None:
                     self.expression(symbol)
@@ -190,6 +201,11 @@ class _Writer:
             for p in m.plots:
                 for s in (p.along, *(s for s, _ in p.values)):
                     self.expression(s)
+        if m.frame is not None:
+            names = m.names
+            out["frame"] = {"kind": m.frame.kind, "index": m.frame.index,
+                            "vectors": {label: {names[i]: self.expression(c) for i, c in enumerate(components) if c != 0}
+                                        for label, components in m.frame.vectors}}
         return out
 
 
@@ -215,6 +231,8 @@ def trace_data(derivation: Derivation) -> dict:
         "convention_data": writer.value(dict(derivation.convention_data)),
         "steps": steps,
         "results": results,
+        **({"stopped": {"reason": derivation.stopped["reason"], "during": derivation.stopped["during"],
+                        "finished": list(derivation.stopped["finished"])}} if derivation.stopped else {}),
     }
 
 
@@ -431,7 +449,8 @@ class _Reader:
                               for k, v in _mapping(data.get("assumptions", {}), "metric.assumptions").items()),
             function_signs=self.function_signs(data.get("function_signs", []), functions),
             matter=self.matter(requests.get("matter")), ansatz=self.ansatz(requests.get("ansatz")),
-            orbit=self.orbit(requests.get("orbit")), plots=self.plots(requests.get("plots", [])))
+            orbit=self.orbit(requests.get("orbit")), plots=self.plots(requests.get("plots", [])),
+            frame=self.frame(requests.get("frame"), names))
 
     def function_signs(self, data, functions: list) -> tuple[FunctionSign, ...]:
         """The declared signs of free functions (absent from traces of metrics without them)."""
@@ -459,10 +478,25 @@ class _Reader:
         return MatterRequest(
             time=self.symbol(data.get("time"), where), units=_text(data.get("units"), where),
             cosmological_constant=self.expression(data.get("cosmological_constant"), where),
-            newton=optional["newton"], light=optional["light"],
+            newton=optional["newton"], light=optional["light"], model=self.model(data.get("model")),
             region=tuple((self.symbol(name, where), self.expression(bounds[0], where), self.expression(bounds[1], where))
                          for name, bounds in _mapping(data.get("region", {}), where).items()
                          if len(_list(bounds, where)) == 2))
+
+    def model(self, data) -> MatterModel | None:
+        if data is None:
+            return None
+        where = "metric.requests.matter.model"
+        data = _mapping(data, where)
+        kind = data.get("kind")
+        if kind not in MODEL_KINDS:
+            raise TraceFormatError(f"{where}: unknown kind {kind!r}")
+        optional = lambda key: None if data.get(key) is None else self.expression(data[key], f"{where}.{key}")
+        return MatterModel(kind, density=optional("density"), pressure=optional("pressure"),
+                           velocity=tuple(self.expression(e, where) for e in _list(data.get("velocity", []), where)),
+                           field=optional("field"), potential=optional("potential") or sympy.Integer(0),
+                           vector_potential=tuple(self.expression(e, where)
+                                                  for e in _list(data.get("vector_potential", []), where)))
 
     def ansatz(self, data) -> AnsatzRequest | None:
         if data is None:
@@ -485,6 +519,25 @@ class _Reader:
                             values=pairs("values"), start=pairs("start"), velocity=pairs("velocity"),
                             span=self.expression(data.get("span"), where))
 
+
+    def frame(self, data, names: list[str]) -> FrameRequest | None:
+        """The metric file's [frame] (absent from traces of metrics without one)."""
+        if data is None:
+            return None
+        where = "metric.requests.frame"
+        data = _mapping(data, where)
+        kind, index = data.get("kind"), data.get("index")
+        if kind not in ("orthonormal", "null") or index not in ("up", "down"):
+            raise TraceFormatError(f"{where}: an unknown kind or index")
+        vectors = []
+        for label, components in _mapping(data.get("vectors", {}), where).items():
+            values = [sympy.Integer(0)] * len(names)
+            for name, value in _mapping(components, where).items():
+                if name not in names:
+                    raise TraceFormatError(f"{where}: {name!r} is not a coordinate")
+                values[names.index(name)] = self.expression(value, where)
+            vectors.append((_identifier(label, where), tuple(values)))
+        return FrameRequest(kind=kind, vectors=tuple(vectors), index=index)
 
     def plots(self, data) -> tuple[PlotRequest, ...]:
         """The [[plot]] requests (absent from traces of metrics without them)."""
@@ -583,7 +636,19 @@ def load_trace(text: str | bytes, validate: bool = True) -> Derivation:
         conventions={k: _text(v, "conventions") for k, v in _mapping(data.get("conventions", {}), "conventions").items()},
         conventions_latex={k: _text(v, "conventions_latex")
                            for k, v in _mapping(data.get("conventions_latex", {}), "conventions_latex").items()},
-        convention_data=_mapping(reader.value(data.get("convention_data", {}), "convention_data"), "convention_data"))
+        convention_data=_mapping(reader.value(data.get("convention_data", {}), "convention_data"), "convention_data"),
+        stopped=_stopped(data.get("stopped")))
+
+
+def _stopped(data) -> dict | None:
+    """Where a partial derivation stopped (``stopped`` in the trace), checked field by field."""
+    if data is None:
+        return None
+    data = _mapping(data, "stopped")
+    if data.get("reason") not in ("time limit", "interrupted"):
+        raise TraceFormatError("stopped.reason must be \"time limit\" or \"interrupted\"")
+    return {"reason": data["reason"], "during": _text(data.get("during"), "stopped.during"),
+            "finished": [_text(name, "stopped.finished") for name in _list(data.get("finished"), "stopped.finished")]}
 
 
 def read_trace_file(path: str | Path) -> Derivation:

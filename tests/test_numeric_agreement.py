@@ -109,6 +109,39 @@ def ball_compactness(r):
     return r ** 2 / (r ** 2 + 4)
 
 
+def wave_train_platform(x, p):
+    """The plane wave with the concrete profiles A(u) = 1 + u^2/5 and B(u) = 2 + u/7 (B >= 0 on the box, as
+    its metric file declares): H = A (x^2 - y^2) + B (x^2 + y^2)."""
+    u, _v, X, Y = x
+    H = (1 + u ** 2 / 5) * (X ** 2 - Y ** 2) + (2 + u / 7) * (X ** 2 + Y ** 2)
+    g = mpmath.zeros(4, 4)
+    g[0, 0], g[0, 1], g[1, 0], g[2, 2], g[3, 3] = -H, -1, -1, 1, 1
+    return g
+
+
+def radiating_star_burst(x, p):
+    """Outgoing Vaidya with the concrete mass m(u) = 1 - u/4 (positive, dm/du <= 0, as declared)."""
+    u, r, th, _ph = x
+    g = mpmath.zeros(4, 4)
+    g[0, 0] = -(1 - 2 * (1 - u / 4) / r)
+    g[0, 1] = g[1, 0] = -1
+    g[2, 2], g[3, 3] = r ** 2, r ** 2 * mpmath.sin(th) ** 2
+    return g
+
+
+def fluid_star_interior(x, p):
+    """The fluid star with the concrete Phi(r) = r^2/10 and Lambda(r) = r/7."""
+    _t, r, th, _ph = x
+    return mpmath.diag([-mpmath.exp(r ** 2 / 5), mpmath.exp(2 * r / 7), r ** 2, r ** 2 * mpmath.sin(th) ** 2])
+
+
+def curved_fluid_universe(x, p):
+    """The curved homogeneous universe with the concrete a(t) = 1 + t/5 + t^2/4 (positive on the box)."""
+    t, r, th, _ph = x
+    a = 1 + t / 5 + t ** 2 / 4
+    return mpmath.diag([-1, a ** 2 / (1 - p["k"] * r ** 2), a ** 2 * r ** 2, a ** 2 * r ** 2 * mpmath.sin(th) ** 2])
+
+
 def anisotropic_ball(x, p):
     _t, r, th, _ph = x
     return mpmath.diag([-1, 1 / (1 - ball_compactness(r)), r ** 2, r ** 2 * mpmath.sin(th) ** 2])
@@ -240,6 +273,25 @@ CASES = {
         boxes=[(-1.0, 1.0), (1.0, 4.0), THETA, PHI],
         functions={"A": lambda t, r, th, ph: 1 + r / 3 + r ** 2 / 7,
                    "B": lambda t, r, th, ph: 2 + r ** 2 / 5}),
+    "wave_train_platform": dict(
+        metric=wave_train_platform, params={},
+        boxes=[(-1.0, 1.0), (-1.0, 1.0), (-2.0, 2.0), (-2.0, 2.0)],
+        functions={"A": lambda u, v, x, y: 1 + u ** 2 / 5, "B": lambda u, v, x, y: 2 + u / 7}),
+    "fluid_star_interior": dict(
+        metric=fluid_star_interior, params={},
+        boxes=[(-1.0, 1.0), (0.5, 3.0), THETA, PHI],
+        functions={"Phi": lambda t, r, th, ph: r ** 2 / 10, "Lambda": lambda t, r, th, ph: r / 7,
+                   "rho": lambda t, r, th, ph: 1 / (1 + r ** 2), "p": lambda t, r, th, ph: 1 / (5 + r ** 2)}),
+    "curved_fluid_universe": dict(
+        # k = 1/3 and r < 1.5 keep 1 - k r^2 > 0
+        metric=curved_fluid_universe, params={"k": Fraction(1, 3)},
+        boxes=[(-1.0, 1.0), (0.3, 1.5), THETA, PHI],
+        functions={"a": lambda t, r, th, ph: 1 + t / 5 + t ** 2 / 4, "rho": lambda t, r, th, ph: 1 / (2 + t),
+                   "p": lambda t, r, th, ph: 1 / (6 + t)}),
+    "radiating_star_burst": dict(
+        metric=radiating_star_burst, params={},
+        boxes=[(-1.0, 1.0), (3.0, 6.0), THETA, PHI],
+        functions={"m": lambda u, r, th, ph: 1 - u / 4}),
 }
 
 
@@ -383,6 +435,10 @@ def _coordinate_names(name):
         "wormhole_passage": ["t", "r", "theta", "phi"],
         "exterior_from_ansatz": ["t", "r", "theta", "phi"],
         "anisotropic_ball": ["t", "r", "theta", "phi"],
+        "wave_train_platform": ["u", "v", "x", "y"],
+        "radiating_star_burst": ["u", "r", "theta", "phi"],
+        "fluid_star_interior": ["t", "r", "theta", "phi"],
+        "curved_fluid_universe": ["t", "r", "theta", "phi"],
     }[name]
 
 

@@ -32,6 +32,11 @@ pytestmark = pytest.mark.slow
 #: Commands of the README not run here, with the reason.
 NOT_RUN = {
     "python3 -m pytest": "the test command itself: it is what runs this file",
+    # A Dask scheduler and worker run until stopped: tests/test_batch.py starts both (on a free port) with these
+    # commands and runs `stepper batch --scheduler` against them.
+    "dask scheduler": "a server: started by tests/test_batch.py",
+    "dask worker tcp://SCHEDULER:8786": "a server: started by tests/test_batch.py",
+    "stepper batch examples -o catalogue --scheduler tcp://SCHEDULER:8786": "run by tests/test_batch.py",
 }
 
 
@@ -121,6 +126,11 @@ def test_readme_command_runs_with_its_documented_status(readme_runs, command):
         agreed = re.search(r"(\d+) of (\d+) claims agree", proc.stdout)
         assert agreed, proc.stdout
         assert (proc.returncode == 0) == (agreed.group(1) == agreed.group(2))
+    elif words[:2] == ["stepper", "batch"]:
+        # 0 when every member's run ended with 0, 1 otherwise (the claims files hold deliberate slips)
+        index = json.loads((cwd / words[words.index("-o") + 1] / "index.json").read_text(encoding="utf-8"))
+        assert all(e["status"] == "ok" for e in index["entries"]), index["entries"]
+        assert proc.returncode == (0 if all(e["exit_status"] == 0 for e in index["entries"]) else 1), proc.stderr
     else:
         assert proc.returncode == 0, proc.stderr
 
@@ -148,6 +158,37 @@ def test_readme_python_example_runs(tmp_path):
         proc = subprocess.run([sys.executable, "-c", block], cwd=cwd, capture_output=True, text=True,
                               timeout=TIMEOUT)
         assert proc.returncode == 0, proc.stderr
+
+
+def test_readme_jupyter_session_displays_typeset_math(tmp_path):
+    """The README's Jupyter session, one cell per paragraph, executed in a kernel: each displayed value carries
+    LaTeX (text/latex) with the physics of the sphere of radius a (from memory: R_ij = g_ij / a^2, so
+    R_thetatheta = 1 and R = 2/a^2; constant sectional curvature k = 1/a^2), the audit finds the wrong claim,
+    and the PDF is written."""
+    import nbformat
+    from nbclient import NotebookClient
+    cwd = working_copy(tmp_path)
+    session = next(block for block in readme_blocks("python") if block.startswith("# In Jupyter"))
+    cells = [nbformat.v4.new_code_cell(part.strip()) for part in session.split("\n\n") if part.strip()]
+    notebook = nbformat.v4.new_notebook(cells=cells)
+    NotebookClient(notebook, timeout=TIMEOUT, kernel_name="python3",
+                   resources={"metadata": {"path": str(cwd)}}).execute()
+    shown = {}
+    for cell in notebook.cells:
+        results = [o for o in cell.outputs if o.output_type == "execute_result"]
+        assert not [o for o in cell.outputs if o.output_type == "error"], cell.outputs
+        if results:
+            shown[cell.source.splitlines()[-1]] = results[0]["data"]
+    latex = {line: data["text/latex"] for line, data in shown.items() if "text/latex" in data}
+    assert len(latex) == 4, sorted(shown)  # the derivation, the Ricci tensor, a verdict, the audited claim
+    assert r"R = \frac{2}{a^{2}}" in latex["d"]
+    assert r"R_{{\theta}{\theta}} = 1" in latex['d.quantity("ricci")']
+    verdict = latex['d.verdict("constant_curvature")']
+    assert r"\textbf{holds}" in verdict and r"k = \frac{1}{a^{2}}" in verdict
+    claim = latex["checked.verdict(2)"]
+    assert r"\textbf{differs}" in claim and r"\text{correct: }R_{{\theta}{\theta}} = 1" in claim
+    assert "report.pdf" in next(data["text/plain"] for line, data in shown.items() if "stepper.render" in line)
+    assert (cwd / "out" / "sphere" / "report.pdf").read_bytes().startswith(b"%PDF")
 
 
 @pytest.fixture(scope="module")

@@ -278,3 +278,153 @@ def test_runtime_helpers_refuse_text_instead_of_parsing_it():
     with pytest.raises(sp.SympifyError):
         core.vanishes("x - x")
     assert core.expression(2) == sp.Integer(2)
+
+
+def _flat(module, names, symbols, g):
+    """Set the coordinates and the metric tables in core and in ``module`` (a runtime module that star-imports core)."""
+    set_coordinates(core, names, symbols)
+    set_coordinates(module, names, symbols)
+    fill_from_matrix(core, names, symbols, g)
+    core.christoffel.clear()
+
+
+def test_matter_model_helpers_in_flat_spacetime():
+    from stepper.runtime import models as models_runtime
+    x, y, z = sp.symbols("x y z", real=True)
+    names, symbols = ["t", "x", "y", "z"], [t, x, y, z]
+    _flat(models_runtime, names, symbols, sp.diag(-1, 1, 1, 1))
+    density, pressure = sp.Function("rho")(t, x), sp.Function("p")(t, x)
+    fluid = {"kind": "perfect fluid", "density": density, "pressure": pressure, "time": "t"}
+    T = lambda a, b: models_runtime.model_stress_energy_from_declaration(fluid, a, b)
+    # a fluid at rest in flat spacetime: T_ab = diag(rho, p, p, p) (common practice)
+    assert [T(a, a) for a in names] == [density, pressure, pressure, pressure]
+    assert T("t", "x") == 0
+    models_runtime.model_stress_energy.clear()
+    models_runtime.model_stress_energy.update({(a, a): T(a, a) for a in names})
+    # d_a T^a_b: -d_t rho for b = t and d_x p for b = x (common practice: continuity and Euler at rest)
+    assert core.vanishes(models_runtime.model_divergence("t") + sp.diff(density, t))
+    assert core.vanishes(models_runtime.model_divergence("x") - sp.diff(pressure, x))
+    # a uniform electric field E along x from A_t = -E x: energy density E^2/(8 pi), a tension -E^2/(8 pi)
+    # along the field and a pressure +E^2/(8 pi) across it (Gaussian units; from memory)
+    E = sp.Symbol("E", positive=True)
+    field = {"kind": "electromagnetic field", "vector_potential": {"t": -E * x}}
+    em = lambda a, b: sp.simplify(models_runtime.model_stress_energy_from_declaration(field, a, b))
+    assert [em(a, a) for a in names] == [E**2 / (8 * sp.pi), -E**2 / (8 * sp.pi), E**2 / (8 * sp.pi),
+                                         E**2 / (8 * sp.pi)]
+    # a homogeneous scalar field: T_tt = phi'^2/2 + V, T_xx = phi'^2/2 - V (from memory)
+    f = sp.Function("f")(t)
+    V = f**2 / 2
+    scalar = {"kind": "scalar field", "field": f, "potential": V}
+    S = lambda a, b: models_runtime.model_stress_energy_from_declaration(scalar, a, b)
+    assert core.vanishes(S("t", "t") - (f.diff(t)**2 / 2 + V))
+    assert core.vanishes(S("x", "x") - (f.diff(t)**2 / 2 - V))
+
+
+def test_matter_model_solved_check_refuses_a_wrong_form():
+    from stepper.runtime import models as models_runtime
+    x, y, z = sp.symbols("x y z", real=True)
+    a = sp.Function("a")(t)
+    names, symbols = ["t", "x", "y", "z"], [t, x, y, z]
+    g = sp.diag(-1, a**2, a**2, a**2)
+    _flat(models_runtime, names, symbols, g)
+    for i, e in enumerate(names):  # Christoffel symbols of the flat FLRW metric, computed here
+        for j, b in enumerate(names):
+            for k, c in enumerate(names):
+                value = core.christoffel_from_metric(e, b, c)
+                if value != 0:
+                    core.christoffel[e, b, c] = value
+    density = sp.Function("rho")(t)
+    dust = {"kind": "dust", "density": density, "time": "t"}
+    models_runtime.model_stress_energy.clear()
+    models_runtime.model_stress_energy["t", "t"] = models_runtime.model_stress_energy_from_declaration(dust, "t", "t")
+    # dust: rho' = -3 (a'/a) rho (Carroll, Spacetime and Geometry, sec. 8.3)
+    right = -3 * a.diff(t) / a * density
+    equation = {"name": "continuity", "lhs": density.diff(t), "rhs": right, "source": "conservation",
+                "component": ("t",), "replace": [(density.diff(t), right)]}
+    models_runtime.check_model_solved("model/solved", [equation], [])
+    wrong = dict(equation, rhs=-2 * a.diff(t) / a * density, replace=[(density.diff(t), -2 * a.diff(t) / a * density)])
+    with pytest.raises(AssertionError):
+        models_runtime.check_model_solved("model/solved", [wrong], [])
+
+
+# ---------------------------------------------------------------------------
+# The Weyl scalars and the algebraic type (stepper/runtime/petrov.py)
+# ---------------------------------------------------------------------------
+
+from stepper.runtime import petrov as petrov_runtime  # noqa: E402
+
+
+def _petrov_answers(psi):
+    """(O, N, D, III, II) questions answered from the runtime's elements: True when every element vanishes."""
+    R = petrov_runtime
+    invariant_i, invariant_j = R.weyl_invariants(psi)
+    hessian = R.hessian_of_quartic(psi)
+
+    def named(name):
+        return R.petrov_elements(psi, invariant_i, invariant_j, hessian, name)
+    minors = [f"h{i} f{j} - h{j} f{i}" for i in range(5) for j in range(i + 1, 5)]
+    questions = ([f"Psi{k}" for k in range(5)], [f"h{k}" for k in range(5)], minors, ["I", "J"], ["I^3 - 27 J^2"])
+    return [all(not named(name) for name in names) for names in questions]
+
+
+@pytest.mark.parametrize("roots, expected", [
+    ([1, 2, -3, sp.I], "I"), ([0, 0, 1, 2 + sp.I], "II"), ([1, 1, None, None], "D"), ([sp.I, sp.I, 3, 3], "D"),
+    ([2, 2, 2, -1], "III"), ([None, None, None, 5], "III"), ([1 - sp.I] * 4, "N"), ([None] * 4, "N"), ([], "O"),
+])
+def test_petrov_type_follows_the_multiplicities_of_the_roots_of_the_quartic(roots, expected):
+    # Source: Stephani et al., Exact Solutions (2nd ed.), sec. 4.2: the type is read from the multiplicities of
+    # the roots of Psi0 + 4 Psi1 z + 6 Psi2 z^2 + 4 Psi3 z^3 + Psi4 z^4 (None: a root at infinity, where the
+    # degree drops): {1,1,1,1} I, {2,1,1} II, {2,2} D, {3,1} III, {4} N, Weyl tensor zero O.
+    R = petrov_runtime
+    set_coordinates(R, ["t", "r", "theta", "phi"], [t, r, theta, phi])
+    R.tetrad_order, R.tetrad_squares, R.tetrad_perfect_squares = [], {}, []
+    R.use_petrov_field([])
+    x, y = sp.symbols("x y")
+    f = sp.Integer(0) if not roots else sp.Mul(*((y if z is None else x - z * y) for z in roots)) * (3 - 2 * sp.I)
+    poly = sp.Poly(sp.expand(f), x, y)
+    psi = {}
+    for k in range(5):
+        value = sp.expand(poly.coeff_monomial(x**k * y**(4 - k)) / sp.binomial(4, k))
+        psi[f"Psi{k}"] = R.reduce_roots({(0, 0): R.field_into(sp.re(value)), (0, 1): R.field_into(sp.im(value))})
+    assert R.petrov_type(_petrov_answers(psi)) == expected
+
+
+def test_petrov_helpers_give_psi2_of_schwarzschild_in_the_static_tetrad():
+    # R_trtr = -2M/r^3, R_t theta t theta = M f/r, R_r theta r theta = -M/(r f), R_theta phi theta phi
+    # = 2 M r sin^2 theta (Schwarzschild in (-+++), a round sphere positive; MTW eq. 31.4 in the static frame,
+    # from memory); in vacuum C = R.  With l, n = (e_t +- e_r)/sqrt2 and m = (e_theta + i e_phi)/sqrt2 only
+    # Psi2 = -M/r^3 is non-zero (Griffiths & Podolsky, sec. 8.1).
+    R = petrov_runtime
+    names = ["t", "r", "theta", "phi"]
+    set_coordinates(R, names, [t, r, theta, phi])
+    f = 1 - 2 * M / r
+    s2 = sp.sin(theta) ** 2
+    R.metric.clear()
+    R.metric.update({("t", "t"): -f, ("r", "r"): 1 / f, ("theta", "theta"): r**2, ("phi", "phi"): r**2 * s2})
+    R.weyl.clear()
+    R.weyl.update({("t", "r", "t", "r"): -2 * M / r**3, ("t", "theta", "t", "theta"): M * f / r,
+                   ("t", "phi", "t", "phi"): M * f * s2 / r, ("r", "theta", "r", "theta"): -M / (r * f),
+                   ("r", "phi", "r", "phi"): -M * s2 / (r * f), ("theta", "phi", "theta", "phi"): 2 * M * r * s2})
+    order = ["phi", "theta", "r", "t"]
+    w, N = R.gram_schmidt_tetrad(order)
+    assert R.vanishes(N["t"] + f) and R.vanishes(N["phi"] - r**2 * s2)
+    signs = {"phi": 1, "theta": 1, "r": 1, "t": -1}
+    R.tetrad_order, R.tetrad_unnormalised = order, w
+    R.tetrad_squares = {k: signs[k] * N[k] for k in order}
+    R.tetrad_perfect_squares = []
+    R.use_petrov_field(list(R.tetrad_squares.values()) + list(R.weyl.values()))
+    R.tetrad_pairs = {"l": [("t", 1), ("r", 1)], "n": [("t", 1), ("r", -1)],
+                      "m": [("theta", 1), ("phi", sp.I)], "b": [("theta", 1), ("phi", -sp.I)]}
+    psi = {name: R.weyl_scalar_parts(name) for name in R.WEYL_SCALAR_SLOTS}
+    for name in ("Psi0", "Psi1", "Psi3", "Psi4"):
+        assert psi[name] == {}
+    assert list(psi["Psi2"]) == [(0, 0)] and R.vanishes(R.field_out(psi["Psi2"][0, 0]) + M / r**3)
+    invariant_i, invariant_j = R.weyl_invariants(psi)
+    assert R.vanishes(R.field_out(invariant_i[0, 0]) - 3 * M**2 / r**6)
+    assert R.vanishes(R.field_out(invariant_j[0, 0]) - M**3 / r**9)
+    assert R.petrov_type(_petrov_answers(psi)) == "D"
+    # a recorded part that differs (Psi2 = -2M/r^3) is refused
+    wrong = {(0, 0): R.field_into(-2 * M / r**3)}
+    with pytest.raises(AssertionError, match="Psi2"):
+        R.check_parts("weyl_scalars", wrong, psi["Psi2"], "Psi2")
+    R.check_parts("weyl_scalars", {(0, 0): R.field_into(-M / r**3)}, psi["Psi2"], "Psi2")

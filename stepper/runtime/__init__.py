@@ -16,7 +16,7 @@ START = "# ---- inlined into the notebook from here ----"
 END = "# ---- to here ----"
 
 #: The runtime modules, in the order the notebook inlines them.
-MODULES = ("core", "matter", "ansatz", "geodesics")
+MODULES = ("core", "matter", "ansatz", "geodesics", "petrov", "models")
 
 
 def inlined_source(module: str) -> str:

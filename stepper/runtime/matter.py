@@ -343,8 +343,138 @@ def perfect_fluid_residues():
             for i, j in index_pairs()}
 
 
+# ---------------------------------------------------------------------------
+# Frames and null vectors of the metric file's own ([frame]); null directions; null dust
+# ---------------------------------------------------------------------------
+
+def conjugate_vector(vector):
+    """The complex conjugate of a vector whose components are a + I b with a, b real (I -> -I)."""
+    return {i: expression(value).subs(sp.I, -sp.I) for i, value in vector.items()}
+
+
+def real_and_imaginary(value):
+    """(a, b) for a + I b with a, b real."""
+    value = expression(value)
+    conjugate = value.subs(sp.I, -sp.I)
+    return (value + conjugate) / 2, sp.expand((value - conjugate) / (2 * sp.I))
+
+
+def check_complex(step, recorded, recomputed, part):
+    """check() the real and the imaginary parts of a recorded complex value."""
+    for word, recorded_part, recomputed_part in zip(("real", "imaginary"), real_and_imaginary(recorded),
+                                                    real_and_imaginary(recomputed)):
+        check(step, recorded_part, recomputed_part, part=f"{part} ({word} part)")
+
+
+def raised_vector(covector):
+    """e^i = g^ij e_j for a covector given as {coordinate name: component}."""
+    return {i: sum((component(inverse_metric, i, j) * covector[j] for j in covector), sp.S.Zero) for i in index_names}
+
+
+def check_given_vectors(step, given, index, recorded, tetrad):
+    """The recorded upper components are the metric file's vectors (raised with g^ij when it gave covectors),
+    and a recorded null tetrad is l = (e0 + e1)/sqrt 2, n = (e0 - e1)/sqrt 2, m = (e2 + I e3)/sqrt 2 built
+    from the frame in its recorded order."""
+    for label, vector in given.items():
+        expected = raised_vector(vector) if index == "down" else vector
+        for i in index_names:
+            check_complex(step, recorded[label].get(i, sp.S.Zero), expected.get(i, sp.S.Zero), f"{label}^{i}")
+    if tetrad:
+        e = [recorded[label] for label in recorded]
+        root = sp.sqrt(2)
+        built = {"l": {i: (e[0].get(i, 0) + e[1].get(i, 0)) / root for i in index_names},
+                 "n": {i: (e[0].get(i, 0) - e[1].get(i, 0)) / root for i in index_names},
+                 "m": {i: (e[2].get(i, 0) + sp.I * e[3].get(i, 0)) / root for i in index_names}}
+        for label, vector in built.items():
+            for i in index_names:
+                check_complex(step, tetrad[label].get(i, sp.S.Zero), vector[i], f"{label}^{i} of the tetrad")
+
+
+def given_products(vectors, products):
+    """g(a, b) minus its required value for each recorded product (mbar the conjugate of m), as residues
+    (real and imaginary parts separately)."""
+    known = dict(vectors)
+    if "m" in known:
+        known["mbar"] = conjugate_vector(known["m"])
+    residues = {}
+    for product in products:
+        first, second, value = product["first"], product["second"], product["value"]
+        residue = sp.expand(inner_product(known[first], known[second]) - value)
+        real, imaginary = real_and_imaginary(residue)
+        residues[f"g({first}, {second}) - ({value}), real part"] = real
+        residues[f"g({first}, {second}) - ({value}), imaginary part"] = imaginary
+    return residues
+
+
+def check_given_orthonormal_frame(step, vectors, norms, unnormalised):
+    """The frame of the metric file used for the matter: each e_(a) is the checked given vector, and
+    e_(a) = w_(a) / sqrt(N_(a)) (e^i e^j N = w^i w^j exactly, and e points the way w does at a point of the
+    region where every N is positive, or by sympy's assumptions).  Returns that point (None if none)."""
+    symbols = set().union(*(expression(value).free_symbols for vector in vectors.values() for value in vector.values()))
+    point = next(iter(region_points(symbols, 1, norms)), None)
+    for label in frame_order:
+        e, w = vectors[label], unnormalised[label]
+        for i in index_names:
+            check(step, e.get(i, sp.S.Zero), given_frame_vectors[label].get(i, sp.S.Zero), part=f"e_({label})^{i}")
+        for i, j in index_pairs():
+            check(step, w.get(i, sp.S.Zero) * w.get(j, sp.S.Zero), e.get(i, sp.S.Zero) * e.get(j, sp.S.Zero) * norms[label],
+                  part=f"e_({label})^{i} e_({label})^{j} N_({label}) = w_({label})^{i} w_({label})^{j}")
+        lead = next(i for i in index_names if not vanishes(w.get(i, sp.S.Zero)))
+        agrees = sign_agrees(e.get(lead, sp.S.Zero), w[lead], point)
+        if agrees is False:
+            raise AssertionError(f"step {step}: e_({label}) points against w_({label})")
+        if agrees is None:
+            print(f"{step}: the direction of e_({label}) could not be compared (no point of the region found)")
+    return point
+
+
+def null_direction_residues(step, directions):
+    """Each recorded null direction: a coordinate vector d_v has lower components g_iv, a gradient du upper
+    components g^iu (checked against the recorded ones); the residues are g(k, k)."""
+    residues = {}
+    for name, entry in directions.items():
+        v = entry["coordinate"]
+        if entry["source"] == "coordinate vector":
+            upper = {i: sp.S.One if i == v else sp.S.Zero for i in index_names}
+            lower = {i: component(metric, i, v) for i in index_names}
+        else:
+            upper = {i: component(inverse_metric, i, v) for i in index_names}
+            lower = {i: sp.S.One if i == v else sp.S.Zero for i in index_names}
+        for i in index_names:
+            check(step, entry["upper"].get(i, sp.S.Zero), upper[i], part=f"{name}^{i}")
+            check(step, entry["lower"].get(i, sp.S.Zero), lower[i], part=f"{name}_{i}")
+        null_vectors[name] = upper
+        residues[f"g({name}, {name})"] = inner_product(upper, upper)
+    return residues
+
+
+def null_vector(name):
+    """A null vector of an earlier cell: a direction read off the metric or a given l or n."""
+    return null_vectors[name] if name in null_vectors else given_frame_vectors[name]
+
+
+def null_dust_residues(step, direction, density):
+    """T_ij - f k_i k_j for i <= j with k_i = g_ij k^j, after checking f = T_pp / k_p^2 at the first p with
+    k_p != 0 (the recorded recipe)."""
+    k = null_vector(direction)
+    lower = {i: sum((component(metric, i, j) * k.get(j, sp.S.Zero) for j in index_names), sp.S.Zero)
+             for i in index_names}
+    p = next(i for i in index_names if not vanishes(lower[i]))
+    check(step, density, component(stress_energy, p, p) / lower[p] ** 2, part="f = T_pp / k_p^2")
+    return {f"T_{i},{j} - f k_{i} k_{j}": component(stress_energy, i, j) - density * lower[i] * lower[j]
+            for i, j in index_pairs()}
+
+
+def along_null_vector(name):
+    """T_ij k^i k^j for a recorded null vector k."""
+    k = null_vector(name)
+    return sum((component(stress_energy, i, j) * k.get(i, sp.S.Zero) * k.get(j, sp.S.Zero)
+                for i in index_names for j in index_names), sp.S.Zero)
+
+
 # The recorded matter quantities, filled in by the step cells below.
 stress_energy, stress_energy_mixed, stress_energy_up = {}, {}, {}
 frame_vectors, frame_norms, frame_order, frame_region, frame_point, frame_unnormalised = {}, {}, [], {}, None, {}
 frame_stress_energy, frame_ricci, frame_riemann, pressures = {}, {}, {}, {}
+given_frame_vectors, given_tetrad, null_vectors, null_dust_density = {}, {}, {}, None
 # ---- to here ----
