@@ -99,7 +99,9 @@ ANSATZ_KEYS = ("unknowns", "cosmological_constant")
 ORBIT_KEYS = ("kind", "time", "values", "start", "velocity", "span")
 PLOT_KEYS = ("quantity", "along", "range", "values", "shade")
 #: What a [[plot]] may draw: the registry's scalar results, and "pressure" for the principal pressures.
-PLOT_QUANTITIES = tuple(q.name for q in QUANTITIES.values() if q.rank == 0) + ("pressure",)
+#: Without indices in the registry but not one real function to draw: a set of vectors, five complex scalars.
+NOT_PLOTTED = ("null_tetrad", "weyl_scalars")
+PLOT_QUANTITIES = tuple(q.name for q in QUANTITIES.values() if q.rank == 0 and q.name not in NOT_PLOTTED) + ("pressure",)
 #: Most [[plot]] tables a metric file may hold (each is evaluated at a few hundred points).
 PLOT_LIMIT = 12
 UNITS = ("geometric", "physical")

@@ -644,7 +644,10 @@ def _factors(value: sympy.Expr) -> tuple[sympy.Rational, dict]:
     numerator, denominator = sympy.fraction(sympy.together(value))
     coefficient, out = sympy.Integer(1), {}
     for part, power in ((numerator, 1), (denominator, -1)):
-        c, factors = sympy.factor_list(part)
+        try:
+            c, factors = sympy.factor_list(part)
+        except sympy.PolynomialError:  # not a polynomial (a fractional power on the sympy path): one factor
+            c, factors = (part, []) if part.is_Number else (sympy.Integer(1), [(part, 1)])
         coefficient = coefficient * sympy.Rational(c) ** power
         for base, exponent in factors:
             out[base] = out.get(base, 0) + power * exponent

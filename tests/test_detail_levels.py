@@ -209,7 +209,7 @@ def kerr_appendices(tmp_path_factory):
 def test_summary_of_the_rotating_black_hole_fits_in_a_few_pages(tmp_path, kerr_appendices, columns):
     log, pages = compile_paper(tmp_path, columns, kerr_appendices["summary"])
     assert_clean(log)
-    assert pages <= 4, pages
+    assert pages <= 5, pages  # the full derivation runs to about 45 pages
 
 
 @needs_tex

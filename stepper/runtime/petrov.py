@@ -7,6 +7,7 @@ importable here for unit tests, with the core helpers and the names the notebook
 """
 
 import itertools  # noqa: F401  (used by the inlined helpers)
+import random  # noqa: F401
 
 import sympy as sp  # noqa: F401
 
@@ -117,7 +118,7 @@ def check_null_tetrad(step, order, unnormalised, norms, signs, roots, perfect_sq
         for i in index_names:
             check(step, vectors[name].get(i, 0), built[name][i], part=f"{name}^{i}")
     use_petrov_field(list(squares.values()) + [value for _, value in perfect_squares] + list(weyl.values())
-                     + [v for vector in w.values() for v in vector.values()])
+                     + [v for vector in w.values() for v in vector.values()], list(weyl.values()))
     tetrad_order, tetrad_unnormalised, tetrad_squares, tetrad_norms = list(order), w, squares, N
     tetrad_perfect_squares = [(list(directions), expression(value)) for directions, value in perfect_squares]
     tetrad_pairs = {"l": [(T, 1), (S, 1)], "n": [(T, 1), (S, -1)], "m": [(P, 1), (Q, sp.I)], "b": [(P, 1), (Q, -sp.I)]}
@@ -182,8 +183,8 @@ def petrov_field(expressions):
     ring = field.ring
 
     def tidy(element):
-        """cos**2 replaced by 1 - sin**2 (cosh**2 by 1 + sinh**2), then the denominator made free of cosines
-        by multiplying with its conjugate d0 - d1 cos (nothing is cancelled: no greatest common divisor)."""
+        """The canonical form: cos**2 replaced by 1 - sin**2 (cosh**2 by 1 + sinh**2), then the denominator
+        made free of cosines by multiplying with its conjugate d0 - d1 cos, then cancelled."""
         if not relations:
             return element
         numerator, denominator = element.numer.rem(relations), element.denom.rem(relations)
@@ -197,41 +198,131 @@ def petrov_field(expressions):
             numerator, denominator = (numerator * conjugate).rem(relations), (denominator * conjugate).rem(relations)
         if not numerator:
             return field.zero
-        return element.raw_new(numerator, denominator)
+        return field(numerator) / field(denominator)
 
     def is_zero(element):
         return not element.numer or (bool(relations) and not element.numer.rem(relations))
     return into, out, is_zero, tidy
 
 
-# Set by check_null_tetrad: the field of the coefficients (see petrov_field).
+def point_rational(key):
+    """The exact point's value for key (text): a positive rational p/q with p, q up to 10**6, from a generator
+    seeded with the key, so every atom has its own value whatever the order it is met in."""
+    generator = random.Random(f"petrov point {key}")
+    return sp.Rational(generator.randint(1, 10 ** 6), generator.randint(1, 10 ** 6))
+
+
+def point_values(expr, opaque):
+    """The values the exact point gives the atoms of expr: each symbol, each free function and each of its
+    derivatives a rational of its own; each cos(x), sin(x) pair (1 - u**2)/(1 + u**2), 2u/(1 + u**2) and each
+    cosh(x), sinh(x) pair (1 + u**2)/(1 - u**2), 2u/(1 - u**2) with a u of their own (so cos**2 + sin**2 = 1,
+    cosh**2 - sinh**2 = 1 hold there); with opaque, every other function and non-integer power a rational of
+    its own too (the field takes them as new symbols), else they are left to be evaluated."""
+    values = {}
+    for a in expr.atoms(sp.Derivative, sp.core.function.AppliedUndef):
+        values[a] = point_rational(sp.srepr(a))
+    for a in expr.atoms(sp.cos, sp.sin):
+        u = point_rational("circle " + sp.srepr(a.args[0]))
+        values[a] = (1 - u ** 2) / (1 + u ** 2) if isinstance(a, sp.cos) else 2 * u / (1 + u ** 2)
+    for a in expr.atoms(sp.cosh, sp.sinh):
+        v = point_rational("hyperbola " + sp.srepr(a.args[0]))
+        u = v / (1 + v)  # in (0, 1)
+        values[a] = (1 + u ** 2) / (1 - u ** 2) if isinstance(a, sp.cosh) else 2 * u / (1 - u ** 2)
+    if opaque:
+        for a in expr.atoms(sp.Function, sp.Pow):
+            if a not in values and (isinstance(a, sp.Function) or not a.exp.is_Integer):
+                values[a] = point_rational(sp.srepr(a))
+    for a in expr.free_symbols:
+        values.setdefault(a, point_rational(sp.srepr(a)))
+    return values
+
+
+def at_petrov_point(expr, opaque=True):
+    """expr at the exact point (see point_values): an exact number when opaque, else an expression of numbers."""
+    expr = expression(expr)
+    for head, rule in trigonometric_rewrites.items():
+        if expr.has(head):
+            expr = expr.replace(head, rule)
+    value = expr.xreplace(point_values(expr, opaque))
+    if value.has(sp.zoo, sp.nan, sp.oo) or value.free_symbols:
+        raise AssertionError("the helpers' exact point is a pole of an expression, or leaves a symbol")
+    return value
+
+
+def number_at_petrov_point(expr):
+    """expr at the exact point to 50 digits, square roots and other functions evaluated (principal branch)."""
+    return complex_number(sp.N(at_petrov_point(expr, opaque=False), 50))
+
+
+def complex_number(value):
+    re, im = value.as_real_imag()
+    return sp.N(re, 50), sp.N(im, 50)
+
+
+def numbers_agree(a, b):
+    """Whether two 50-digit complex values (pairs) agree to 40 digits relative to their size."""
+    scale = max(1, abs(a[0]), abs(a[1]), abs(b[0]), abs(b[1]))
+    return abs(a[0] - b[0]) <= scale * sp.Float("1e-40", 50) and abs(a[1] - b[1]) <= scale * sp.Float("1e-40", 50)
+
+
+def petrov_point(expressions):
+    """The exact point mode: the same (into, back, is_zero, tidy) as petrov_field, with every coefficient the
+    exact rational its expression takes at one pseudo-random rational point (see point_values). A non-zero
+    there is a non-zero; a zero there is a zero with high probability only (Schwartz-Zippel: a non-zero
+    rational function of degree d vanishes at a point drawn from a set of S values per variable with
+    probability at most d/S, here S is about 10**12)."""
+    def into(expr):
+        return at_petrov_point(expr)
+
+    def out(element):
+        return element
+
+    def is_zero(element):
+        return element == 0
+
+    def tidy(element):
+        return element
+    return into, out, is_zero, tidy
+
+
+# Above this size (the sum of sympy.count_ops over the recorded Weyl components) the helpers compute at one
+# exact rational point (petrov_point) instead of in the fraction field (petrov_field), which is far too slow
+# for them: the static black hole, the plane wave and the FLRW examples stay well below it (at most ~1000),
+# the rotating black hole is far above (~30000).
+POINT_MODE_SIZE = 5000
+
+# Set by check_null_tetrad: the field of the coefficients (see petrov_field and petrov_point), and which.
 field_into, field_out, field_is_zero, field_tidy = None, None, None, None
+petrov_mode = "field"
 
 
-def use_petrov_field(expressions):
-    """Make petrov_field(expressions) the field every helper below computes in."""
-    global field_into, field_out, field_is_zero, field_tidy
-    field_into, field_out, field_is_zero, field_tidy = petrov_field(expressions)
+def petrov_size(expressions):
+    """The size use_petrov_field decides the mode by: the sum of sympy.count_ops of the expressions."""
+    return sum(sp.count_ops(expression(e)) for e in expressions)
 
 
-def raw_product(a, b):
-    """a * b in the field without cancelling (no greatest common divisor is computed)."""
-    return a.raw_new(a.numer * b.numer, a.denom * b.denom)
+def use_petrov_field(expressions, weyl_components=None):
+    """Make petrov_field(expressions) the field every helper below computes in, or petrov_point(expressions)
+    when the Weyl components (default: the expressions) are larger than POINT_MODE_SIZE."""
+    global field_into, field_out, field_is_zero, field_tidy, petrov_mode
+    size = petrov_size(expressions if weyl_components is None else weyl_components)
+    petrov_mode = "point" if size > POINT_MODE_SIZE else "field"
+    make = petrov_point if petrov_mode == "point" else petrov_field
+    field_into, field_out, field_is_zero, field_tidy = make(expressions)
 
 
-def raw_sum(a, b):
-    """a + b in the field without cancelling."""
-    if a.denom == b.denom:
-        return a.raw_new(a.numer + b.numer, a.denom)
-    return a.raw_new(a.numer * b.denom + b.numer * a.denom, a.denom * b.denom)
-
-
-def raw_scaled(a, number):
-    return a.raw_new(a.numer * sp.Rational(number), a.denom)
+def point_mode_note(step):
+    if petrov_mode == "point":
+        print(f"{step}: the expressions are large, so this is checked at one exact pseudo-random rational point: "
+              "a non-zero there is a non-zero; a zero there (a recorded zero, a part that agrees) is a zero "
+              "with high probability only (Schwartz-Zippel)")
 
 
 def same_value(a, b):
-    """Whether a = b exactly: the cross product of numerators and denominators vanishes modulo the relations."""
+    """Whether a = b exactly: the cross product of numerators and denominators vanishes modulo the relations
+    (at the exact point: the two numbers are equal)."""
+    if petrov_mode == "point":
+        return a == b
     return field_is_zero(a.raw_new(a.numer * b.denom - b.numer * a.denom, a.denom * b.denom))
 
 
@@ -251,12 +342,11 @@ def reduce_roots(x):
                 rep, factor = s ^ r, (r, value)
         if factor is not None:
             r, value = factor
-            c = raw_product(c, value)
+            c = c * value
             for k, label in enumerate(tetrad_order):
                 if ((rep & r) >> k) & 1:
-                    square = field_into(tetrad_squares[label])
-                    c = c.raw_new(c.numer * square.denom, c.denom * square.numer)
-        out[rep, p] = raw_sum(out[rep, p], c) if (rep, p) in out else c
+                    c = c / field_into(tetrad_squares[label])
+        out[rep, p] = out[rep, p] + c if (rep, p) in out else c
     out = {key: field_tidy(value) for key, value in sorted(out.items())}
     return {key: value for key, value in out.items() if not field_is_zero(value)}
 
@@ -266,13 +356,11 @@ def roots_product(x, y):
     out = {}
     for (s, p), c in x.items():
         for (t, q), d in y.items():
-            value = raw_product(c, d)
-            if p and q:
-                value = raw_scaled(value, -1)
+            value = c * d * (-1 if p and q else 1)
             for k, label in enumerate(tetrad_order):
                 if ((s & t) >> k) & 1:
-                    value = raw_product(value, field_into(tetrad_squares[label]))
-            out[s ^ t, p ^ q] = raw_sum(out[s ^ t, p ^ q], value) if (s ^ t, p ^ q) in out else value
+                    value = value * field_into(tetrad_squares[label])
+            out[s ^ t, p ^ q] = out[s ^ t, p ^ q] + value if (s ^ t, p ^ q) in out else value
     return out
 
 
@@ -281,8 +369,7 @@ def roots_sum(*terms):
     out = {}
     for coefficient, x in terms:
         for key, value in x.items():
-            value = raw_scaled(value, coefficient)
-            out[key] = raw_sum(out[key], value) if key in out else value
+            out[key] = out[key] + value * coefficient if key in out else value * coefficient
     return out
 
 
@@ -396,6 +483,23 @@ def value_at(x, point):
     return sp.N(total, 30)
 
 
+def value_at_petrov_point(x):
+    """A sum of roots at the exact point (each sigma_k the principal square root of |N_k| there), to 50 digits,
+    as (real, imaginary), each rounded to zero below 10**-40 of the size of the terms."""
+    total, scale = sp.S.Zero, sp.S.One
+    for (s, p), c in x.items():
+        term = field_out(c) * (sp.I if p else 1)
+        for k, label in enumerate(tetrad_order):
+            if (s >> k) & 1:
+                term = term * sp.sqrt(field_into(tetrad_squares[label]))
+        term = sp.N(term, 50)
+        scale = max(scale, abs(term))
+        total += term
+    re, im = complex_number(total)
+    small = scale * sp.Float("1e-40", 50)
+    return (0 if abs(re) <= small else re), (0 if abs(im) <= small else im)
+
+
 def check_decision(step, decision, element_named):
     """A recorded zero/non-zero decision, tested again: a proven zero must vanish part by part here; a
     proven non-zero must have a non-zero part (one part) or be non-zero at the recorded point."""
@@ -410,7 +514,10 @@ def check_decision(step, decision, element_named):
         print(f"{step}: {decision['question']} was seen only at sample points ({decision['decided_by']}): evidence")
         return None
     x = element_named(names[0])
-    if test["how"] == "canonical form":
+    if petrov_mode == "point" and test["how"] == "point":
+        if not x or value_at_petrov_point(x) == (0, 0):
+            raise AssertionError(f"step {step}: {names[0]} vanishes at the helpers' exact point")
+    elif test["how"] == "canonical form":
         if len(x) != 1:
             raise AssertionError(f"step {step}: {names[0]} was recorded as one non-zero part, here {len(x)}")
     elif test["how"] == "point":
@@ -423,17 +530,25 @@ def check_decision(step, decision, element_named):
 
 def check_weyl_scalars(step, parts_recorded, recorded, roots):
     """Every Weyl scalar recomputed part by part and compared; the recorded expressions must be the sums."""
+    point_mode_note(step)
     values = {}
     for name in WEYL_SCALAR_SLOTS:
         parts = weyl_scalar_parts(name)
         check_parts(step, parts_from_record(parts_recorded[name]), parts, name)
-        check(step, recorded[name], roots_expression(parts, roots), part=name)
+        if petrov_mode == "point":  # the recorded expression is the sum of its parts: both at the point
+            if not numbers_agree(number_at_petrov_point(recorded[name]),
+                                 number_at_petrov_point(roots_expression(parts, roots))):
+                raise AssertionError(f"step {step}, {name}: the recorded expression is not the sum of its parts "
+                                     "at the helpers' exact point")
+        else:
+            check(step, recorded[name], roots_expression(parts, roots), part=name)
         values[name] = parts
     return values
 
 
 def check_algebraic_type(step, type_recorded, invariants_recorded, decisions_recorded, psi):
     """I and J recomputed and compared part by part, each decision tested again, and the type read from them."""
+    point_mode_note(step)
     invariant_i, invariant_j = weyl_invariants(psi)
     check_parts(step, parts_from_record(invariants_recorded["I"]), invariant_i, "I")
     check_parts(step, parts_from_record(invariants_recorded["J"]), invariant_j, "J")
