@@ -119,3 +119,14 @@ def test_time_limit_writes_a_partial_set_in_place_of_the_previous_one(tmp_path):
     from nbclient import NotebookClient
     notebook = nbformat.read(out / "derivation.ipynb", as_version=4)
     NotebookClient(notebook, timeout=600, kernel_name="python3").execute()  # every kept step rechecks
+
+
+@pytest.mark.slow
+def test_a_partial_report_compiles_wherever_the_run_stopped(tmp_path):
+    """Stopped before any verdict or check, the summary and the checks section have nothing to list: the
+    PDF must still compile (an empty list is a LaTeX error)."""
+    metric = load_metric(EXTERIOR)
+    for stage in ("inverse_metric", "christoffel", "verdict_ricci_flat"):
+        partial = load_trace(trace_json(stopped_in(metric, stage)))
+        files, problems = output_files(partial, tmp_path / stage, ["pdf"])
+        assert not problems and files["report.pdf"].startswith(b"%PDF"), (stage, problems)

@@ -428,3 +428,23 @@ def test_petrov_helpers_give_psi2_of_schwarzschild_in_the_static_tetrad():
     with pytest.raises(AssertionError, match="Psi2"):
         R.check_parts("weyl_scalars", wrong, psi["Psi2"], "Psi2")
     R.check_parts("weyl_scalars", {(0, 0): R.field_into(-M / r**3)}, psi["Psi2"], "Psi2")
+
+
+def test_petrov_point_mode_refuses_a_wrong_weyl_scalar_and_a_wrong_zero(monkeypatch):
+    # The same Schwarzschild data as above (Psi2 = -M/r^3 only; Griffiths & Podolsky, sec. 8.1), with the
+    # size threshold lowered so that the helpers compute at the exact rational point.
+    R = petrov_runtime
+    test_petrov_helpers_give_psi2_of_schwarzschild_in_the_static_tetrad()
+    monkeypatch.setattr(R, "POINT_MODE_SIZE", 0)
+    R.use_petrov_field(list(R.tetrad_squares.values()) + list(R.weyl.values()))
+    assert R.petrov_mode == "point"
+    psi = {name: R.weyl_scalar_parts(name) for name in R.WEYL_SCALAR_SLOTS}
+    assert all(psi[name] == {} for name in ("Psi0", "Psi1", "Psi3", "Psi4"))
+    assert R.petrov_type(_petrov_answers(psi)) == "D"
+    R.check_parts("weyl_scalars", {(0, 0): R.field_into(-M / r**3)}, psi["Psi2"], "Psi2")
+    with pytest.raises(AssertionError, match="Psi2"):
+        R.check_parts("weyl_scalars", {(0, 0): R.field_into(-2 * M / r**3)}, psi["Psi2"], "Psi2")
+    # a decision recording every Psi as zero (type O) is refused: Psi2 does not vanish at the point
+    zero = {"vanishes": True, "elements": [f"Psi{k}" for k in range(5)], "decided_by": "", "test": {}}
+    with pytest.raises(AssertionError, match="Psi2"):
+        R.check_decision("algebraic_type", zero, lambda name: psi[name])

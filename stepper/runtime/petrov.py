@@ -7,7 +7,6 @@ importable here for unit tests, with the core helpers and the names the notebook
 """
 
 import itertools  # noqa: F401  (used by the inlined helpers)
-import random  # noqa: F401
 
 import sympy as sp  # noqa: F401
 
@@ -208,6 +207,7 @@ def petrov_field(expressions):
 def point_rational(key):
     """The exact point's value for key (text): a positive rational p/q with p, q up to 10**6, from a generator
     seeded with the key, so every atom has its own value whatever the order it is met in."""
+    import random
     generator = random.Random(f"petrov point {key}")
     return sp.Rational(generator.randint(1, 10 ** 6), generator.randint(1, 10 ** 6))
 
@@ -287,9 +287,8 @@ def petrov_point(expressions):
 
 # Above this size (the sum of sympy.count_ops over the recorded Weyl components) the helpers compute at one
 # exact rational point (petrov_point) instead of in the fraction field (petrov_field), which is far too slow
-# for them: the static black hole, the plane wave and the FLRW examples stay well below it (at most ~1000),
-# the rotating black hole is far above (~30000).
-POINT_MODE_SIZE = 5000
+# for them: the static black hole's components measure 31, the rotating black hole's 433.
+POINT_MODE_SIZE = 200
 
 # Set by check_null_tetrad: the field of the coefficients (see petrov_field and petrov_point), and which.
 field_into, field_out, field_is_zero, field_tidy = None, None, None, None
