@@ -234,8 +234,12 @@ def test_every_step_has_a_markdown_and_a_recomputing_code_cell(name):
                 imported.add(node.module)
     # The plots' cells (stepper.plots) alone import math, io, matplotlib and IPython's display, to draw.
     has_plots = any("def check_plot" in cell.source or "def check_orbit_plot" in cell.source for cell in code_cells(nb))
+    # The algebraic type's helpers (stepper/runtime/petrov.py) import random, seeded with fixed text, for their
+    # exact rational point.
+    has_petrov = any("def point_rational" in cell.source for cell in code_cells(nb))
     assert imported == {"itertools", "sympy", "mpmath"} | ({"numpy", "scipy.integrate"} if asks_for_orbit else set()) \
-        | ({"math", "io", "matplotlib.figure", "IPython.display"} if has_plots else set())
+        | ({"math", "io", "matplotlib.figure", "IPython.display"} if has_plots else set()) \
+        | ({"random"} if has_petrov else set())
 
 
 class _TopLevelNames(ast.NodeVisitor):

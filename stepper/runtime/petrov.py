@@ -212,6 +212,12 @@ def point_rational(key):
     return sp.Rational(generator.randint(1, 10 ** 6), generator.randint(1, 10 ** 6))
 
 
+def _point_key(atom):
+    """An atom's key for its value at the point: its printed form, so a name has one value whatever
+    assumptions the symbol was built with."""
+    return sp.sstr(atom)
+
+
 def point_values(expr, opaque):
     """The values the exact point gives the atoms of expr: each symbol, each free function and each of its
     derivatives a rational of its own; each cos(x), sin(x) pair (1 - u**2)/(1 + u**2), 2u/(1 + u**2) and each
@@ -220,20 +226,20 @@ def point_values(expr, opaque):
     its own too (the field takes them as new symbols), else they are left to be evaluated."""
     values = {}
     for a in expr.atoms(sp.Derivative, sp.core.function.AppliedUndef):
-        values[a] = point_rational(sp.srepr(a))
+        values[a] = point_rational(_point_key(a))
     for a in expr.atoms(sp.cos, sp.sin):
-        u = point_rational("circle " + sp.srepr(a.args[0]))
+        u = point_rational("circle " + _point_key(a.args[0]))
         values[a] = (1 - u ** 2) / (1 + u ** 2) if isinstance(a, sp.cos) else 2 * u / (1 + u ** 2)
     for a in expr.atoms(sp.cosh, sp.sinh):
-        v = point_rational("hyperbola " + sp.srepr(a.args[0]))
+        v = point_rational("hyperbola " + _point_key(a.args[0]))
         u = v / (1 + v)  # in (0, 1)
         values[a] = (1 + u ** 2) / (1 - u ** 2) if isinstance(a, sp.cosh) else 2 * u / (1 - u ** 2)
     if opaque:
         for a in expr.atoms(sp.Function, sp.Pow):
             if a not in values and (isinstance(a, sp.Function) or not a.exp.is_Integer):
-                values[a] = point_rational(sp.srepr(a))
+                values[a] = point_rational(_point_key(a))
     for a in expr.free_symbols:
-        values.setdefault(a, point_rational(sp.srepr(a)))
+        values.setdefault(a, point_rational(_point_key(a)))
     return values
 
 
