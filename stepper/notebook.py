@@ -1284,18 +1284,21 @@ print("{step.id}: undecided (no frame, or T not diagonal in it), as recorded")""
                  "# Each inequality value >= 0: (the recorded value, the recorded answer).",
                  "recorded = {", table, "}",
                  f"check_inequality_values({self._id(step)}, \"{name}\", recorded)"]
-        for label, row in rows.items():
-            how, point = self._inequality_how(row)
-            extra = "" if point is None else ", " + point
-            signs = self._function_signs_source(row)
-            if signs:
-                extra += ", signs=" + signs
-            lines.append(f"recheck_inequality({self._id(step)}, {_label_literal(label)}, "
-                         f"recorded[{_label_literal(label)}][0], \"{how}\"{extra})")
+        lines += [self._recheck_inequality(step, label, row) for label, row in rows.items()]
         lines += ["if combined_answer([answer for _, answer in recorded.values()]) != recorded_holds:",
                   f"    raise AssertionError(\"step {step.id}: the answers of the inequalities do not give the recorded answer\")",
                   f"print(\"{step.id}: {_ANSWER[step.result.holds]}, as recorded\")"]
         return "energy_condition", "\n".join(lines)
+
+    def _recheck_inequality(self, step, label, row: dict) -> str:
+        """The line that decides one recorded inequality again, the way the record says it was decided."""
+        how, point = self._inequality_how(row)
+        extra = "" if point is None else ", " + point
+        signs = self._function_signs_source(row)
+        if signs:
+            extra += ", signs=" + signs
+        return (f"recheck_inequality({self._id(step)}, {_label_literal(label)}, "
+                f"recorded[{_label_literal(label)}][0], \"{how}\"{extra})")
 
     def energy_condition_along_null(self, step, route: str, rows: dict):
         """An energy condition read along null vectors: null dust (every condition holds exactly when f >= 0) or
@@ -1313,13 +1316,7 @@ print("{step.id}: undecided (no frame, or T not diagonal in it), as recorded")""
                 recomputed = f"along_null_vector({_label_literal(symbol.get('direction', ''))})"
             lines.append(f"check({self._id(step)}, recorded[{_label_literal(label)}][0], {recomputed}, "
                          f"part={_label_literal(label)})")
-            how, point = self._inequality_how(row)
-            extra = "" if point is None else ", " + point
-            signs = self._function_signs_source(row)
-            if signs:
-                extra += ", signs=" + signs
-            lines.append(f"recheck_inequality({self._id(step)}, {_label_literal(label)}, "
-                         f"recorded[{_label_literal(label)}][0], \"{how}\"{extra})")
+            lines.append(self._recheck_inequality(step, label, row))
         if route == "null dust":
             lines.append("# Null dust: the condition holds exactly when f >= 0, so its answer is that of f >= 0.")
             lines.append("expected = combined_answer([answer for _, answer in recorded.values()])")

@@ -48,3 +48,21 @@ def example_trace(stem: str) -> str:
 def derived():
     """``derived(stem)``: the (cached) derivation of an example or claims file."""
     return example_derivation
+
+
+# Kerr-de Sitter in Boyer-Lindquist form (from memory), a workload for the tests of stopping and
+# signals (tests/test_output_set.py, tests/test_partial.py): the first stages take well under a second, the
+# Riemann stage seconds.
+ROTATING_DE_SITTER = """title = "rotating hole in a de Sitter background"
+coordinates = ["t", "r", "theta", "phi"]
+line_element = "-(D_r/(Xi^2*Sig))*(dt - a*sin(theta)^2*dphi)^2 + (Sig/D_r)*dr^2 + (Sig/D_th)*dtheta^2 + (D_th*sin(theta)^2/(Xi^2*Sig))*(a*dt - (r^2 + a^2)*dphi)^2"
+[symbols]
+M = "positive"
+a = "positive"
+L = "positive"
+[abbreviations]
+Sig = "r^2 + a^2*cos(theta)^2"
+D_r = "(r^2 + a^2)*(1 - L*r^2/3) - 2*M*r"
+D_th = "1 + L*a^2*cos(theta)^2/3"
+Xi = "1 + L*a^2/3"
+"""

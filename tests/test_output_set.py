@@ -29,6 +29,8 @@ from pathlib import Path
 
 import pytest
 
+from conftest import ROTATING_DE_SITTER
+
 from stepper import cli, outputs
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -260,21 +262,6 @@ def test_jupyter_checkpoints_do_not_block_a_new_run(tmp_path, reference_sets):
     assert snapshot(folder) == reference_sets[1]
 
 
-# Kerr-de Sitter in Boyer-Lindquist form (from memory), used here only as a workload: heavy enough that
-# the Riemann stage runs for seconds on forked workers.
-ROTATING_DE_SITTER = """title = "rotating hole in a de Sitter background"
-coordinates = ["t", "r", "theta", "phi"]
-line_element = "-(D_r/(Xi^2*Sig))*(dt - a*sin(theta)^2*dphi)^2 + (Sig/D_r)*dr^2 + (Sig/D_th)*dtheta^2 + (D_th*sin(theta)^2/(Xi^2*Sig))*(a*dt - (r^2 + a^2)*dphi)^2"
-[symbols]
-M = "positive"
-a = "positive"
-L = "positive"
-[abbreviations]
-Sig = "r^2 + a^2*cos(theta)^2"
-D_r = "(r^2 + a^2)*(1 - L*r^2/3) - 2*M*r"
-D_th = "1 + L*a^2*cos(theta)^2/3"
-Xi = "1 + L*a^2/3"
-"""
 
 
 def children(pid: int) -> list[int]:

@@ -10,6 +10,7 @@ from pathlib import Path
 
 import pytest
 
+from conftest import ROTATING_DE_SITTER
 from stepper import chain
 from stepper.cli import output_files
 from stepper.errors import TimeLimitReached
@@ -76,21 +77,6 @@ def test_the_report_and_notebook_say_partial():
     assert "Partial derivation" not in output_files(whole, ROOT / "out" / "unused", ["tex"])[0]["report.tex"]
 
 
-# Kerr-de Sitter in Boyer-Lindquist form (from memory), a workload of about ten seconds: the first stages
-# (metric, derivatives, determinant, inverse) take well under a second.
-ROTATING_DE_SITTER = """title = "rotating hole in a de Sitter background"
-coordinates = ["t", "r", "theta", "phi"]
-line_element = "-(D_r/(Xi^2*Sig))*(dt - a*sin(theta)^2*dphi)^2 + (Sig/D_r)*dr^2 + (Sig/D_th)*dtheta^2 + (D_th*sin(theta)^2/(Xi^2*Sig))*(a*dt - (r^2 + a^2)*dphi)^2"
-[symbols]
-M = "positive"
-a = "positive"
-L = "positive"
-[abbreviations]
-Sig = "r^2 + a^2*cos(theta)^2"
-D_r = "(r^2 + a^2)*(1 - L*r^2/3) - 2*M*r"
-D_th = "1 + L*a^2*cos(theta)^2/3"
-Xi = "1 + L*a^2/3"
-"""
 
 
 @pytest.mark.slow
