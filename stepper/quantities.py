@@ -119,11 +119,11 @@ QUANTITIES: Mapping[str, Quantity] = {q.name: q for q in (
     # four dimensions, Lorentzian signature (stepper.petrov): a null tetrad l.n = -1, m.mbar = 1 and the Weyl
     # tensor in it; the tetrad is the user's ([frame]) or built by stepper and recorded
     Quantity("null_tetrad", "null tetrad", "", "l",
-             (r"l \cdot n = -1,\ m \cdot \bar m = 1;\ l, n = (e_T \pm e_S)/\sqrt2,\ "
-              r"m = (e_P + i e_Q)/\sqrt2,\ e_k = w_k/\sqrt{|N_k|}"), requires="invariants"),
+             (r"l \cdot n = -1,\ m \cdot \bar m = 1,\quad l, n = (e_T \pm e_S)/\sqrt2,\quad "
+              r"m = (e_P + i e_Q)/\sqrt2,\quad e_k = w_k/\sqrt{|N_k|}"), requires="invariants"),
     Quantity("weyl_scalars", "Weyl scalars", "", r"\Psi",
-             (r"\Psi_0 = C_{abcd} l^a m^b l^c m^d,\ \Psi_1 = C_{abcd} l^a n^b l^c m^d,\ "
-              r"\Psi_2 = C_{abcd} l^a m^b \bar m^c n^d,\ \Psi_3 = C_{abcd} l^a n^b \bar m^c n^d,\ "
+             (r"\Psi_0 = C_{abcd} l^a m^b l^c m^d,\quad \Psi_1 = C_{abcd} l^a n^b l^c m^d,\quad "
+              r"\Psi_2 = C_{abcd} l^a m^b \bar m^c n^d,\quad \Psi_3 = C_{abcd} l^a n^b \bar m^c n^d,\quad "
               r"\Psi_4 = C_{abcd} n^a \bar m^b n^c \bar m^d"), "Psi0 ... Psi4", requires="invariants"),
     Quantity("field_equation", "field equation of the ansatz", "dd", "E", r"E_{ij} = G_{ij} + \Lambda g_{ij}",
              requires="ansatz"),
