@@ -39,7 +39,7 @@ from sympy.core.function import AppliedUndef
 from .algebra import ExpressionArithmetic, UnsupportedByField, ZeroTest, printer_stable
 from .identities import signed_stand_ins
 from .quantities import formula
-from .record import Verdict
+from .record import Verdict, as_expression
 from .sampling import signed_sample
 
 #: The Weyl scalars' names, in order.
@@ -323,7 +323,7 @@ class _Petrov:
         for name, vec in zip(("l", "n", "m", "b"), vectors):
             parts = []
             for value in vec:
-                value = sympy.expand(sympy.sympify(value) if not isinstance(value, sympy.Basic) else value)
+                value = sympy.expand(as_expression(value))
                 imaginary = value.coeff(sympy.I)
                 real = sympy.expand(value - sympy.I * imaginary)
                 if real.has(sympy.I) or imaginary.has(sympy.I):
@@ -338,8 +338,8 @@ class _Petrov:
             converted = {name: [(B.from_expr(r), B.from_expr(i)) for r, i in parts] for name, parts in split.items()}
         self.R = _Roots(B, [B.one] * 4)
         self.user_vectors = converted
-        self.user_shown = {name: {self.names[i]: printer_stable(sympy.sympify(v)) for i, v in enumerate(vec)
-                                  if sympy.sympify(v) != 0}
+        self.user_shown = {name: {self.names[i]: printer_stable(as_expression(v)) for i, v in enumerate(vec)
+                                  if as_expression(v) != 0}
                            for name, vec in zip(("l", "n", "m", "mbar"), vectors)}
         self.tetrad_step = step_id
         self.frame = None
@@ -714,7 +714,7 @@ class _Sampler:
         return {"values": values, "functions": functions}
 
     def evaluate(self, expr: sympy.Expr, point: dict, digits: int = DIGITS):
-        expr = sympy.sympify(expr) if not isinstance(expr, sympy.Basic) else expr
+        expr = as_expression(expr)
         if point["functions"]:
             expr = expr.subs(point["functions"]).doit()
         return expr.subs(point["values"]).evalf(digits)
