@@ -29,7 +29,7 @@ from .quantities import QUANTITIES, indexed_tex
 #: Results whose LaTeX is shorter than this go into a display equation as is.
 SHORT_LATEX = 90
 #: Denominators longer than this are written as a factor with exponent -1.
-SHORT_DENOMINATOR = 70
+SHORT_DENOMINATOR = 60
 
 
 #: A run of characters without a space longer than this gets break opportunities (a long label, a title
