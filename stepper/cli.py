@@ -356,14 +356,18 @@ def output_files(derivation: Derivation, out_dir: Path, formats: Sequence[str], 
                  progress=None) -> tuple[dict[str, str | bytes], list[str]]:
     """The files of a derivation's output set, all made from its trace as ``stepper render`` would (nothing is
     written), and a warning line when no report.pdf could be made for lack of TeX."""
-    # Imported here so that a run writing only trace.json does not pay for templates and TeX.
+    from .trace import trace_json
+    progress = progress or (lambda label, done, total: None)
+    if "trace" in formats:
+        progress("writing trace.json", 0, 1)
+    text = trace_json(derivation)
+    if all(name == "trace" for name in formats):  # nothing reads the record back: no templates, no TeX
+        return {"trace.json": text}, []
     import jinja2
 
     from .exporters import EXPORTERS, AppendixExporter, TexFailed, TexMissing
-    from .trace import load_trace, trace_json
-    progress = progress or (lambda label, done, total: None)
+    from .trace import load_trace
     templates = list(templates)
-    text = trace_json(derivation)
     record = load_trace(text, validate=False)  # every exporter reads what the trace holds, nothing else
     contents: dict[str, str | bytes] = {}
     problems: list[str] = []
@@ -371,7 +375,8 @@ def output_files(derivation: Derivation, out_dir: Path, formats: Sequence[str], 
         exporter = (AppendixExporter(templates, appendix_heading, anchor_prefix, detail)
                     if name == "appendix" else EXPORTERS[name](templates, detail) if name in ("tex", "pdf")
                     else EXPORTERS[name](templates))
-        progress(f"writing {exporter.file_name}", 0, 1)
+        if name != "trace":
+            progress(f"writing {exporter.file_name}", 0, 1)
         try:
             contents[exporter.file_name] = text if name == "trace" else exporter.export(record)
         except TexMissing as err:
@@ -439,6 +444,12 @@ def _formats(text: str | None) -> list[str]:
         raise InputError(f"unknown output format '{unknown[0] if unknown else text}' "
                          f"(choose from {', '.join(EXPORTERS)})")
     return [name for name in EXPORTERS if name in chosen]
+
+
+def quick_exit_allowed(argv: Sequence[str]) -> bool:
+    """Whether ``python -m stepper`` may end the process at once after ``main`` returns: commands that leave
+    no threads, child processes or cluster connections behind (``batch`` may leave a Dask client's)."""
+    return "batch" not in argv
 
 
 def main(argv: Sequence[str] | None = None) -> int:

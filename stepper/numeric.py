@@ -200,12 +200,24 @@ def _jet(metric, point, dps: int):
     return n, g0, ginv, dg, ddg
 
 
+def _nonzero(row) -> list:
+    """``[(index, value)]`` of a row's nonzero entries: the contractions below skip the zeros (a structural zero
+    of the metric gives exact zeros in its finite differences, so nothing is lost)."""
+    return [(i, v) for i, v in enumerate(row) if v]
+
+
+def _raised(ginv_rows, column) -> mpf:
+    """sum_f g^{bf} column(f), over the nonzero g^{bf} of one row."""
+    return mpmath.fsum(v * column(f) for f, v in ginv_rows)
+
+
 def _connection(n, ginv, dg, ddg):
     """Gamma^a_{bc} and dGamma[e][a][b][c] = d_e Gamma^a_{bc} as nested lists."""
     R = range(n)
+    ginv_rows = [_nonzero(row) for row in ginv]
     # first kind: G1[d][b][c] = Gamma_{dbc}
     G1 = [[[(dg[b][d][c] + dg[c][d][b] - dg[d][b][c]) / 2 for c in R] for b in R] for d in R]
-    G2 = [[[mpmath.fsum(ginv[a][d] * G1[d][b][c] for d in R) for c in R] for b in R] for a in R]
+    G2 = [[[mpmath.fsum(v * G1[d][b][c] for d, v in ginv_rows[a]) for c in R] for b in R] for a in R]
     dG2 = []
     for e in R:
         # d_e Gamma_{dbc} - d_e g_{dp} Gamma^p_{bc}
@@ -213,7 +225,7 @@ def _connection(n, ginv, dg, ddg):
             [
                 [
                     (ddg[e][b][d][c] + ddg[e][c][d][b] - ddg[e][d][b][c]) / 2
-                    - mpmath.fsum(dg[e][d][p] * G2[p][b][c] for p in R)
+                    - mpmath.fsum(v * G2[p][b][c] for p, v in _nonzero(dg[e][d]))
                     for c in R
                 ]
                 for b in R
@@ -221,21 +233,24 @@ def _connection(n, ginv, dg, ddg):
             for d in R
         ]
         dG2.append(
-            [[[mpmath.fsum(ginv[a][d] * inner[d][b][c] for d in R) for c in R] for b in R] for a in R]
+            [[[mpmath.fsum(v * inner[d][b][c] for d, v in ginv_rows[a]) for c in R] for b in R] for a in R]
         )
     return G2, dG2
 
 
 def _riemann_up(n, G2, dG2):
-    """Rm[a][b][c][d] = R^a_{bcd}."""
+    """Rm[a][b][c][d] = R^a_{bcd} = d_c Gamma^a_{db} - d_d Gamma^a_{cb} + Gamma^a_{ce} Gamma^e_{db}
+    - Gamma^a_{de} Gamma^e_{cb}."""
     R = range(n)
+    rows = [[_nonzero(G2[a][c]) for c in R] for a in R]  # rows[a][c] = the nonzero Gamma^a_{ce}
     return [
         [
             [
                 [
                     dG2[c][a][d][b]
                     - dG2[d][a][c][b]
-                    + mpmath.fsum(G2[a][c][e] * G2[e][d][b] - G2[a][d][e] * G2[e][c][b] for e in R)
+                    + mpmath.fsum([v * G2[e][d][b] for e, v in rows[a][c]]
+                                  + [-v * G2[e][c][b] for e, v in rows[a][d]])
                     for d in R
                 ]
                 for c in R
@@ -278,16 +293,16 @@ def _compute(metric, point, dps: int, want_kretschmann: bool = True) -> Curvatur
         Rs = mpmath.fsum(ginv[b][d] * Ric[b][d] for b in R for d in R)
         K = mpf(0)
         if want_kretschmann:
-            # raise b, c, d one at a time: T[a][b][c][d] = R^{a b c d}
+            # raise b, c, d one at a time: T[a][b][c][d] = R^{a b c d}; lower a: L[a][b][c][d] = R_{abcd}
+            rows = [_nonzero(row) for row in ginv]
             T = Rm
-            T = [[[[mpmath.fsum(ginv[b][f] * T[a][f][c][d] for f in R) for d in R] for c in R] for b in R] for a in R]
-            T = [[[[mpmath.fsum(ginv[c][f] * T[a][b][f][d] for f in R) for d in R] for c in R] for b in R] for a in R]
-            T = [[[[mpmath.fsum(ginv[d][f] * T[a][b][c][f] for f in R) for d in R] for c in R] for b in R] for a in R]
-            # lower a: R_{abcd} = g_{ae} R^e_{bcd}
-            K = mpmath.fsum(
-                g[a][e] * Rm[e][b][c][d] * T[a][b][c][d]
-                for a in R for e in R for b in R for c in R for d in R
-            )
+            T = [[[[_raised(rows[b], lambda f: T[a][f][c][d]) for d in R] for c in R] for b in R] for a in R]
+            T = [[[[_raised(rows[c], lambda f: T[a][b][f][d]) for d in R] for c in R] for b in R] for a in R]
+            T = [[[[_raised(rows[d], lambda f: T[a][b][c][f]) for d in R] for c in R] for b in R] for a in R]
+            lower = [_nonzero(row) for row in g]
+            L = [[[[_raised(lower[a], lambda e: Rm[e][b][c][d]) for d in R] for c in R] for b in R] for a in R]
+            K = mpmath.fsum(L[a][b][c][d] * T[a][b][c][d]
+                            for a in R for b in R for c in R for d in R if L[a][b][c][d])
     with mpmath.workdps(dps):
         rnd = lambda v: +v  # noqa: E731  (rounds to the current precision)
         return Curvature(
@@ -305,9 +320,10 @@ def _compute(metric, point, dps: int, want_kretschmann: bool = True) -> Curvatur
         )
 
 
-def curvature(metric, point, *, dps: int = DEFAULT_DPS) -> Curvature:
-    """Everything at once (one set of metric evaluations); see :class:`Curvature`."""
-    return _compute(metric, point, dps)
+def curvature(metric, point, *, dps: int = DEFAULT_DPS, with_kretschmann: bool = True) -> Curvature:
+    """Everything at once (one set of metric evaluations); see :class:`Curvature`.  Without the Kretschmann
+    scalar (``with_kretschmann=False``) its field is 0."""
+    return _compute(metric, point, dps, want_kretschmann=with_kretschmann)
 
 
 def metric_jet(metric, point, *, dps: int = DEFAULT_DPS):

@@ -716,8 +716,8 @@ class _Sampler:
     def evaluate(self, expr: sympy.Expr, point: dict, digits: int = DIGITS):
         expr = as_expression(expr)
         if point["functions"]:
-            expr = expr.subs(point["functions"]).doit()
-        return expr.subs(point["values"]).evalf(digits)
+            expr = expr.xreplace(point["functions"]).doit()
+        return expr.xreplace(point["values"]).evalf(digits)  # exact rationals in, rounded once at the end
 
     def first_point(self, norms: list, declared: list, order: list, bases: list):
         """A point where every squared norm is finite and non-zero, with one negative (and the declared

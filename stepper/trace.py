@@ -79,10 +79,13 @@ class _Writer:
     def __init__(self) -> None:
         self.symbols: dict[str, sympy.Symbol] = {}
         self.functions: dict[str, int] = {}
+        self.texts: dict[sympy.Basic, str] = {}  # a result recurs in the steps that use it: printed once
 
     def expression(self, expr) -> dict:
         if isinstance(expr, int) and not isinstance(expr, bool):
             expr = sympy.Integer(expr)
+        if expr in self.texts:
+            return {"expr": self.texts[expr]}
         for symbol in sorted(expr.free_symbols, key=lambda s: s.name):
             if not isinstance(symbol, sympy.Symbol) or isinstance(symbol, sympy.Dummy):
                 raise ValueError(f"a recorded expression holds a placeholder symbol {symbol}")
@@ -91,7 +94,8 @@ class _Writer:
                 raise ValueError(f"two symbols named {symbol.name} with different assumptions")
         for applied in expr.atoms(AppliedUndef):
             self.functions[applied.func.__name__] = len(applied.args)
-        return {"expr": expression_text(expr)}
+        self.texts[expr] = expression_text(expr)
+        return {"expr": self.texts[expr]}
 
     def value(self, value: Any) -> Any:
         if value is None or isinstance(value, (bool, int, float, str)):

@@ -83,8 +83,8 @@ MODULES = [{"DiracDelta": _dirac_delta, "Heaviside": _heaviside}, "mpmath"]
 
 def _substitute(expr: sympy.Expr, functions: Mapping, values: Mapping) -> sympy.Expr:
     if functions:
-        expr = expr.subs(functions).doit()
-    return expr.subs(values)
+        expr = expr.xreplace(functions).doit()
+    return expr.xreplace(values)
 
 
 def _size_spread(g: mpmath.matrix) -> int:
@@ -135,7 +135,7 @@ def numeric_check(coordinates: Sequence[sympy.Symbol], matrix: sympy.Matrix, par
                     spread_note = (f"the metric's components differ in size by a factor of about 10^{spread}, "
                                    f"more than a {digits}-digit numeric check can resolve")
                     continue
-                reference = numeric.curvature(metric, point, dps=digits)
+                reference = numeric.curvature(metric, point, dps=digits, with_kretschmann=False)
                 symbolic = {}
                 for quantity, (index_keys, function) in prepared.items():
                     values = function(point) if function is not None else []
