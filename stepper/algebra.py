@@ -99,6 +99,10 @@ CANCEL_BY_FACTORS_MIN_TERMS = 1
 #: Denominators (after division by the factors already known) with more terms than this are not factored.
 FACTOR_DENOMINATOR_TERMS_LIMIT = 60
 
+#: A polynomial shown with more terms than this (after the metric's own factors are divided out) is shown as
+#: it is: proving a long polynomial irreducible costs more than the rest of a derivation (Kerr-de Sitter).
+DISPLAY_FACTOR_TERMS_LIMIT = 12
+
 #: Polynomials in more generators than this are shown unfactored: multivariate
 #: factoring costs far more than the rest of the derivation there.
 FACTOR_GENERATORS_LIMIT = 6
@@ -629,6 +633,8 @@ class FieldArithmetic:
         self._factor_cache: dict = {}
         self._factorizations: dict = {}
         self._irreducibles: list[PolyElement] = []
+        self._display_base: list[PolyElement] = []
+        self._test_values: dict = {}
         self.zero = RationalFunction(self, self.ring.zero, self.ring.one)
         self.one = RationalFunction(self, self.ring.one, self.ring.one)
         self._derivative_rules = [self._rules_for(k, x) for k, x in enumerate(self.coordinates)]
@@ -850,6 +856,37 @@ class FieldArithmetic:
             num, den = -num, -den
         return RationalFunction(self, num, den)
 
+    def _value_at_test_point(self, poly: PolyElement) -> int:
+        """poly at the integer point x_k = 2k + 3 (k the generator's index), exactly."""
+        total = 0
+        for monom, coeff in poly.items():
+            term = int(coeff)
+            for k, e in enumerate(monom):
+                if e:
+                    term *= (2 * k + 3) ** e
+            total += term
+        return total
+
+    def _divide_out(self, poly: PolyElement, factor: PolyElement, most: int | None = None) -> tuple[PolyElement, int]:
+        """(poly / factor^m, m) with m the multiplicity of ``factor`` in ``poly`` (at most ``most``).  A trial
+        division that would fail is skipped when factor's value at the test point does not divide poly's
+        there: f | p in Z[x] gives f(x0) | p(x0)."""
+        multiplicity = 0
+        key = (factor.ring, tuple(factor.items())) if len(factor) < 64 else None
+        at = self._test_values.get(key) if key is not None else None
+        if at is None:
+            at = self._value_at_test_point(factor)
+            if key is not None:
+                self._test_values[key] = at
+        while (most is None or multiplicity < most) and not poly.is_ground:
+            if at and self._value_at_test_point(poly) % at:
+                break
+            quotient, remainder = poly.div(factor)
+            if remainder:
+                break
+            poly, multiplicity = quotient, multiplicity + 1
+        return poly, multiplicity
+
     def _cancel(self, num: PolyElement, den: PolyElement) -> tuple[PolyElement, PolyElement]:
         """num/den in lowest terms with a positive leading coefficient of den: what ``num.cancel(den)`` gives,
         computed by trial division with the irreducible factors of den (known from earlier denominators) where
@@ -862,14 +899,9 @@ class FieldArithmetic:
         content, factors = factored
         kept = []
         for f, multiplicity in factors:
-            while multiplicity:
-                quotient, remainder = num.div(f)
-                if remainder:
-                    break
-                num = quotient
-                multiplicity -= 1
-            if multiplicity:
-                kept.append((f, multiplicity))
+            num, divided = self._divide_out(num, f, most=multiplicity)
+            if multiplicity - divided:
+                kept.append((f, multiplicity - divided))
         common = sympy.igcd(int(num.content()), content)
         if common != 1:
             num, content = num.quo_ground(common), content // common
@@ -901,12 +933,7 @@ class FieldArithmetic:
             return cached
         content, factors, rest = 1, [], den
         for f in self._irreducibles:
-            multiplicity = 0
-            while True:
-                quotient, remainder = rest.div(f)
-                if remainder:
-                    break
-                rest, multiplicity = quotient, multiplicity + 1
+            rest, multiplicity = self._divide_out(rest, f)
             if multiplicity:
                 factors.append((f, multiplicity))
             if rest.is_ground:
@@ -1106,7 +1133,7 @@ class FieldArithmetic:
             return self._as_expr(self._nicer_trig_form(poly))
         key = (poly.ring, tuple(sorted(poly.items())))
         if key not in self._factor_cache:
-            self._factor_cache[key] = poly.factor_list()
+            self._factor_cache[key] = self._display_factors(poly)
         content, factors = self._factor_cache[key]
         sign = 1
         parts = []
@@ -1117,6 +1144,38 @@ class FieldArithmetic:
                 sign *= (-1) ** mult
             parts.append(self._as_expr(f) ** mult)
         return sympy.Mul(sympy.Integer(sign * int(content)), *parts)
+
+    def learn_display_factors(self, elements: Iterable[RationalFunction]) -> None:
+        """Take the irreducible factors of these elements' numerators and denominators (the metric's) as the
+        factors a display divides out before factoring what is left.  Called once, at a fixed point of the
+        chain, so that what a display shows does not depend on what else was computed before it."""
+        found: list[PolyElement] = []
+        for element in elements:
+            for poly in (element.num, element.den):
+                if poly.is_ground or len(poly) > FACTOR_DENOMINATOR_TERMS_LIMIT:
+                    continue
+                for f, _ in poly.factor_list()[1]:
+                    f = -f if f.LC < 0 else f
+                    if len(f) > 1 and f not in found:
+                        found.append(f)
+        self._display_base = found
+
+    def _display_factors(self, poly: PolyElement) -> tuple[int, list[tuple[PolyElement, int]]]:
+        """(content, [(factor, multiplicity)]) with poly = content * prod factor^multiplicity: the complete
+        factorisation of a short polynomial; for a long one, the metric's factors (``learn_display_factors``)
+        divided out, then the complete factorisation of the rest if that is short, else the rest as one factor."""
+        if len(poly) <= DISPLAY_FACTOR_TERMS_LIMIT:
+            return poly.factor_list()
+        factors, rest = [], poly
+        for f in self._display_base:
+            rest, multiplicity = self._divide_out(rest, f)
+            if multiplicity:
+                factors.append((f, multiplicity))
+        if len(rest) <= DISPLAY_FACTOR_TERMS_LIMIT:
+            content, found = rest.factor_list()
+            return content, factors + found
+        content = rest.content()
+        return content, factors + [(rest.quo_ground(content), 1)]
 
     def _split_monomial(self, poly: PolyElement) -> tuple[PolyElement, PolyElement]:
         """(m, q) with poly = m q, m the largest monomial dividing every term."""

@@ -318,6 +318,8 @@ class _Chain:
     def metric_step(self) -> None:
         n = self.n
         self.g = [[self.A.from_expr(self.metric.matrix[i, j]) for j in range(n)] for i in range(n)]
+        if hasattr(self.A, "learn_display_factors"):
+            self.A.learn_display_factors(value for row in self.g for value in row)
         comps = {self.key(i, j): self.expr(self.g[i][j]) for i in range(n) for j in range(n)
                  if not self.is_zero(self.g[i][j])}
         self.results["metric"] = comps
