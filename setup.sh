@@ -14,3 +14,6 @@ if ! command -v pdflatex >/dev/null 2>&1 || ! command -v pdftotext >/dev/null 2>
   fi
 fi
 python3 -m pip install --quiet --disable-pip-version-check --root-user-action=ignore -e '.[test]'
+# Byte-compile stepper once: where PYTHONDONTWRITEBYTECODE is set, every run would otherwise compile it again
+# (about 0.1 s of each run's start).
+python3 -m compileall -q stepper

@@ -40,9 +40,10 @@ NAMED = [
     ("Reissner-Nordstrom", BENCH_METRICS / "charged_black_hole.toml"),
     ("Kerr", EXAMPLES / "spinning_black_hole.toml"),
     ("Kerr-Newman", BENCH_METRICS / "charged_rotating_black_hole.toml"),
+    ("Kerr-de Sitter", BENCH_METRICS / "rotating_de_sitter.toml"),
     ("5-d Tangherlini", EXAMPLES / "five_dimensional_black_hole.toml"),
 ]
-SLOW_BASELINES = {"Kerr", "Kerr-Newman", "Kerr, with [matter]"}
+SLOW_BASELINES = {"Kerr", "Kerr-Newman", "Kerr-de Sitter", "Kerr, with [matter]"}
 
 #: The same geometry in the forms people write it (--only forms): exponentials and square roots against
 #: free functions and rational forms.  Timed with --jobs 1, with and without the invariants; --compare-root

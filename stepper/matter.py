@@ -823,7 +823,7 @@ class _Decider:
         """``expr`` as a function of the region's symbols, evaluated with mpmath (None if it needs others)."""
         if not expr.free_symbols <= set(self.symbols):
             return None
-        return sympy.lambdify(self.symbols, expr, modules="mpmath")
+        return sympy.lambdify(self.symbols, expr, modules="mpmath", docstring_limit=0)
 
     def _sample(self, expr: sympy.Expr) -> Decision:
         needed = set(expr.free_symbols)

@@ -105,7 +105,7 @@ def numeric_check(coordinates: Sequence[sympy.Symbol], matrix: sympy.Matrix, par
     concrete = _concrete_functions(functions, rng)
     parameter_values = {p: _sample(p, rng) for p in parameters}
     g = sympy.Matrix(matrix).subs(concrete).doit().subs(parameter_values)
-    metric_function = sympy.lambdify([coordinates], g, modules=MODULES)
+    metric_function = sympy.lambdify([coordinates], g, modules=MODULES, docstring_limit=0)
 
     def metric(x):
         return mpmath.matrix(metric_function(list(x)))
@@ -117,9 +117,10 @@ def numeric_check(coordinates: Sequence[sympy.Symbol], matrix: sympy.Matrix, par
         keys = list(comps)
         exprs = [_substitute(comps[k], concrete, parameter_values) for k in keys]
         index_keys = [tuple(names.index(part) for part in k.split(",")) for k in keys]
-        prepared[quantity] = (index_keys, sympy.lambdify([coordinates], exprs, modules=MODULES) if exprs else None)
+        function = sympy.lambdify([coordinates], exprs, modules=MODULES, docstring_limit=0) if exprs else None
+        prepared[quantity] = (index_keys, function)
     scalar_function = sympy.lambdify([coordinates], _substitute(results["scalar"], concrete, parameter_values),
-                                     modules=MODULES)
+                                     modules=MODULES, docstring_limit=0)
 
     worst = {q: mpmath.mpf(0) for q in list(quantities) + ["scalar"]}
     used_points = []

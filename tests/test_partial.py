@@ -88,10 +88,10 @@ def test_time_limit_writes_a_partial_set_in_place_of_the_previous_one(tmp_path):
     assert first.returncode == 0, first.stderr
     assert any(name.startswith("plot-") for name in (p.name for p in out.iterdir()))  # the exterior has plots
     run = subprocess.run([sys.executable, "-m", "stepper", "derive", str(tmp_path / "hole.toml"), "-o", str(out),
-                          "--time-limit", "4", "--jobs", "1"], capture_output=True, text=True, timeout=600)
+                          "--time-limit", "2.5", "--jobs", "1"], capture_output=True, text=True, timeout=600)
     assert run.returncode == 3, run.stderr
     last = run.stderr.strip().splitlines()[-1]
-    assert last.startswith("stepper: stopped: the time limit of 4 s was reached during ") and "partial" in last, last
+    assert last.startswith("stepper: stopped: the time limit of 2.5 s was reached during ") and "partial" in last, last
     assert "Traceback" not in run.stderr
     assert sorted(p.name for p in out.iterdir()) == ["appendix.tex", "derivation.ipynb", "report.pdf", "report.tex",
                                                     "trace.json"]  # nothing of the previous set is left
