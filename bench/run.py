@@ -14,8 +14,10 @@ For each metric it times, in fresh processes:
 and prints a table: metric, dimension, baseline seconds, stepper seconds (trace; with PDF and notebook),
 the ratio baseline / stepper (trace), and stepper's peak memory with all outputs.  Stepper times are
 medians of --repeats runs; the baseline runs once, and a baseline stopped at --baseline-limit seconds
-is shown as '>limit' (its ratio is then a lower bound).  These machines are noisy: read ratios, not
-absolute times.
+is shown as '>limit' (its ratio is then a lower bound).  A run without --only ends with the forms family
+(the same geometry as people write it: exponentials, square roots, Cartesian, isotropic and horizon-penetrating
+coordinates), timed with --jobs 1 with and without the invariants.  These machines are noisy: read ratios,
+not absolute times.
 """
 
 from __future__ import annotations
@@ -214,13 +216,7 @@ def main() -> None:
     parser.add_argument("--compare-root", help="forms: also time the stepper of this checkout (an older version)")
     args = parser.parse_args()
     if args.only == "forms":
-        with tempfile.TemporaryDirectory(prefix="stepper-bench-") as folder:
-            print(f"python {sys.version.split()[0]}, {os.cpu_count()} cores; stepper --formats trace --jobs 1, "
-                  f"median of {args.repeats} runs; limit {args.baseline_limit:.0f} s", flush=True)
-            print(FORMS_HEADER)
-            print("-" * len(FORMS_HEADER), flush=True)
-            for label, path in FORMS:
-                print(form_row(measure_form(label, path, args, Path(folder) / "out"), args.baseline_limit), flush=True)
+        run_forms(args)
         return
     rows = []
     with tempfile.TemporaryDirectory(prefix="stepper-bench-") as folder:
@@ -245,6 +241,20 @@ def main() -> None:
         for label, path in beyond:
             rows.append(measure(label, path, load_metric(path).dimension, args, out, "baseline_beyond.py"))
             print(table_row(rows[-1], args.baseline_limit), flush=True)
+    if args.only is None:
+        print("the same geometry in the forms people use", flush=True)
+        run_forms(args)
+
+
+def run_forms(args) -> None:
+    """The forms family: one row per file of FORMS, with and without the invariants."""
+    with tempfile.TemporaryDirectory(prefix="stepper-bench-") as folder:
+        print(f"python {sys.version.split()[0]}, {os.cpu_count()} cores; stepper --formats trace --jobs 1, "
+              f"median of {args.repeats} runs; limit {args.baseline_limit:.0f} s", flush=True)
+        print(FORMS_HEADER)
+        print("-" * len(FORMS_HEADER), flush=True)
+        for label, path in FORMS:
+            print(form_row(measure_form(label, path, args, Path(folder) / "out"), args.baseline_limit), flush=True)
 
 
 if __name__ == "__main__":

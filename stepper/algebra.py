@@ -428,6 +428,8 @@ class RationalFunction:
         return result
 
     def __eq__(self, other):
+        if type(other) is int and other == 0:  # the commonest question, without building the constant 0
+            return not self.num
         other = self._coerce(other)
         if other is NotImplemented:
             return False

@@ -106,6 +106,8 @@ def numeric_check(coordinates: Sequence[sympy.Symbol], matrix: sympy.Matrix, par
     parameter_values = {p: _sample(p, rng) for p in parameters}
     g = sympy.Matrix(matrix).subs(concrete).doit().subs(parameter_values)
     metric_function = sympy.lambdify([coordinates], g, modules=MODULES, docstring_limit=0)
+    dependencies = sorted({frozenset(k for k, x in enumerate(coordinates) if x in value.free_symbols)
+                           for value in g}, key=sorted)
 
     def metric(x):
         return mpmath.matrix(metric_function(list(x)))
@@ -136,7 +138,8 @@ def numeric_check(coordinates: Sequence[sympy.Symbol], matrix: sympy.Matrix, par
                     spread_note = (f"the metric's components differ in size by a factor of about 10^{spread}, "
                                    f"more than a {digits}-digit numeric check can resolve")
                     continue
-                reference = numeric.curvature(metric, point, dps=digits, with_kretschmann=False)
+                reference = numeric.curvature(metric, point, dps=digits, with_kretschmann=False,
+                                              dependencies=dependencies)
                 symbolic = {}
                 for quantity, (index_keys, function) in prepared.items():
                     values = function(point) if function is not None else []

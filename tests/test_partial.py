@@ -9,6 +9,7 @@ import sys
 from pathlib import Path
 
 import pytest
+import sympy
 
 from conftest import ROTATING_DE_SITTER
 from stepper import chain
@@ -116,3 +117,25 @@ def test_a_partial_report_compiles_wherever_the_run_stopped(tmp_path):
         partial = load_trace(trace_json(stopped_in(metric, stage)))
         files, problems = output_files(partial, tmp_path / stage, ["pdf"])
         assert not problems and files["report.pdf"].startswith(b"%PDF"), (stage, problems)
+
+
+def test_rotating_black_hole_stopped_in_the_kretschmann_stage_keeps_curvature_and_verdicts(tmp_path):
+    """The case the time limit is for: a rotating black hole with a cosmological constant stopped while its
+    Kretschmann scalar is computed keeps Christoffel, Riemann, Ricci, Einstein and the four verdicts reached
+    before it, in the trace, the report and the notebook."""
+    (tmp_path / "hole.toml").write_text(ROTATING_DE_SITTER)
+    partial = stopped_in(load_metric(tmp_path / "hole.toml"), "kretschmann")
+    assert partial.stopped["during"] == "kretschmann"
+    assert {"christoffel", "riemann", "ricci", "scalar", "einstein"} <= set(partial.stopped["finished"])
+    assert "kretschmann" not in partial.results and "weyl" not in partial.results
+    verdicts = partial.results["verdicts"]
+    # Kerr-de Sitter is an Einstein space, R_ij = Lambda g_ij, not Ricci-flat (Griffiths & Podolsky, Exact
+    # Space-Times, section 11.1)
+    assert verdicts["ricci_flat"]["holds"] is False and verdicts["einstein_space"]["holds"] is True
+    scalar = partial.results["scalar"]
+    L = next(s for s in scalar.free_symbols if s.name == "L")
+    assert sympy.simplify(scalar - 4 * L) == 0  # R = 4 Lambda for R_ij = Lambda g_ij in four dimensions
+    files, _ = output_files(load_trace(trace_json(partial)), tmp_path / "out", ["trace", "tex", "notebook"])
+    assert json.loads(files["trace.json"])["stopped"]["during"] == "kretschmann"
+    assert "Partial derivation." in files["report.tex"] and "Kretschmann" in files["report.tex"]
+    assert "**Partial derivation.**" in "".join(json.loads(files["derivation.ipynb"])["cells"][0]["source"])
