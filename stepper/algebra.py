@@ -171,9 +171,10 @@ def printer_stable(expr: sympy.Expr) -> sympy.Expr:
     if expr.is_Atom:
         return expr
     args = [printer_stable(a) for a in expr.args]
+    unchanged = all(new is old for new, old in zip(args, expr.args))
     if not isinstance(expr, sympy.Mul):
-        return expr.func(*args) if args != list(expr.args) else expr
-    rebuilt = sympy.Mul(*args)
+        return expr if unchanged else expr.func(*args)
+    rebuilt = expr if unchanged else sympy.Mul(*args)
     if not isinstance(rebuilt, sympy.Mul):
         return rebuilt
     coefficient, _ = rebuilt.as_coeff_Mul()
@@ -1167,6 +1168,9 @@ class FieldArithmetic:
         factorisation of a short polynomial; for a long one, the metric's factors (``learn_display_factors``)
         divided out, then the complete factorisation of the rest if that is short, else the rest as one factor."""
         if len(poly) <= DISPLAY_FACTOR_TERMS_LIMIT:
+            if _plainly_irreducible(poly):
+                content = poly.content()
+                return content, [(poly.quo_ground(content), 1)]
             return poly.factor_list()
         factors, rest = [], poly
         for f in self._display_base:
@@ -1243,6 +1247,18 @@ def _canonical_derivative(d: sympy.Derivative) -> sympy.Derivative:
     base = d.expr
     counts = _derivative_orders(d)
     return sympy.Derivative(base, *[(a, counts[a]) for a in base.args if counts.get(a)])
+
+
+def _plainly_irreducible(poly: PolyElement) -> bool:
+    """True when poly's primitive part is irreducible because poly = c1 x + c0 in some generator x with
+    gcd(c1, c0) = 1 (a factorisation would give one factor free of x, dividing both).  False says nothing.
+    poly must have no monomial factor, so that c0 is not 0."""
+    for index in range(poly.ring.ngens):
+        if poly.degree(index) == 1:
+            c1, c0 = _coefficient_in(poly, index, 1), _coefficient_in(poly, index, 0)
+            if c0 and c1.gcd(c0).is_ground:
+                return True
+    return False
 
 
 def _coefficient_in(poly: PolyElement, index: int, power: int) -> PolyElement:

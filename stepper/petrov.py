@@ -735,8 +735,9 @@ class _Sampler:
 
     def first_point(self, norms: list, declared: list, order: list, bases: list):
         """A point where every squared norm is finite and non-zero, with one negative (and the declared
-        signs); of 12 draws, the one whose timelike direction comes earliest among the coordinates, then the one
-        where the fewest irreducible factors of the norms (``bases``) are negative."""
+        signs); of up to 16 draws, the one whose timelike direction comes earliest among the coordinates, then
+        the one where the fewest irreducible factors of the norms (``bases``) are negative (the first draw that
+        no later one could beat ends the search)."""
         best = None
         for _ in range(16):
             point = self.draw()
@@ -751,6 +752,8 @@ class _Sampler:
             rank = (negative[0], sum(1 for b in bases if self.evaluate(b, point) < 0))
             if best is None or rank < best[0]:
                 best = (rank, point)
+            if rank == (min(order), 0):  # no later draw can rank higher
+                break
         return None if best is None else best[1]
 
     def point_with_signs(self):
