@@ -636,7 +636,7 @@ class FieldArithmetic:
         self._factor_cache: dict = {}
         self._factorizations: dict = {}
         self._irreducibles: list[PolyElement] = []
-        self._display_base: list[PolyElement] = []
+        self._display_base: list[PolyElement] | None = None  # None: displays factor completely
         self._test_values: dict = {}
         self.zero = RationalFunction(self, self.ring.zero, self.ring.one)
         self.one = RationalFunction(self, self.ring.one, self.ring.one)
@@ -1162,12 +1162,14 @@ class FieldArithmetic:
                     if len(f) > 1 and f not in found:
                         found.append(f)
         self._display_base = found
+        self._factor_cache.clear()
 
     def _display_factors(self, poly: PolyElement) -> tuple[int, list[tuple[PolyElement, int]]]:
         """(content, [(factor, multiplicity)]) with poly = content * prod factor^multiplicity: the complete
-        factorisation of a short polynomial; for a long one, the metric's factors (``learn_display_factors``)
-        divided out, then the complete factorisation of the rest if that is short, else the rest as one factor."""
-        if len(poly) <= DISPLAY_FACTOR_TERMS_LIMIT:
+        factorisation of a short polynomial, and of every polynomial when no factors were learned (outside the
+        chain); for a long one, the metric's factors (``learn_display_factors``) divided out, then the complete
+        factorisation of the rest if that is short, else the rest as one factor."""
+        if len(poly) <= DISPLAY_FACTOR_TERMS_LIMIT or self._display_base is None:
             if _plainly_irreducible(poly):
                 content = poly.content()
                 return content, [(poly.quo_ground(content), 1)]

@@ -337,6 +337,7 @@ class ExpressionWriter:
         ``braced`` lists LaTeX symbols (\\Lambda) the metric's names print as in braces, {\\Lambda}, so that
         the report can tell them from its own uses of the same symbol."""
         velocities = dict(velocities or {})
+        self._prepared: dict[sympy.Expr, sympy.Expr] = {}  # a report prints one expression several ways
         self.velocities = {name: tex for name, (_, tex) in velocities.items()}
         self._abbreviations = [(sympy.Symbol(name), _trig_normal(sympy.expand(value)))
                                for name, value in abbreviations
@@ -361,8 +362,10 @@ class ExpressionWriter:
         """The expression as it is printed: abbreviated, and every factor that is a sum led by a positive
         term (see :meth:`normal_signs`; only when the coordinates are known, which order the terms). Equal to
         ``expr`` once the abbreviations are written out."""
-        abbreviated = self.abbreviate(expr)
-        return self.normal_signs(abbreviated) if self._coordinates else abbreviated
+        if expr not in self._prepared:
+            abbreviated = self.abbreviate(expr)
+            self._prepared[expr] = self.normal_signs(abbreviated) if self._coordinates else abbreviated
+        return self._prepared[expr]
 
     def equation(self, lhs: str, expr: sympy.Expr, whole_terms: bool = False) -> tuple[str, bool]:
         """LaTeX for ``lhs = expr`` and whether it needs the breakable form (``whole_terms``: see

@@ -739,7 +739,7 @@ class _Sampler:
         the one where the fewest irreducible factors of the norms (``bases``) are negative (the first draw that
         no later one could beat ends the search)."""
         best = None
-        for _ in range(16):
+        for draw in range(16):
             point = self.draw()
             values = [self.evaluate(x, point) for x in norms]
             if not all(v.is_real and v.is_finite and v != 0 for v in values):
@@ -752,7 +752,9 @@ class _Sampler:
             rank = (negative[0], sum(1 for b in bases if self.evaluate(b, point) < 0))
             if best is None or rank < best[0]:
                 best = (rank, point)
-            if rank == (min(order), 0):  # no later draw can rank higher
+            if rank == (min(order), 0):  # no later draw can rank higher: draw them without evaluating, so
+                for _ in range(draw + 1, 16):  # that the points drawn after these are the same as ever
+                    self.draw()
                 break
         return None if best is None else best[1]
 

@@ -15,6 +15,7 @@ orbits) are typeset, never printed as Python values.
 from __future__ import annotations
 
 import re
+import weakref
 from typing import Any
 
 import sympy
@@ -2108,7 +2109,21 @@ def partial_notice(stopped) -> dict | None:
 
 
 def report_model(derivation: Derivation) -> dict[str, Any]:
-    """Plain data for the report templates."""
+    """Plain data for the report templates; the same for report.tex, report.pdf and appendix.tex, so made once
+    per record (the record is immutable; the templates only read the model)."""
+    cached = _last_model[0] if _last_model else None
+    if cached is not None and cached[0]() is derivation:
+        return cached[1]
+    model = _make_report_model(derivation)
+    _last_model[:] = [(weakref.ref(derivation), model)]
+    return model
+
+
+#: The last record's model and a weak reference to that record.
+_last_model: list = []
+
+
+def _make_report_model(derivation: Derivation) -> dict[str, Any]:
     model = _Model(derivation)
     steps = [s for s in derivation.steps if s.stage != "audit"]  # the audit's own steps go into its section
     entries = [model.step_entry(s) for s in steps]
