@@ -342,6 +342,10 @@ class ExpressionWriter:
         self._abbreviations = [(sympy.Symbol(name), _trig_normal(sympy.expand(value)))
                                for name, value in abbreviations
                                if sympy.expand(value).is_Add and _is_polynomial_like(value)]
+        # a sum with more terms than this is no abbreviation times a number (sin^2 and cos^2 forms of one
+        # abbreviation differ by a few terms), so it is not expanded to be compared with each
+        self._match_terms = 2 * max((len(value.args) for _, value in self._abbreviations), default=0) + 4
+        self._abbreviated: dict[sympy.Expr, sympy.Expr] = {}
         self._coordinates = tuple(coordinates)
         self.time = time
         # terms of sums in descending powers of the coordinates; an abbreviation counts as its highest power
@@ -402,11 +406,13 @@ class ExpressionWriter:
         if not self._abbreviations or expr.is_Atom:
             return expr
         if isinstance(expr, sympy.Add):
-            match = self._match(expr)
-            if match is not None:
-                return match
-            plain = sympy.Add(*[self.abbreviate(a) for a in expr.args])
-            return self._shortest_in_abbreviations(expr, plain)
+            if expr not in self._abbreviated:  # the same factor recurs in many components
+                match = self._match(expr) if len(expr.args) <= self._match_terms else None
+                if match is None:
+                    plain = sympy.Add(*[self.abbreviate(a) for a in expr.args])
+                    match = self._shortest_in_abbreviations(expr, plain)
+                self._abbreviated[expr] = match
+            return self._abbreviated[expr]
         if isinstance(expr, sympy.Derivative):
             return sympy.Derivative(self.abbreviate(expr.expr), *expr.variable_count)
         if isinstance(expr, (sympy.Mul, sympy.Pow)):
