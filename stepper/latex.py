@@ -342,9 +342,9 @@ class ExpressionWriter:
         self._abbreviations = [(sympy.Symbol(name), _trig_normal(sympy.expand(value)))
                                for name, value in abbreviations
                                if sympy.expand(value).is_Add and _is_polynomial_like(value)]
-        # a sum with more terms than this is no abbreviation times a number (sin^2 and cos^2 forms of one
+        # a sum larger than this (in nodes) is no abbreviation times a number (the sin^2 and cos^2 forms of one
         # abbreviation differ by a few terms), so it is not expanded to be compared with each
-        self._match_terms = 2 * max((len(value.args) for _, value in self._abbreviations), default=0) + 4
+        self._match_nodes = 4 * max((_nodes(value) for _, value in self._abbreviations), default=0) + 20
         self._abbreviated: dict[sympy.Expr, sympy.Expr] = {}
         self._coordinates = tuple(coordinates)
         self.time = time
@@ -407,7 +407,7 @@ class ExpressionWriter:
             return expr
         if isinstance(expr, sympy.Add):
             if expr not in self._abbreviated:  # the same factor recurs in many components
-                match = self._match(expr) if len(expr.args) <= self._match_terms else None
+                match = self._match(expr) if _nodes(expr, self._match_nodes + 1) <= self._match_nodes else None
                 if match is None:
                     plain = sympy.Add(*[self.abbreviate(a) for a in expr.args])
                     match = self._shortest_in_abbreviations(expr, plain)
@@ -598,6 +598,16 @@ def visible_length(tex: str) -> int:
 
 
 _GREEK_COMMANDS = frozenset(_GREEK.values())
+
+
+def _nodes(expr: sympy.Expr, most: int | None = None) -> int:
+    """The number of nodes of an expression tree, counted up to ``most``."""
+    count = 0
+    for _ in sympy.preorder_traversal(expr):
+        count += 1
+        if most is not None and count >= most:
+            break
+    return count
 
 
 def _is_polynomial_like(expr: sympy.Expr) -> bool:
