@@ -446,6 +446,26 @@ def _formats(text: str | None) -> list[str]:
     return [name for name in EXPORTERS if name in chosen]
 
 
+def run() -> None:
+    """The entry point of ``stepper`` and ``python -m stepper``: :func:`main`, then the end of the process.
+
+    Every output file is closed and in place when main returns, so where no thread, child process or cluster
+    connection is left (:func:`quick_exit_allowed`) the process ends at once: tearing down the interpreter's
+    sympy objects and caches would cost about half a second more on every run."""
+    status = main()
+    if not quick_exit_allowed(sys.argv[1:]):
+        sys.exit(status)
+    for stream in (sys.stdout, sys.stderr):
+        try:
+            if stream is not None:
+                stream.flush()
+        except BrokenPipeError:
+            status = status or 141
+        except OSError:
+            status = status or 1
+    os._exit(status)
+
+
 def quick_exit_allowed(argv: Sequence[str]) -> bool:
     """Whether ``python -m stepper`` may end the process at once after ``main`` returns: commands that leave
     no threads, child processes or cluster connections behind (``batch`` may leave a Dask client's)."""

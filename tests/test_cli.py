@@ -555,3 +555,23 @@ def test_parallel_run_gives_the_same_bytes_as_the_serial_one(tmp_path):
     assert serial.returncode == 0 and parallel.returncode == 0, (serial.stderr, parallel.stderr)
     for name in ("trace.json", "report.tex", "derivation.ipynb"):
         assert (tmp_path / "one" / name).read_bytes() == (tmp_path / "two" / name).read_bytes(), name
+
+
+def test_the_process_ends_with_mains_status_and_every_line_written(tmp_path):
+    """``python -m stepper`` ends the process without tearing the interpreter down (stepper.cli.run): the
+    terminal lines are all there, the status is main's, and a closed stdout or a reader that went away is no
+    traceback (common practice for command-line tools: 141 for a broken pipe)."""
+    command = [sys.executable, "-m", "stepper", "derive", str(EXAMPLES / "round_sphere.toml"), "--formats", "trace"]
+    done = subprocess.run(command + ["-o", str(tmp_path / "a")], capture_output=True, text=True, timeout=TIMEOUT)
+    assert done.returncode == 0 and done.stdout.rstrip().splitlines()[-1].startswith("  written to "), done.stdout
+    assert (tmp_path / "a" / "trace.json").is_file()
+    closed = subprocess.run(command + ["-o", str(tmp_path / "b")], stdout=None, stderr=subprocess.PIPE, text=True,
+                            timeout=TIMEOUT, preexec_fn=lambda: os.close(1))
+    assert closed.returncode == 0 and "Traceback" not in closed.stderr, closed.stderr
+    bad = subprocess.run([sys.executable, "-m", "stepper", "derive", str(tmp_path / "missing.toml"), "-o",
+                          str(tmp_path / "c")], capture_output=True, text=True, timeout=TIMEOUT)
+    assert bad.returncode == 2 and bad.stderr.startswith("stepper: error:")
+    reader = subprocess.Popen(command + ["-o", str(tmp_path / "d")], stdout=subprocess.PIPE, stderr=subprocess.PIPE)
+    reader.stdout.close()  # the reader goes away before stepper writes its lines
+    _, err = reader.communicate(timeout=TIMEOUT)
+    assert reader.returncode in (0, 141) and b"Traceback" not in err, err

@@ -195,8 +195,9 @@ def polynomial_quotient(expr, roots=None):
             terms = [quotient(term) for term in e.args]
             common = ring.one
             for _, d in terms:
-                common = common.lcm(d)
-            result = (sum((n * common.exquo(d) for n, d in terms), ring.zero), common)
+                if d != common and d != ring.one:  # most terms share one denominator: no gcd for those
+                    common = common.lcm(d)
+            result = (sum((n if d == common else n * common.exquo(d) for n, d in terms), ring.zero), common)
         else:
             raise ValueError(f"not a rational function: {e}")
         known[e] = result
