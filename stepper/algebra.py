@@ -875,12 +875,9 @@ class FieldArithmetic:
         division that would fail is skipped when factor's value at the test point does not divide poly's
         there: f | p in Z[x] gives f(x0) | p(x0)."""
         multiplicity = 0
-        key = (factor.ring, tuple(factor.items())) if len(factor) < 64 else None
-        at = self._test_values.get(key) if key is not None else None
+        at = self._test_values.get(factor)
         if at is None:
-            at = self._value_at_test_point(factor)
-            if key is not None:
-                self._test_values[key] = at
+            at = self._test_values[factor] = self._value_at_test_point(factor)
         while (most is None or multiplicity < most) and not poly.is_ground:
             if at and self._value_at_test_point(poly) % at:
                 break

@@ -467,7 +467,7 @@ def run() -> None:
 
 
 def quick_exit_allowed(argv: Sequence[str]) -> bool:
-    """Whether ``python -m stepper`` may end the process at once after ``main`` returns: commands that leave
+    """Whether :func:`run` may end the process at once after ``main`` returns: commands that leave
     no threads, child processes or cluster connections behind (``batch`` may leave a Dask client's)."""
     return "batch" not in argv
 
